@@ -1,0 +1,205 @@
+"""The board: what the designer drew, as frozen values in SI units.
+
+A :class:`Board` is produced by :func:`reconcile.board_loader.load_board` from a board
+file (TOML, see the contract in the README) and never changes afterwards; variants of a
+board (a fault, a rework option) are new boards made with :meth:`Board.replace_part` or
+:func:`dataclasses.replace`.
+
+Node names are strings; ``"gnd"`` is the 0 V reference (the loader maps ``"0"`` to it).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+from typing import Literal
+
+GND = "gnd"
+
+Polarity = Literal["npn", "pnp"]
+
+
+@dataclass(frozen=True)
+class Supply:
+    """A DC source from gnd to ``node``; ``volts`` may be negative (a negative rail)."""
+
+    ref: str
+    node: str
+    volts: float
+    tolerance: float = 0.0
+
+
+@dataclass(frozen=True)
+class Resistor:
+    """A resistor; its current is counted from ``nodes[0]`` to ``nodes[1]``."""
+
+    ref: str
+    nodes: tuple[str, str]
+    ohms: float
+    tolerance: float = 0.05
+    rating_w: float | None = None
+    trim: bool = True
+
+
+@dataclass(frozen=True)
+class Capacitor:
+    """A capacitor: open at DC, admittance j*2*pi*f*C in small signal."""
+
+    ref: str
+    nodes: tuple[str, str]
+    farads: float
+    tolerance: float = 0.20
+    trim: bool = True
+
+
+@dataclass(frozen=True)
+class DeviceParam:
+    """A device parameter: a typical value and, where given, the range a part may have."""
+
+    value: float
+    low: float | None = None
+    high: float | None = None
+
+    @property
+    def has_range(self) -> bool:
+        return self.low is not None and self.high is not None and self.high > self.low
+
+
+@dataclass(frozen=True)
+class Device:
+    """A transistor type (values at 25 C).
+
+    ``IS`` in A, ``VA`` in V (``inf`` for no Early effect), ``bandgap`` in eV.
+    """
+
+    name: str
+    IS: DeviceParam
+    beta: DeviceParam
+    beta_r: DeviceParam = field(default_factory=lambda: DeviceParam(1.0))
+    VA: DeviceParam = field(default_factory=lambda: DeviceParam(float("inf")))
+    n: DeviceParam = field(default_factory=lambda: DeviceParam(1.0))
+    is_temp_exponent: float = 3.0
+    bandgap: float = 1.11
+
+
+@dataclass(frozen=True)
+class Transistor:
+    """A bipolar transistor placed on the board, terminals named by node."""
+
+    ref: str
+    polarity: Polarity
+    c: str
+    b: str
+    e: str
+    device: str
+
+
+@dataclass(frozen=True)
+class Signal:
+    """The small-signal test set-up (see the contract for how each quantity is defined)."""
+
+    input: str | None = None
+    output: str | None = None
+    source_ohms: float = 50.0
+    load_ohms: float = float("inf")
+    frequency: float = 1e3
+
+
+@dataclass(frozen=True)
+class Bench:
+    """How the bench reads the board: the DC voltmeter's input resistance."""
+
+    voltmeter_ohms: float = 10e6
+
+
+@dataclass(frozen=True)
+class SpecTarget:
+    """A target with a relative tolerance (``value`` in SI units)."""
+
+    value: float
+    tolerance: float
+
+    @property
+    def low(self) -> float:
+        return self.value * (1.0 - self.tolerance)
+
+    @property
+    def high(self) -> float:
+        return self.value * (1.0 + self.tolerance)
+
+
+@dataclass(frozen=True)
+class Spec:
+    """What the board must meet. ``targets`` is keyed by small-signal quantity name
+    (``gain``, ``input_resistance``, ``output_resistance``, ``source_gain``)."""
+
+    targets: dict[str, SpecTarget] = field(default_factory=dict)
+    min_vce: float | None = None
+
+
+@dataclass(frozen=True)
+class Board:
+    """A whole board as drawn. ``temperature`` is the ambient, in kelvin."""
+
+    title: str = ""
+    temperature: float = 298.15
+    supplies: dict[str, Supply] = field(default_factory=dict)
+    resistors: dict[str, Resistor] = field(default_factory=dict)
+    capacitors: dict[str, Capacitor] = field(default_factory=dict)
+    transistors: dict[str, Transistor] = field(default_factory=dict)
+    devices: dict[str, Device] = field(default_factory=dict)
+    signal: Signal = field(default_factory=Signal)
+    bench: Bench = field(default_factory=Bench)
+    spec: Spec = field(default_factory=Spec)
+    source_path: str | None = None
+    source_text: str | None = None
+
+    # ------------------------------------------------------------------ views
+    @property
+    def nodes(self) -> list[str]:
+        """Every node name except gnd, in order of first appearance."""
+        seen: dict[str, None] = {}
+        for s in self.supplies.values():
+            seen.setdefault(s.node, None)
+        for r in self.resistors.values():
+            for n in r.nodes:
+                seen.setdefault(n, None)
+        for c in self.capacitors.values():
+            for n in c.nodes:
+                seen.setdefault(n, None)
+        for q in self.transistors.values():
+            for n in (q.c, q.b, q.e):
+                seen.setdefault(n, None)
+        for n in (self.signal.input, self.signal.output):
+            if n:
+                seen.setdefault(n, None)
+        seen.pop(GND, None)
+        return list(seen)
+
+    @property
+    def part_refs(self) -> list[str]:
+        return [
+            *self.supplies,
+            *self.resistors,
+            *self.capacitors,
+            *self.transistors,
+        ]
+
+    def device_of(self, transistor_ref: str) -> Device:
+        return self.devices[self.transistors[transistor_ref].device]
+
+    # -------------------------------------------------------------- variants
+    def replace_part(self, part: Supply | Resistor | Capacitor | Transistor) -> Board:
+        """A new board with one part replaced (matched by ref and kind)."""
+        table = {
+            Supply: "supplies",
+            Resistor: "resistors",
+            Capacitor: "capacitors",
+            Transistor: "transistors",
+        }[type(part)]
+        parts = dict(getattr(self, table))
+        parts[part.ref] = part
+        return dataclasses.replace(self, **{table: parts})
+
+    def with_resistor_ohms(self, ref: str, ohms: float) -> Board:
+        return self.replace_part(dataclasses.replace(self.resistors[ref], ohms=float(ohms)))

@@ -1,0 +1,163 @@
+"""The transistor equations, as pure numpy functions over a leading sample axis.
+
+The model is fixed by the project's contract (README, "Device model"): the Ebers–Moll
+transport form with a forward Early effect and an emission coefficient, i.e. the
+Gummel–Poon model with no high-injection knee and no leakage terms. For an npn, with
+VT = k·T/q:
+
+    IF  = IS(T) * (exp(VBE / (n*VT)) - 1)
+    IR  = IS(T) * (exp(VBC / (n*VT)) - 1)
+    ICT = (IF - IR) * (1 - VBC / VA)
+    IC  = ICT - IR / beta_r
+    IB  = IF / beta + IR / beta_r
+    IS(T) = IS * (T/T0)**xti * exp((q*Eg/k) * (1/T0 - 1/T)),   T0 = 298.15 K
+
+Everything here works in the npn frame: a pnp is evaluated with its junction voltages
+negated and its currents negated afterwards (the caller does both, see
+:mod:`reconcile.engine.dc`). Constants are CODATA values from :mod:`scipy.constants`.
+
+The exponential is continued linearly above ``EXP_LIMIT`` (an argument of 80, about
+2 V across a junction at room temperature) so that wild Newton iterates cannot
+overflow; no operating point a real board can reach comes near it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import constants
+
+T0_K = 298.15
+"""Reference temperature of the device tables, in kelvin (25 C)."""
+
+K_OVER_Q = constants.k / constants.e
+"""Boltzmann constant over the elementary charge, in V/K."""
+
+EXP_LIMIT = 80.0
+
+
+def thermal_voltage(temperature_k: np.ndarray | float) -> np.ndarray:
+    """VT = k·T/q in volts."""
+    return K_OVER_Q * np.asarray(temperature_k, dtype=float)
+
+
+def saturation_current(
+    is_25c: np.ndarray,
+    temperature_k: np.ndarray,
+    xti: np.ndarray | float = 3.0,
+    bandgap_ev: np.ndarray | float = 1.11,
+) -> np.ndarray:
+    """IS at ``temperature_k`` from its value at 25 C (A)."""
+    t = np.asarray(temperature_k, dtype=float)
+    ratio = t / T0_K
+    return is_25c * ratio**xti * np.exp((bandgap_ev / K_OVER_Q) * (1.0 / T0_K - 1.0 / t))
+
+
+def _exp_continued(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """exp(x) and its derivative, continued linearly above EXP_LIMIT."""
+    clipped = np.minimum(x, EXP_LIMIT)
+    e = np.exp(clipped)
+    over = x - clipped
+    return e * (1.0 + over), e
+
+
+@dataclass(frozen=True)
+class JunctionState:
+    """Terminal currents (npn frame) and their partial derivatives at (vbe, vbc).
+
+    All arrays share one shape. ``ic`` flows into the collector, ``ib`` into the base;
+    the emitter carries ``-(ic + ib)``. ``dic_dvbe`` etc. are in siemens.
+    """
+
+    ic: np.ndarray
+    ib: np.ndarray
+    dic_dvbe: np.ndarray
+    dic_dvbc: np.ndarray
+    dib_dvbe: np.ndarray
+    dib_dvbc: np.ndarray
+
+
+def junction_currents(
+    vbe: np.ndarray,
+    vbc: np.ndarray,
+    is_t: np.ndarray,
+    beta: np.ndarray,
+    beta_r: np.ndarray,
+    va: np.ndarray,
+    n_vt: np.ndarray,
+) -> JunctionState:
+    """Evaluate the device equations in the npn frame.
+
+    Parameters
+    ----------
+    vbe, vbc : junction voltages in V (npn frame).
+    is_t : saturation current at the junction temperature, A.
+    beta, beta_r : forward and reverse current gain.
+    va : forward Early voltage in V (``inf`` for none).
+    n_vt : emission coefficient times thermal voltage, V.
+    """
+    ef, def_ = _exp_continued(vbe / n_vt)
+    er, der = _exp_continued(vbc / n_vt)
+    i_f = is_t * (ef - 1.0)
+    i_r = is_t * (er - 1.0)
+    g_f = is_t * def_ / n_vt
+    g_r = is_t * der / n_vt
+    inv_va = 1.0 / va  # 0 where va is inf
+    q_early = 1.0 - vbc * inv_va
+    i_ct = (i_f - i_r) * q_early
+    ic = i_ct - i_r / beta_r
+    ib = i_f / beta + i_r / beta_r
+    dic_dvbe = g_f * q_early
+    dic_dvbc = -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r
+    dib_dvbe = g_f / beta
+    dib_dvbc = g_r / beta_r
+    return JunctionState(ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc)
+
+
+def critical_voltage(is_t: np.ndarray, n_vt: np.ndarray) -> np.ndarray:
+    """The junction voltage above which Newton steps are limited (V).
+
+    The voltage where the diode's curvature radius is smallest,
+    n·VT·ln(n·VT / (√2·IS)), the usual choice for junction limiting.
+    """
+    return n_vt * np.log(n_vt / (np.sqrt(2.0) * is_t))
+
+
+def limit_junction(
+    v_new: np.ndarray, v_old: np.ndarray, n_vt: np.ndarray, v_crit: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Limit a Newton step of a junction voltage (logarithmic damping above v_crit).
+
+    Above ``v_crit`` a forward step larger than 2·n·VT is replaced by the step that
+    changes the junction current by the same factor as a linear step would change its
+    logarithm; the exponential can then never overflow and Newton keeps its quadratic
+    convergence near the solution. Returns the limited voltage and a mask of where a
+    limit was applied.
+    """
+    big_step = (v_new > v_crit) & (np.abs(v_new - v_old) > 2.0 * n_vt)
+    if not np.any(big_step):
+        return v_new, big_step
+    arg = 1.0 + (v_new - v_old) / n_vt
+    with np.errstate(invalid="ignore", divide="ignore"):
+        from_old = np.where(arg > 0.0, v_old + n_vt * np.log(np.maximum(arg, 1e-300)), v_crit)
+        from_zero = n_vt * np.log(np.maximum(v_new / n_vt, 1e-300))
+    limited = np.where(v_old > 0.0, from_old, from_zero)
+    return np.where(big_step, limited, v_new), big_step
+
+
+REGION_THRESHOLD_V = 0.4
+"""A junction counts as forward-biased above this voltage (npn frame)."""
+
+REGIONS = ("forward-active", "saturation", "cutoff", "reverse-active")
+
+
+def region_codes(vbe: np.ndarray, vbc: np.ndarray) -> np.ndarray:
+    """Operating region index into :data:`REGIONS` from npn-frame junction voltages."""
+    be_on = vbe > REGION_THRESHOLD_V
+    bc_on = vbc > REGION_THRESHOLD_V
+    code = np.full(np.shape(vbe), 2, dtype=np.int8)  # cutoff
+    code[be_on & ~bc_on] = 0
+    code[be_on & bc_on] = 1
+    code[~be_on & bc_on] = 3
+    return code

@@ -1,0 +1,149 @@
+"""One call, N boards: DC operating point, derived quantities and small signal.
+
+:func:`solve_batch` is the engine's single entry point; solve, fit, diagnose, trim, lot
+and capture all go through it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .. import devices
+from .circuit import Circuit, Parameters
+from .dc import DCState, _Batch, solve_dc
+from .small_signal import SmallSignal, analyse
+
+RO_INFINITE_OHMS = 1e15
+"""An output resistance above this is reported as infinite (null in JSON)."""
+
+
+@dataclass(frozen=True)
+class BatchSolution:
+    """Everything the engine computed, with a leading sample axis of length N.
+
+    Transistor currents are signed, into each terminal; ``vbe`` and ``vce`` are
+    V(b) − V(e) and V(c) − V(e) as measured (negative for a forward-active pnp).
+    ``region`` indexes :data:`reconcile.devices.REGIONS`.
+    """
+
+    circuit: Circuit
+    params: Parameters
+    state: DCState
+    node_v: np.ndarray  # (N, n_nodes)
+    ic: np.ndarray  # (N, nT)
+    ib: np.ndarray
+    ie: np.ndarray
+    vbe: np.ndarray
+    vce: np.ndarray
+    region: np.ndarray
+    gm: np.ndarray
+    rpi: np.ndarray
+    ro: np.ndarray
+    transistor_power: np.ndarray
+    supply_current: np.ndarray  # (N, nS) delivered into the board
+    resistor_current: np.ndarray  # (N, nR) from nodes[0] to nodes[1]
+    resistor_power: np.ndarray  # (N, nR)
+    kcl_residual: np.ndarray  # (N,) largest |KCL error| over free nodes, A
+    small_signal: SmallSignal | None
+
+    @property
+    def converged(self) -> np.ndarray:
+        return self.state.converged
+
+    @property
+    def n_samples(self) -> int:
+        return self.params.n_samples
+
+    def voltage(self, node: str) -> np.ndarray:
+        """V(node) for every sample (0 for gnd)."""
+        i = self.circuit.node_index(node)
+        if i == self.circuit.gnd:
+            return np.zeros(self.n_samples)
+        return self.node_v[:, i]
+
+    def quantity(self, name: str) -> np.ndarray:
+        """A small-signal quantity by name (gain, input_resistance, ...)."""
+        if self.small_signal is None:
+            raise KeyError("the board has no [signal] set-up")
+        return getattr(self.small_signal, name)
+
+
+def solve_batch(
+    circuit: Circuit,
+    params: Parameters,
+    initial: DCState | None = None,
+    *,
+    small_signal: bool = True,
+) -> BatchSolution:
+    """Solve every sample of ``params`` on ``circuit``."""
+    state = solve_dc(circuit, params, initial)
+    batch = _Batch(circuit, params)
+    all_idx = np.arange(params.n_samples)
+    v = state.v
+    vbe_n, vbc_n = batch.junctions(v)
+    jac_ff, rhs = batch.linear_system(all_idx, vbe_n, vbc_n)
+    # At the linearisation point the linear model is exact: KCL error = J·v − rhs.
+    kcl_free = np.einsum("nij,nj->ni", jac_ff, v[:, circuit.free]) - rhs
+    leaving_fixed = np.einsum("nij,nj->ni", batch.g_xall, v)  # (N, n_fixed) through branches
+
+    q = circuit.transistor_nodes
+    pol = circuit.polarity
+    n_t = q.shape[0]
+    if n_t:
+        st = batch.device_state(all_idx, vbe_n, vbc_n)
+        ic = pol * st.ic
+        ib = pol * st.ib
+        ie = -(ic + ib)
+        vc, vb, ve = v[:, q[:, 0]], v[:, q[:, 1]], v[:, q[:, 2]]
+        gm = st.dic_dvbe + st.dic_dvbc
+        with np.errstate(divide="ignore"):
+            rpi = 1.0 / (st.dib_dvbe + st.dib_dvbc)
+            ro = 1.0 / (-st.dic_dvbc)
+        ro = np.where(np.abs(ro) > RO_INFINITE_OHMS, np.inf, ro)
+        power = vc * ic + vb * ib + ve * ie
+        region = devices.region_codes(vbe_n, vbc_n)
+        vbe, vce = vb - ve, vc - ve
+        for t in range(n_t):
+            for k, current in enumerate((ic[:, t], ib[:, t], ie[:, t])):
+                x = batch.q_fixed[t, k]
+                if x >= 0:
+                    leaving_fixed[:, x] += current
+    else:
+        shape = (params.n_samples, 0)
+        ic = ib = ie = gm = rpi = ro = power = vbe = vce = np.zeros(shape)
+        region = np.zeros(shape, dtype=np.int8)
+
+    rn = circuit.resistor_nodes
+    dv = v[:, rn[:, 0]] - v[:, rn[:, 1]] if len(rn) else np.zeros((params.n_samples, 0))
+    i_r = dv / params.resistor_ohms
+    p_r = dv * i_r
+    supply_current = leaving_fixed[:, : len(circuit.supply_refs)]
+    kcl = np.max(np.abs(kcl_free), axis=1) if len(circuit.free) else np.zeros(params.n_samples)
+    ss = analyse(circuit, params, jac_ff) if small_signal else None
+    if ss is not None and not np.all(state.converged):
+        bad = ~state.converged
+        for name in ("gain", "gain_phase_deg", "source_gain", "input_resistance", "output_resistance"):
+            getattr(ss, name)[bad] = np.nan
+    return BatchSolution(
+        circuit=circuit,
+        params=params,
+        state=state,
+        node_v=v[:, : circuit.n_nodes].copy(),
+        ic=ic,
+        ib=ib,
+        ie=ie,
+        vbe=vbe,
+        vce=vce,
+        region=region,
+        gm=gm,
+        rpi=rpi,
+        ro=ro,
+        transistor_power=power,
+        supply_current=supply_current,
+        resistor_current=i_r,
+        resistor_power=p_r,
+        kcl_residual=kcl,
+        small_signal=ss,
+    )

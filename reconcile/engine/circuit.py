@@ -1,0 +1,232 @@
+"""A board compiled into index arrays, and the batch of parameter values it runs with.
+
+:class:`Circuit` is the topology: which node each part touches, as integer indices into
+the node list (gnd is the extra index ``n_nodes``). :class:`Parameters` holds every value
+the engine needs, each with a leading sample axis of length N, so that one call solves
+N variants of the same board (Monte Carlo, fit Jacobians, lots, fault hypotheses).
+
+Conductance branches, in this order: the resistors, one DC leak per capacitor (zero unless
+a fault shorts it) and the probes (a voltmeter attached across two nodes while a reading
+is taken). Supplies fix the voltage of their node; every other node is free.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field, fields, replace
+
+import numpy as np
+
+from ..board import GND, Board
+
+
+@dataclass(frozen=True)
+class Circuit:
+    """The topology of a board, ready for the engine."""
+
+    board: Board
+    node_names: tuple[str, ...]
+    resistor_refs: tuple[str, ...]
+    capacitor_refs: tuple[str, ...]
+    supply_refs: tuple[str, ...]
+    transistor_refs: tuple[str, ...]
+    resistor_nodes: np.ndarray  # (nR, 2)
+    capacitor_nodes: np.ndarray  # (nC, 2)
+    probe_nodes: np.ndarray  # (nP, 2)
+    supply_nodes: np.ndarray  # (nS,)
+    transistor_nodes: np.ndarray  # (nT, 3): c, b, e
+    polarity: np.ndarray  # (nT,) +1 npn, -1 pnp
+    free: np.ndarray  # (nF,) indices of free nodes
+    input_node: int | None
+    output_node: int | None
+
+    @property
+    def n_nodes(self) -> int:
+        return len(self.node_names)
+
+    @property
+    def gnd(self) -> int:
+        return len(self.node_names)
+
+    def node_index(self, name: str) -> int:
+        if name == GND or name == "0":
+            return self.gnd
+        return self.node_names.index(name)
+
+    @property
+    def branch_nodes(self) -> np.ndarray:
+        """(nB, 2) nodes of every conductance branch: resistors, capacitor leaks, probes."""
+        return np.concatenate(
+            [self.resistor_nodes, self.capacitor_nodes, self.probe_nodes], axis=0
+        ).astype(np.intp)
+
+    @property
+    def free_position(self) -> np.ndarray:
+        """For each node (and gnd), its row in the free-node system, or -1."""
+        pos = np.full(self.n_nodes + 1, -1, dtype=np.intp)
+        pos[self.free] = np.arange(len(self.free))
+        return pos
+
+
+def compile_board(board: Board, probes: tuple[tuple[str, str], ...] = ()) -> Circuit:
+    """Compile a board (plus optional voltmeter probes, as node pairs) into a Circuit."""
+    names = tuple(board.nodes)
+    for a, b in probes:
+        for n in (a, b):
+            if n not in names and n not in (GND, "0"):
+                raise KeyError(f"probe on unknown node {n!r}")
+    index = {name: i for i, name in enumerate(names)}
+    gnd = len(names)
+    index[GND] = gnd
+    index["0"] = gnd
+
+    def pair(nodes: tuple[str, str]) -> list[int]:
+        return [index[nodes[0]], index[nodes[1]]]
+
+    res_nodes = np.array([pair(r.nodes) for r in board.resistors.values()], dtype=np.intp).reshape(-1, 2)
+    cap_nodes = np.array([pair(c.nodes) for c in board.capacitors.values()], dtype=np.intp).reshape(-1, 2)
+    probe_nodes = np.array([pair(p) for p in probes], dtype=np.intp).reshape(-1, 2)
+    sup_nodes = np.array([index[s.node] for s in board.supplies.values()], dtype=np.intp)
+    q_nodes = np.array(
+        [[index[q.c], index[q.b], index[q.e]] for q in board.transistors.values()], dtype=np.intp
+    ).reshape(-1, 3)
+    polarity = np.array(
+        [1.0 if q.polarity == "npn" else -1.0 for q in board.transistors.values()], dtype=float
+    )
+    fixed = set(sup_nodes.tolist())
+    free = np.array([i for i in range(len(names)) if i not in fixed], dtype=np.intp)
+    sig = board.signal
+    return Circuit(
+        board=board,
+        node_names=names,
+        resistor_refs=tuple(board.resistors),
+        capacitor_refs=tuple(board.capacitors),
+        supply_refs=tuple(board.supplies),
+        transistor_refs=tuple(board.transistors),
+        resistor_nodes=res_nodes,
+        capacitor_nodes=cap_nodes,
+        probe_nodes=probe_nodes,
+        supply_nodes=sup_nodes,
+        transistor_nodes=q_nodes,
+        polarity=polarity,
+        free=free,
+        input_node=index[sig.input] if sig.input else None,
+        output_node=index[sig.output] if sig.output else None,
+    )
+
+
+@dataclass(frozen=True)
+class Parameters:
+    """Every value the engine uses, each with a leading sample axis of length N.
+
+    Units: ohms, farads, siemens, volts, amperes, kelvin, hertz. Device values are at
+    25 C; the engine scales IS and VT to ``temperature``.
+    """
+
+    resistor_ohms: np.ndarray  # (N, nR)
+    capacitor_farads: np.ndarray  # (N, nC)
+    capacitor_leak_siemens: np.ndarray  # (N, nC) DC conductance across a capacitor (faults)
+    probe_siemens: np.ndarray  # (N, nP)
+    supply_volts: np.ndarray  # (N, nS)
+    IS: np.ndarray  # (N, nT) A at 25 C
+    beta: np.ndarray  # (N, nT)
+    beta_r: np.ndarray  # (N, nT)
+    VA: np.ndarray  # (N, nT) V
+    n: np.ndarray  # (N, nT)
+    xti: np.ndarray  # (N, nT)
+    bandgap: np.ndarray  # (N, nT) eV
+    temperature: np.ndarray  # (N,) K, junction temperature
+    source_ohms: np.ndarray  # (N,)
+    load_ohms: np.ndarray  # (N,)
+    frequency: np.ndarray  # (N,) Hz
+    extra: dict = field(default_factory=dict, compare=False)
+
+    @property
+    def n_samples(self) -> int:
+        return int(self.temperature.shape[0])
+
+    def take(self, index: np.ndarray | slice) -> Parameters:
+        """The parameters of a subset of samples."""
+        return replace(
+            self,
+            **{f.name: getattr(self, f.name)[index] for f in fields(self) if f.name != "extra"},
+        )
+
+    def repeat(self, n: int) -> Parameters:
+        """Each sample repeated ``n`` times, consecutively (sample i -> rows i*n..i*n+n-1)."""
+        return replace(
+            self,
+            **{
+                f.name: np.repeat(getattr(self, f.name), n, axis=0)
+                for f in fields(self)
+                if f.name != "extra"
+            },
+        )
+
+    def with_values(self, **arrays: np.ndarray) -> Parameters:
+        """A copy with some fields replaced (broadcast to the sample axis)."""
+        out = {}
+        for name, value in arrays.items():
+            current = getattr(self, name)
+            out[name] = np.broadcast_to(np.asarray(value, dtype=float), current.shape).copy()
+        return replace(self, **out)
+
+    @staticmethod
+    def concatenate(items: list[Parameters]) -> Parameters:
+        first = items[0]
+        return replace(
+            first,
+            **{
+                f.name: np.concatenate([getattr(p, f.name) for p in items], axis=0)
+                for f in fields(first)
+                if f.name != "extra"
+            },
+        )
+
+
+def nominal_parameters(
+    circuit: Circuit,
+    n: int = 1,
+    *,
+    temperature: float | None = None,
+    probe_ohms: float | None = None,
+) -> Parameters:
+    """The board's drawn values repeated over ``n`` samples.
+
+    Probes are off (zero conductance) unless ``probe_ohms`` is given, in which case every
+    probe of the circuit is attached with that resistance.
+    """
+    board = circuit.board
+
+    def rows(values: list[float], width: int) -> np.ndarray:
+        arr = np.asarray(values, dtype=float).reshape(1, width)
+        return np.repeat(arr, n, axis=0)
+
+    nR, nC, nS, nT = (
+        len(circuit.resistor_refs),
+        len(circuit.capacitor_refs),
+        len(circuit.supply_refs),
+        len(circuit.transistor_refs),
+    )
+    devs = [board.device_of(ref) for ref in circuit.transistor_refs]
+    n_probe = len(circuit.probe_nodes)
+    probe_g = 0.0 if probe_ohms is None else 1.0 / probe_ohms
+    sig = board.signal
+    t = board.temperature if temperature is None else temperature
+    return Parameters(
+        resistor_ohms=rows([r.ohms for r in board.resistors.values()], nR),
+        capacitor_farads=rows([c.farads for c in board.capacitors.values()], nC),
+        capacitor_leak_siemens=np.zeros((n, nC)),
+        probe_siemens=np.full((n, n_probe), probe_g),
+        supply_volts=rows([s.volts for s in board.supplies.values()], nS),
+        IS=rows([d.IS.value for d in devs], nT),
+        beta=rows([d.beta.value for d in devs], nT),
+        beta_r=rows([d.beta_r.value for d in devs], nT),
+        VA=rows([d.VA.value for d in devs], nT),
+        n=rows([d.n.value for d in devs], nT),
+        xti=rows([d.is_temp_exponent for d in devs], nT),
+        bandgap=rows([d.bandgap for d in devs], nT),
+        temperature=np.full(n, float(t)),
+        source_ohms=np.full(n, float(sig.source_ohms)),
+        load_ohms=np.full(n, float(sig.load_ohms)),
+        frequency=np.full(n, float(sig.frequency)),
+    )
