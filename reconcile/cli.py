@@ -81,6 +81,64 @@ def solve(
     print_solution(sol)
 
 
+ReadingsArg = Annotated[
+    Optional[Path],  # noqa: UP045
+    typer.Argument(help="Readings file (CSV).", show_default=False),
+]
+PlotOpt = Annotated[
+    Optional[Path],  # noqa: UP045
+    typer.Option("--plot", help="Write a PNG plot to this file."),
+]
+
+
+def _readings_for(board_obj, readings_path: Path | None, command: str):
+    from .readings import load_readings
+
+    if readings_path is None:
+        raise InputError(f"{command} needs a READINGS file (or --session ID)")
+    return load_readings(readings_path, board_obj)
+
+
+@app.command()
+def fit(
+    board: BoardArg,
+    readings: ReadingsArg = None,
+    json: JsonOpt = False,
+    plot: PlotOpt = None,
+    meter_model: Annotated[
+        bool,
+        typer.Option(
+            "--meter-model/--no-meter-model",
+            help="Predict voltage readings with the voltmeter attached (default on).",
+        ),
+    ] = True,
+) -> None:
+    """Fit the built board to its readings: values, uncertainties, miss budget, next reading."""
+    from .analysis import run_fit
+
+    b, rd = _inputs(board, readings, "fit")
+    outcome = run_fit(b, rd, model_meter=meter_model)
+    if plot is not None:
+        from .plots_fit import plot_fit
+
+        plot_fit(outcome.fit, plot)
+    if json:
+        emit_json(outcome.to_dict())
+        return
+    from .render_fit import print_fit
+
+    print_fit(outcome.fit, outcome.budget, outcome.suggestions)
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
+
+
+def _inputs(board_path: Path, readings_path: Path | None, command: str):
+    from .board_loader import load_board
+
+    b = load_board(board_path)
+    return b, _readings_for(b, readings_path, command)
+
+
 @app.command()
 def demo(
     json: JsonOpt = False,
