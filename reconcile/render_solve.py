@@ -26,7 +26,7 @@ def solution_tables(sol: BoardSolution) -> Group:
     nodes.add_column("node")
     nodes.add_column("V", justify="right")
     for name, v in sol.nodes.items():
-        nodes.add_row(name, f"{v + 0.0:.4f}")
+        nodes.add_row(name, "no DC path" if v is None else f"{v:.4f}")
     parts.append(nodes)
 
     if sol.transistors:

@@ -70,9 +70,15 @@ class BoardSolution:
 
     # ----------------------------------------------------------------- values
     @property
-    def nodes(self) -> dict[str, float]:
+    def nodes(self) -> dict[str, float | None]:
+        """DC node voltages; None for a node with no DC path (reached only through
+        capacitors, as a signal input or output may be)."""
         i = self.index
-        return {n: float(self.batch.node_v[i, k]) for k, n in enumerate(self.batch.circuit.node_names)}
+        floating = set(self.batch.circuit.dc_floating.tolist())
+        return {
+            n: (None if k in floating else float(self.batch.node_v[i, k]) + 0.0)
+            for k, n in enumerate(self.batch.circuit.node_names)
+        }
 
     @property
     def transistors(self) -> dict[str, dict]:

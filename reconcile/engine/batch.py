@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import devices
-from .circuit import Circuit, Parameters
+from .circuit import FLOAT_SIEMENS, Circuit, Parameters
 from .dc import DCState, _Batch, solve_dc
 from .small_signal import SmallSignal, analyse
 
@@ -121,6 +121,9 @@ def solve_batch(
     p_r = dv * i_r
     supply_current = leaving_fixed[:, : len(circuit.supply_refs)]
     kcl = np.max(np.abs(kcl_free), axis=1) if len(circuit.free) else np.zeros(params.n_samples)
+    if len(batch.floating_rows):
+        # The DC tie of floating nodes is not part of the board's small-signal model.
+        jac_ff[:, batch.floating_rows, batch.floating_rows] -= FLOAT_SIEMENS
     ss = analyse(circuit, params, jac_ff) if small_signal else None
     if ss is not None and not np.all(state.converged):
         bad = ~state.converged

@@ -38,6 +38,11 @@ class Circuit:
     free: np.ndarray  # (nF,) indices of free nodes
     input_node: int | None
     output_node: int | None
+    dc_floating: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.intp))
+
+    # dc_floating: nodes with no DC path to gnd or a supply (reached only through
+    # capacitors, as a signal input or output may be). They have no DC voltage; the DC
+    # solve ties each to gnd through FLOAT_SIEMENS so its equations stay regular.
 
     @property
     def n_nodes(self) -> int:
@@ -65,6 +70,27 @@ class Circuit:
         pos = np.full(self.n_nodes + 1, -1, dtype=np.intp)
         pos[self.free] = np.arange(len(self.free))
         return pos
+
+
+FLOAT_SIEMENS = 1e-12
+
+
+def _dc_floating(n_nodes: int, edges: list[tuple[int, int]], gnd: int) -> np.ndarray:
+    """Nodes not joined to gnd by any DC path (union-find over DC edges)."""
+    parent = list(range(n_nodes + 1))
+
+    def find(i: int) -> int:
+        while parent[i] != i:
+            parent[i] = parent[parent[i]]
+            i = parent[i]
+        return i
+
+    for a, b in edges:
+        ra, rb = find(a), find(b)
+        if ra != rb:
+            parent[ra] = rb
+    root = find(gnd)
+    return np.array([i for i in range(n_nodes) if find(i) != root], dtype=np.intp)
 
 
 def compile_board(board: Board, probes: tuple[tuple[str, str], ...] = ()) -> Circuit:
@@ -95,6 +121,10 @@ def compile_board(board: Board, probes: tuple[tuple[str, str], ...] = ()) -> Cir
     fixed = set(sup_nodes.tolist())
     free = np.array([i for i in range(len(names)) if i not in fixed], dtype=np.intp)
     sig = board.signal
+    edges = [tuple(e) for e in res_nodes.tolist()] + [(int(n), gnd) for n in sup_nodes]
+    for c, b, e in q_nodes.tolist():
+        edges += [(c, b), (b, e)]
+    floating = _dc_floating(len(names), edges, gnd)
     return Circuit(
         board=board,
         node_names=names,
@@ -111,6 +141,7 @@ def compile_board(board: Board, probes: tuple[tuple[str, str], ...] = ()) -> Cir
         free=free,
         input_node=index[sig.input] if sig.input else None,
         output_node=index[sig.output] if sig.output else None,
+        dc_floating=floating,
     )
 
 

@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .. import devices
-from .circuit import Circuit, Parameters
+from .circuit import FLOAT_SIEMENS, Circuit, Parameters
 
 V_ABS_TOL = 1e-9
 V_REL_TOL = 1e-9
@@ -71,6 +71,9 @@ class _Batch:
         self.g_ff = np.einsum("bi,nb,bj->nij", inc_f, g, inc_f, optimize=True)
         self.g_fx = np.einsum("bi,nb,bj->nij", inc_f, g, inc_x, optimize=True)
         self.g_xall = np.einsum("bi,nb,bj->nij", inc_x, g, incidence, optimize=True)
+        self.floating_rows = circuit.free_position[circuit.dc_floating]
+        if len(self.floating_rows):
+            self.g_ff[:, self.floating_rows, self.floating_rows] += FLOAT_SIEMENS
         self.v_fixed = np.zeros((n, len(self.fixed)))
         self.v_fixed[:, : params.supply_volts.shape[1]] = params.supply_volts
         self.rhs_fixed = -np.einsum("nij,nj->ni", self.g_fx, self.v_fixed)
