@@ -1,0 +1,85 @@
+"""The command line: one JSON object on stdout, one-line errors with exit code 2."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+SAMPLES = ROOT / "sample_data"
+
+
+def run(*args: str, cwd: Path = ROOT) -> subprocess.CompletedProcess:
+    return subprocess.run(
+        [sys.executable, "-m", "reconcile.cli", *args],
+        capture_output=True,
+        text=True,
+        cwd=cwd,
+        timeout=120,
+    )
+
+
+@pytest.mark.parametrize("board", ["line_receiver_cb", "preamp_ce", "two_stage_npn_pnp"])
+def test_solve_json_is_one_object(board):
+    out = run("solve", str(SAMPLES / f"{board}.toml"), "--json")
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert set(data) >= {"nodes", "transistors", "supplies", "small_signal"}
+    assert out.stdout.count("\n") == 1
+    for q in data["transistors"].values():
+        assert q["region"] == "forward-active"
+
+
+def test_solve_human_output_has_tables():
+    out = run("solve", str(SAMPLES / "line_receiver_cb.toml"))
+    assert out.returncode == 0, out.stderr
+    assert "Node voltages" in out.stdout and "Small signal" in out.stdout
+
+
+def test_fit_json_contract_keys():
+    out = run(
+        "fit", str(SAMPLES / "line_receiver_cb.toml"), str(SAMPLES / "line_receiver_built.csv"), "--json"
+    )
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert {"parameters", "readings", "chi_square", "dof", "predicted"} <= set(data)
+    assert {"value", "stderr", "nominal", "unit", "informed_by"} <= set(data["parameters"]["R1"])
+    assert "Q1.IS" in data["parameters"] and "Q1.beta" in data["parameters"]
+    assert data["readings"][0].keys() >= {
+        "quantity", "at", "measured", "predicted", "uncertainty", "normalized_residual"
+    }
+
+
+def test_bad_board_is_one_line_exit_2(tmp_path):
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[supplies.VCC]\nnode = "vcc"\nvolts = "5"\n[resistors.R1]\nnodes = ["vcc", "b"]\nohms = "10 V"\n')
+    out = run("solve", str(bad))
+    assert out.returncode == 2
+    assert "Traceback" not in out.stderr
+    assert len(out.stderr.strip().splitlines()) == 1
+    assert "bad.toml" in out.stderr and "R1" in out.stderr
+
+
+def test_missing_file_is_exit_2():
+    out = run("solve", "no-such-board.toml")
+    assert out.returncode == 2
+    assert "no-such-board.toml" in out.stderr and "Traceback" not in out.stderr
+
+
+def test_bad_readings_row_names_line(tmp_path):
+    bad = tmp_path / "r.csv"
+    bad.write_text("quantity,at,value,unit\nvoltage,b,1.2,V\nvoltage,b,abc,V\n")
+    out = run("fit", str(SAMPLES / "line_receiver_cb.toml"), str(bad))
+    assert out.returncode == 2
+    assert "r.csv:3" in out.stderr and "Traceback" not in out.stderr
+
+
+def test_demo_json(tmp_path):
+    out = run("demo", "--json", "--out", str(tmp_path / "demo"), cwd=ROOT)
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert "cautions" in data
