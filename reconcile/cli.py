@@ -30,6 +30,15 @@ app = typer.Typer(
 
 _state = {"debug": False}
 
+
+def _register_subcommands() -> None:
+    from .cli_session import session_app
+
+    app.add_typer(session_app, name="session")
+
+
+_register_subcommands()
+
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print exactly one JSON object on stdout.")]
 BoardArg = Annotated[Path, typer.Argument(help="Board file (TOML).", show_default=False)]
 
@@ -91,17 +100,23 @@ PlotOpt = Annotated[
 ]
 
 
-def _readings_for(board_obj, readings_path: Path | None, command: str):
-    from .readings import load_readings
-
-    if readings_path is None:
-        raise InputError(f"{command} needs a READINGS file (or --session ID)")
-    return load_readings(readings_path, board_obj)
+SessionOpt = Annotated[
+    Optional[str],  # noqa: UP045
+    typer.Option("--session", help="Analyse a stored session (and record the result with it)."),
+]
+StoreOpt = Annotated[
+    Optional[str],  # noqa: UP045
+    typer.Option("--store", help="Store file path or database URL (default: your data folder)."),
+]
+BoardOptArg = Annotated[
+    Optional[Path],  # noqa: UP045
+    typer.Argument(help="Board file (TOML); not needed with --session.", show_default=False),
+]
 
 
 @app.command()
 def fit(
-    board: BoardArg,
+    board: BoardOptArg = None,
     readings: ReadingsArg = None,
     json: JsonOpt = False,
     plot: PlotOpt = None,
@@ -112,31 +127,76 @@ def fit(
             help="Predict voltage readings with the voltmeter attached (default on).",
         ),
     ] = True,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
 ) -> None:
     """Fit the built board to its readings: values, uncertainties, miss budget, next reading."""
     from .analysis import run_fit
 
-    b, rd = _inputs(board, readings, "fit")
-    outcome = run_fit(b, rd, model_meter=meter_model)
+    inputs = AnalysisInputs.gather(board, readings, session, store, "fit")
+    outcome = run_fit(inputs.board, inputs.readings, model_meter=meter_model)
+    result = outcome.to_dict()
+    recorded = inputs.record("fit", result)
     if plot is not None:
         from .plots_fit import plot_fit
 
         plot_fit(outcome.fit, plot)
     if json:
-        emit_json(outcome.to_dict())
+        if recorded:
+            result["recorded"] = recorded
+        emit_json(result)
         return
     from .render_fit import print_fit
 
     print_fit(outcome.fit, outcome.budget, outcome.suggestions)
     if plot is not None:
         typer.echo(f"plot written to {plot}")
+    if recorded:
+        typer.echo(f"recorded with session {recorded['session']} as analysis {recorded['analysis']}")
 
 
-def _inputs(board_path: Path, readings_path: Path | None, command: str):
-    from .board_loader import load_board
+class AnalysisInputs:
+    """A board and readings from files or from a stored session, and where to record."""
 
-    b = load_board(board_path)
-    return b, _readings_for(b, readings_path, command)
+    def __init__(self, board, readings, session, store, digest) -> None:
+        self.board = board
+        self.readings = readings
+        self.session = session
+        self.store = store
+        self.digest = digest
+
+    @classmethod
+    def gather(cls, board_path, readings_path, session, store, command: str, *, readings_optional=False):
+        if session is not None:
+            from .session_commands import analysis_inputs
+
+            if readings_path is not None:
+                raise InputError(f"{command}: give either READINGS or --session, not both")
+            b, rd, digest = analysis_inputs(session, store=store)
+            if board_path is not None:
+                from .board_loader import load_board
+
+                b = load_board(board_path)
+            return cls(b, rd, session, store, digest)
+        if board_path is None:
+            raise InputError(f"{command} needs a BOARD file (or --session ID)")
+        from .board_loader import load_board
+
+        b = load_board(board_path)
+        if readings_path is None:
+            if readings_optional:
+                return cls(b, None, None, None, None)
+            raise InputError(f"{command} needs a READINGS file (or --session ID)")
+        from .readings import load_readings
+
+        return cls(b, load_readings(readings_path, b), None, None, None)
+
+    def record(self, kind: str, result: dict) -> dict | None:
+        if self.session is None:
+            return None
+        from .session_commands import record_analysis
+
+        return record_analysis(self.session, kind, result, inputs_sha256=self.digest, store=self.store)
 
 
 @app.command()

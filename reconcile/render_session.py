@@ -1,0 +1,54 @@
+"""Rich tables for the session store's list and show."""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.table import Table
+
+
+def print_session_list(data: dict, console: Console | None = None) -> None:
+    console = console or Console()
+    t = Table(title=f"Sessions in {data['store']}", title_justify="left")
+    for col in ("session", "board", "serial", "operator", "started", "ended", "readings", "analyses"):
+        t.add_column(col, justify="right" if col in ("readings", "analyses") else "left")
+    for s in data["sessions"]:
+        t.add_row(
+            s.get("session", ""),
+            str(s.get("board_title", "")),
+            str(s.get("serial", "")),
+            str(s.get("operator", "")),
+            str(s.get("started", "")),
+            str(s.get("ended") or "-"),
+            str(s.get("readings", "")),
+            str(s.get("analyses", "")),
+        )
+    console.print(t)
+
+
+def print_session(data: dict, console: Console | None = None) -> None:
+    console = console or Console()
+    meta = {k: v for k, v in data.items() if not isinstance(v, list | dict)}
+    head = Table(show_header=False, title="Session", title_justify="left")
+    head.add_column("key")
+    head.add_column("value")
+    for k, v in meta.items():
+        head.add_row(str(k), str(v))
+    console.print(head)
+    readings = data.get("readings") or []
+    if readings:
+        t = Table(title="Current readings", title_justify="left")
+        cols = [c for c in ("id", "quantity", "at", "value", "uncertainty", "instrument", "taken_at", "note") if c in readings[0]]
+        for c in cols:
+            t.add_column(c + (" (SI)" if c in ("value", "uncertainty") else ""))
+        for r in readings:
+            t.add_row(*(str(r.get(c, "") if r.get(c) is not None else "") for c in cols))
+        console.print(t)
+    analyses = data.get("analyses") or []
+    if analyses:
+        t = Table(title="Analyses recorded", title_justify="left")
+        cols = list(analyses[0].keys())
+        for c in cols:
+            t.add_column(c)
+        for a in analyses:
+            t.add_row(*(str(a.get(c, "")) for c in cols))
+        console.print(t)
