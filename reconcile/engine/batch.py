@@ -98,7 +98,8 @@ def solve_batch(
         ie = -(ic + ib)
         vc, vb, ve = v[:, q[:, 0]], v[:, q[:, 1]], v[:, q[:, 2]]
         gm = st.dic_dvbe + st.dic_dvbc
-        with np.errstate(divide="ignore"):
+        # over: a subnormal conductance (deep reverse bias, VA = inf) overflows to inf
+        with np.errstate(divide="ignore", over="ignore"):
             rpi = 1.0 / (st.dib_dvbe + st.dib_dvbc)
             ro = 1.0 / (-st.dic_dvbc)
         ro = np.where(np.abs(ro) > RO_INFINITE_OHMS, np.inf, ro)
