@@ -152,7 +152,9 @@ def fit(
     if plot is not None:
         typer.echo(f"plot written to {plot}")
     if recorded:
-        typer.echo(f"recorded with session {recorded['session']} as analysis {recorded['analysis']}")
+        typer.echo(
+            f"recorded with session {recorded['session']} as analysis {recorded['analysis']}"
+        )
 
 
 class AnalysisInputs:
@@ -166,7 +168,9 @@ class AnalysisInputs:
         self.digest = digest
 
     @classmethod
-    def gather(cls, board_path, readings_path, session, store, command: str, *, readings_optional=False):
+    def gather(
+        cls, board_path, readings_path, session, store, command: str, *, readings_optional=False
+    ):
         if session is not None:
             from .session_commands import analysis_inputs
 
@@ -196,7 +200,9 @@ class AnalysisInputs:
             return None
         from .session_commands import record_analysis
 
-        return record_analysis(self.session, kind, result, inputs_sha256=self.digest, store=self.store)
+        return record_analysis(
+            self.session, kind, result, inputs_sha256=self.digest, store=self.store
+        )
 
 
 @app.command()
@@ -204,7 +210,9 @@ def demo(
     json: JsonOpt = False,
     out: Annotated[
         Optional[Path],  # noqa: UP045
-        typer.Option(help="Folder for everything the demo writes (default: ./reconcile-demo-output)."),
+        typer.Option(
+            help="Folder for everything the demo writes (default: ./reconcile-demo-output)."
+        ),
     ] = None,
 ) -> None:
     """Run the bench story on the bundled sample boards (invented examples)."""

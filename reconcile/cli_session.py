@@ -165,6 +165,12 @@ def session_export(
     if output is not None:
         output.write_text(text, encoding="utf-8")
     if json:
-        _emit({"session": session.strip().upper(), "csv": text, "output": str(output) if output else None})
+        _emit(
+            {
+                "session": session.strip().upper(),
+                "csv": text,
+                "output": str(output) if output else None,
+            }
+        )
     elif output is None:
         sys.stdout.write(text)

@@ -27,7 +27,11 @@ CAUTIONS = (
 def sample_data_dir() -> Path:
     """The bundled sample_data folder (the working directory's, else the source tree's)."""
     here = Path(__file__).resolve().parent
-    for candidate in (Path.cwd() / "sample_data", here.parent / "sample_data", here / "sample_data"):
+    for candidate in (
+        Path.cwd() / "sample_data",
+        here.parent / "sample_data",
+        here / "sample_data",
+    ):
         if (candidate / DESIGN_BOARD).is_file():
             return candidate
     from .errors import InputError

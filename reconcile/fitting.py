@@ -199,7 +199,9 @@ def fit_board(
     obs = observations_from(readings)
     if space is None:
         ambient, ambient_u = ambient_from(readings)
-        space = build_space(compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u, fixed=fixed)
+        space = build_space(
+            compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u, fixed=fixed
+        )
     model = MeasurementModel(board, obs, space, model_meter=model_meter)
     space = model.space
     meas = model.measured

@@ -31,8 +31,16 @@ from .engine import BatchSolution, DCState, compile_board, nominal_parameters, s
 from .priors import ParameterSpace, build_space
 from .readings import Reading, standard_uncertainty
 
-PREDICTED = ("voltage", "current", "gain", "input_resistance", "output_resistance",
-             "source_gain", "resistance", "capacitance")
+PREDICTED = (
+    "voltage",
+    "current",
+    "gain",
+    "input_resistance",
+    "output_resistance",
+    "source_gain",
+    "resistance",
+    "capacitance",
+)
 SMALL_SIGNAL = ("gain", "input_resistance", "output_resistance", "source_gain")
 
 

@@ -84,7 +84,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
     c = fit.covariance
     h = jac[: len(cands)]
     if goal_obs:
-        g = jac[len(cands):]
+        g = jac[len(cands) :]
         goal_names = targets
     else:  # no spec: every parameter counts
         g = np.eye(fit.space.size)
@@ -105,18 +105,31 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
         score = float(np.mean(1.0 - sd_after / sd_g))
         out.append(
             Suggestion(
-                q, at, u, score,
-                {n: float(v) for n, v in zip(goal_names, _external_sd(fit, goal_obs, sd_g), strict=True)},
-                {n: float(v) for n, v in zip(goal_names, _external_sd(fit, goal_obs, sd_after), strict=True)},
+                q,
+                at,
+                u,
+                score,
+                {
+                    n: float(v)
+                    for n, v in zip(goal_names, _external_sd(fit, goal_obs, sd_g), strict=True)
+                },
+                {
+                    n: float(v)
+                    for n, v in zip(goal_names, _external_sd(fit, goal_obs, sd_after), strict=True)
+                },
             )
         )
     out.sort(key=lambda s: -s.score)
     return out[:top]
 
 
-def _external_sd(fit: FitResult, goal_obs: list[Observation], sd_internal: np.ndarray) -> np.ndarray:
+def _external_sd(
+    fit: FitResult, goal_obs: list[Observation], sd_internal: np.ndarray
+) -> np.ndarray:
     """Goal standard deviations in external units (spec quantities already are)."""
     if goal_obs:
         return sd_internal
-    slopes = np.array([p.external_slope(x) for p, x in zip(fit.space.parameters, fit.x, strict=True)])
+    slopes = np.array(
+        [p.external_slope(x) for p, x in zip(fit.space.parameters, fit.x, strict=True)]
+    )
     return np.abs(slopes) * sd_internal

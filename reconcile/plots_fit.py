@@ -30,12 +30,12 @@ def plot_fit(fit: FitResult, path: str | Path) -> Path:
     labels = [f"{r.quantity} {r.at}".strip() for r in readings]
     y = np.arange(len(readings))
     rel = [
-        (r.measured - r.predicted) / abs(r.predicted) * 100 if r.predicted else 0.0 for r in readings
+        (r.measured - r.predicted) / abs(r.predicted) * 100 if r.predicted else 0.0
+        for r in readings
     ]
     err = [r.uncertainty / abs(r.predicted) * 100 if r.predicted else 0.0 for r in readings]
     ax1.axvline(0.0, color=COLOUR_FIT, lw=1.5, label="fitted board")
-    ax1.errorbar(rel, y, xerr=err, fmt="o", color=COLOUR_MEASURED, capsize=3,
-                 label="measured ± u")
+    ax1.errorbar(rel, y, xerr=err, fmt="o", color=COLOUR_MEASURED, capsize=3, label="measured ± u")
     ax1.set_yticks(y, labels)
     ax1.invert_yaxis()
     ax1.set_xlabel("(measured − predicted) / predicted  [%]")

@@ -199,9 +199,19 @@ def build_space(
         sd = max(r.tolerance, 1e-4) / math.sqrt(3.0)
         add(
             FreeParameter(
-                ref, "resistor", ref, col, "log", math.log(r.ohms), math.log1p(sd),
-                math.log(r.ohms / PART_BOUND_FACTOR), math.log(r.ohms * PART_BOUND_FACTOR),
-                r.ohms, "ohm", r.ohms * (1 - r.tolerance), r.ohms * (1 + r.tolerance),
+                ref,
+                "resistor",
+                ref,
+                col,
+                "log",
+                math.log(r.ohms),
+                math.log1p(sd),
+                math.log(r.ohms / PART_BOUND_FACTOR),
+                math.log(r.ohms * PART_BOUND_FACTOR),
+                r.ohms,
+                "ohm",
+                r.ohms * (1 - r.tolerance),
+                r.ohms * (1 + r.tolerance),
             )
         )
     for col, ref in enumerate(circuit.capacitor_refs):
@@ -209,9 +219,19 @@ def build_space(
         sd = max(c.tolerance, 1e-4) / math.sqrt(3.0)
         add(
             FreeParameter(
-                ref, "capacitor", ref, col, "log", math.log(c.farads), math.log1p(sd),
-                math.log(c.farads / PART_BOUND_FACTOR), math.log(c.farads * PART_BOUND_FACTOR),
-                c.farads, "F", c.farads * (1 - c.tolerance), c.farads * (1 + c.tolerance),
+                ref,
+                "capacitor",
+                ref,
+                col,
+                "log",
+                math.log(c.farads),
+                math.log1p(sd),
+                math.log(c.farads / PART_BOUND_FACTOR),
+                math.log(c.farads * PART_BOUND_FACTOR),
+                c.farads,
+                "F",
+                c.farads * (1 - c.tolerance),
+                c.farads * (1 + c.tolerance),
             )
         )
     for col, ref in enumerate(circuit.supply_refs):
@@ -220,8 +240,19 @@ def build_space(
         half = 0.5 * abs(s.volts)
         add(
             FreeParameter(
-                ref, "supply", ref, col, "linear", s.volts, sd, s.volts - half, s.volts + half,
-                s.volts, "V", s.volts - s.tolerance * abs(s.volts), s.volts + s.tolerance * abs(s.volts),
+                ref,
+                "supply",
+                ref,
+                col,
+                "linear",
+                s.volts,
+                sd,
+                s.volts - half,
+                s.volts + half,
+                s.volts,
+                "V",
+                s.volts - s.tolerance * abs(s.volts),
+                s.volts + s.tolerance * abs(s.volts),
             )
         )
     for col, ref in enumerate(circuit.transistor_refs):
@@ -231,32 +262,75 @@ def build_space(
         hi = (d.IS.high or d.IS.value * 10) * 100
         add(
             FreeParameter(
-                f"{ref}.IS", "IS", ref, col, "log10", math.log10(d.IS.value), is_sd,
-                math.log10(lo), math.log10(hi), d.IS.value, "A", d.IS.low, d.IS.high,
+                f"{ref}.IS",
+                "IS",
+                ref,
+                col,
+                "log10",
+                math.log10(d.IS.value),
+                is_sd,
+                math.log10(lo),
+                math.log10(hi),
+                d.IS.value,
+                "A",
+                d.IS.low,
+                d.IS.high,
             )
         )
         b_sd = _range_sd(d.beta.value, d.beta.low, d.beta.high, math.log) or DEFAULT_LN_BETA_SD
         add(
             FreeParameter(
-                f"{ref}.beta", "beta", ref, col, "log", math.log(d.beta.value), b_sd,
-                0.0, math.log(1e5), d.beta.value, "", d.beta.low, d.beta.high,
+                f"{ref}.beta",
+                "beta",
+                ref,
+                col,
+                "log",
+                math.log(d.beta.value),
+                b_sd,
+                0.0,
+                math.log(1e5),
+                d.beta.value,
+                "",
+                d.beta.low,
+                d.beta.high,
             )
         )
         if d.VA.has_range and math.isfinite(d.VA.value):
             va_sd = _range_sd(d.VA.value, d.VA.low, d.VA.high, math.log)
             add(
                 FreeParameter(
-                    f"{ref}.VA", "VA", ref, col, "log", math.log(d.VA.value), va_sd,
-                    math.log(d.VA.low / 10), math.log(d.VA.high * 10), d.VA.value, "V",
-                    d.VA.low, d.VA.high,
+                    f"{ref}.VA",
+                    "VA",
+                    ref,
+                    col,
+                    "log",
+                    math.log(d.VA.value),
+                    va_sd,
+                    math.log(d.VA.low / 10),
+                    math.log(d.VA.high * 10),
+                    d.VA.value,
+                    "V",
+                    d.VA.low,
+                    d.VA.high,
                 )
             )
         if d.n.has_range:
             n_sd = _range_sd(d.n.value, d.n.low, d.n.high, float)
             add(
                 FreeParameter(
-                    f"{ref}.n", "n", ref, col, "linear", d.n.value, n_sd, 0.5, 3.0, d.n.value, "",
-                    d.n.low, d.n.high,
+                    f"{ref}.n",
+                    "n",
+                    ref,
+                    col,
+                    "linear",
+                    d.n.value,
+                    n_sd,
+                    0.5,
+                    3.0,
+                    d.n.value,
+                    "",
+                    d.n.low,
+                    d.n.high,
                 )
             )
     t0 = board.temperature if ambient_k is None else ambient_k
@@ -264,8 +338,17 @@ def build_space(
     if circuit.transistor_refs:
         add(
             FreeParameter(
-                "temperature", "temperature", "", 0, "linear", t0, t_sd, 213.15, 473.15,
-                board.temperature, "K",
+                "temperature",
+                "temperature",
+                "",
+                0,
+                "linear",
+                t0,
+                t_sd,
+                213.15,
+                473.15,
+                board.temperature,
+                "K",
             )
         )
     return ParameterSpace(circuit=circuit, parameters=tuple(out))

@@ -61,7 +61,15 @@ def parameters_table(fit: FitResult) -> Table:
         else:
             status = f"[{BAD}]OUT[/]"
         src = "readings" if e.informed_by == "readings" else f"[{DIM}]prior[/]"
-        t.add_row(key.replace("temperature", "T junction"), _fmt(e.nominal, e.unit), _fmt(e.value, e.unit), sd, band, status, src)
+        t.add_row(
+            key.replace("temperature", "T junction"),
+            _fmt(e.nominal, e.unit),
+            _fmt(e.value, e.unit),
+            sd,
+            band,
+            status,
+            src,
+        )
     return t
 
 
@@ -77,7 +85,9 @@ def readings_table(fit: FitResult) -> Table:
             z = f"[{BAD}]{z} suspect[/]"
         elif abs(r.normalized_residual) > 2:
             z = f"[{WARN}]{z}[/]"
-        t.add_row(label, _fmt(r.measured, unit), _fmt(r.predicted, unit), _fmt(r.uncertainty, unit), z)
+        t.add_row(
+            label, _fmt(r.measured, unit), _fmt(r.predicted, unit), _fmt(r.uncertainty, unit), z
+        )
     return t
 
 
@@ -86,7 +96,7 @@ def verdict_line(fit: FitResult) -> str:
     text = {
         "consistent": "the model explains the readings",
         "doubtful": "the model explains the readings only marginally",
-        "inconsistent": "the model does NOT explain the readings (a fault? try `reconcile diagnose`)",
+        "inconsistent": "the model does NOT explain the readings (a fault? see diagnose)",
         "not-converged": "the fit did not converge",
     }[fit.verdict]
     return (
@@ -96,7 +106,9 @@ def verdict_line(fit: FitResult) -> str:
 
 
 def budget_table(budget: MissBudget) -> Table:
-    t = Table(title="Miss budget: where the difference from the spec comes from", title_justify="left")
+    t = Table(
+        title="Miss budget: where the difference from the spec comes from", title_justify="left"
+    )
     for col in ("quantity", "target", "fitted", "miss", "design", *GROUPS):
         t.add_column(col, justify="left" if col == "quantity" else "right")
     for name, q in budget.quantities.items():
@@ -113,11 +125,11 @@ def budget_table(budget: MissBudget) -> Table:
 def next_table(suggestions: list[Suggestion]) -> Table:
     t = Table(title="Next most useful readings", title_justify="left")
     for col in ("#", "reading", "expected reduction", "uncertainty after (before)"):
-        t.add_column(col, justify="left" if col in ("reading", "uncertainty after (before)") else "right")
-    for i, s in enumerate(suggestions, 1):
-        detail = ", ".join(
-            f"{k}: ±{s.after[k]:.3g} ({s.before[k]:.3g})" for k in list(s.after)[:3]
+        t.add_column(
+            col, justify="left" if col in ("reading", "uncertainty after (before)") else "right"
         )
+    for i, s in enumerate(suggestions, 1):
+        detail = ", ".join(f"{k}: ±{s.after[k]:.3g} ({s.before[k]:.3g})" for k in list(s.after)[:3])
         t.add_row(str(i), s.label, f"{100 * s.score:.1f}%", detail)
     return t
 

@@ -9,7 +9,16 @@ from rich.table import Table
 def print_session_list(data: dict, console: Console | None = None) -> None:
     console = console or Console()
     t = Table(title=f"Sessions in {data['store']}", title_justify="left")
-    for col in ("session", "board", "serial", "operator", "started", "ended", "readings", "analyses"):
+    for col in (
+        "session",
+        "board",
+        "serial",
+        "operator",
+        "started",
+        "ended",
+        "readings",
+        "analyses",
+    ):
         t.add_column(col, justify="right" if col in ("readings", "analyses") else "left")
     for s in data["sessions"]:
         t.add_row(
@@ -37,7 +46,20 @@ def print_session(data: dict, console: Console | None = None) -> None:
     readings = data.get("readings") or []
     if readings:
         t = Table(title="Current readings", title_justify="left")
-        cols = [c for c in ("id", "quantity", "at", "value", "uncertainty", "instrument", "taken_at", "note") if c in readings[0]]
+        cols = [
+            c
+            for c in (
+                "id",
+                "quantity",
+                "at",
+                "value",
+                "uncertainty",
+                "instrument",
+                "taken_at",
+                "note",
+            )
+            if c in readings[0]
+        ]
         for c in cols:
             t.add_column(c + (" (SI)" if c in ("value", "uncertainty") else ""))
         for r in readings:

@@ -42,7 +42,9 @@ def solution_tables(sol: BoardSolution) -> Group:
         row("polarity", lambda t: t["polarity"])
         row(
             "region",
-            lambda t: f"[{STYLE_OK if t['region'] == 'forward-active' else STYLE_BAD}]{t['region']}[/]",
+            lambda t: (
+                f"[{STYLE_OK if t['region'] == 'forward-active' else STYLE_BAD}]{t['region']}[/]"
+            ),
         )
         row("IC", lambda t: _si(t["ic"], "A"))
         row("IB", lambda t: _si(t["ib"], "A"))
@@ -71,7 +73,9 @@ def solution_tables(sol: BoardSolution) -> Group:
             ref,
             _si(res["ohms"], "Ω"),
             _si(res["current"], "A"),
-            f"[{STYLE_BAD if over else ''}]{_si(res['power'], 'W')}[/]" if over else _si(res["power"], "W"),
+            f"[{STYLE_BAD if over else ''}]{_si(res['power'], 'W')}[/]"
+            if over
+            else _si(res["power"], "W"),
             _si(rating, "W") if rating is not None else "-",
         )
     parts.append(r)

@@ -28,7 +28,9 @@ UNITS = {
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
     """Every node voltage, every supply current and (with [signal]) gain and input
     resistance: what a careful engineer reads first."""
-    plan = [("voltage", n) for n in board.nodes if n not in (board.signal.input, board.signal.output)]
+    plan = [
+        ("voltage", n) for n in board.nodes if n not in (board.signal.input, board.signal.output)
+    ]
     plan += [("current", ref) for ref in board.supplies]
     if small_signal and board.signal.input and board.signal.output:
         plan += [("gain", ""), ("input_resistance", "")]
@@ -52,7 +54,9 @@ def simulate_readings(
     """
     obs = [Observation(q, at, 0.0, 1.0) for q, at in plan if q != "temperature"]
     model = MeasurementModel(true_board, obs)
-    params = model.parameters(np.zeros((1, 0)) if model.space.size == 0 else model.space.prior_mean[None, :])
+    params = model.parameters(
+        np.zeros((1, 0)) if model.space.size == 0 else model.space.prior_mean[None, :]
+    )
     if temperature is not None:
         params = params.with_values(temperature=np.full(params.n_samples, temperature))
     from .engine import solve_batch

@@ -16,7 +16,13 @@ from .board import Board
 from .engine import BatchSolution, compile_board, nominal_parameters, solve_batch
 from .errors import SolveError
 
-SMALL_SIGNAL_KEYS = ("gain", "gain_phase_deg", "source_gain", "input_resistance", "output_resistance")
+SMALL_SIGNAL_KEYS = (
+    "gain",
+    "gain_phase_deg",
+    "source_gain",
+    "input_resistance",
+    "output_resistance",
+)
 
 
 @dataclass(frozen=True)
@@ -104,7 +110,10 @@ class BoardSolution:
     def supplies(self) -> dict[str, dict]:
         b, i = self.batch, self.index
         return {
-            ref: {"volts": float(b.params.supply_volts[i, k]), "current": float(b.supply_current[i, k])}
+            ref: {
+                "volts": float(b.params.supply_volts[i, k]),
+                "current": float(b.supply_current[i, k]),
+            }
             for k, ref in enumerate(b.circuit.supply_refs)
         }
 
@@ -213,5 +222,7 @@ def solve(board: Board, *, temperature: float | None = None) -> BoardSolution:
     batch = solve_batch(circuit, params)
     if not bool(np.all(batch.converged)):
         where = board.source_path or board.title or "board"
-        raise SolveError(f"{where}: no DC operating point found (Newton, gmin and source stepping all failed)")
+        raise SolveError(
+            f"{where}: no DC operating point found (Newton, gmin and source stepping all failed)"
+        )
     return BoardSolution(board=board, batch=batch, warnings=board_warnings(board, batch))

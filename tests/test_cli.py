@@ -42,7 +42,10 @@ def test_solve_human_output_has_tables():
 
 def test_fit_json_contract_keys():
     out = run(
-        "fit", str(SAMPLES / "line_receiver_cb.toml"), str(SAMPLES / "line_receiver_built.csv"), "--json"
+        "fit",
+        str(SAMPLES / "line_receiver_cb.toml"),
+        str(SAMPLES / "line_receiver_built.csv"),
+        "--json",
     )
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
@@ -50,13 +53,21 @@ def test_fit_json_contract_keys():
     assert {"value", "stderr", "nominal", "unit", "informed_by"} <= set(data["parameters"]["R1"])
     assert "Q1.IS" in data["parameters"] and "Q1.beta" in data["parameters"]
     assert data["readings"][0].keys() >= {
-        "quantity", "at", "measured", "predicted", "uncertainty", "normalized_residual"
+        "quantity",
+        "at",
+        "measured",
+        "predicted",
+        "uncertainty",
+        "normalized_residual",
     }
 
 
 def test_bad_board_is_one_line_exit_2(tmp_path):
     bad = tmp_path / "bad.toml"
-    bad.write_text('[supplies.VCC]\nnode = "vcc"\nvolts = "5"\n[resistors.R1]\nnodes = ["vcc", "b"]\nohms = "10 V"\n')
+    bad.write_text(
+        '[supplies.VCC]\nnode = "vcc"\nvolts = "5"\n'
+        '[resistors.R1]\nnodes = ["vcc", "b"]\nohms = "10 V"\n'
+    )
     out = run("solve", str(bad))
     assert out.returncode == 2
     assert "Traceback" not in out.stderr

@@ -14,23 +14,37 @@ SAMPLES = ROOT / "sample_data"
 def run(*args: str, store: Path) -> subprocess.CompletedProcess:
     return subprocess.run(
         [sys.executable, "-m", "reconcile.cli", *args, "--store", str(store)],
-        capture_output=True, text=True, cwd=ROOT, timeout=120,
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=120,
     )
 
 
 def test_session_round_trip_and_fit_from_session_equals_fit_from_file(tmp_path):
     store = tmp_path / "s.sqlite"
-    new = run("session", "new", str(SAMPLES / "line_receiver_cb.toml"), "--serial", "LR-0042", "--json", store=store)
+    new = run(
+        "session",
+        "new",
+        str(SAMPLES / "line_receiver_cb.toml"),
+        "--serial",
+        "LR-0042",
+        "--json",
+        store=store,
+    )
     assert new.returncode == 0, new.stderr
     sid = json.loads(new.stdout)["session"]
-    add = run("session", "add", sid, str(SAMPLES / "line_receiver_built.csv"), "--json", store=store)
+    add = run(
+        "session", "add", sid, str(SAMPLES / "line_receiver_built.csv"), "--json", store=store
+    )
     assert add.returncode == 0, add.stderr
     assert json.loads(add.stdout)["added"] == 8
 
     exported = run("session", "export", sid, store=store)
     assert exported.returncode == 0
     original = [
-        line for line in (SAMPLES / "line_receiver_built.csv").read_text().splitlines()
+        line
+        for line in (SAMPLES / "line_receiver_built.csv").read_text().splitlines()
         if not line.startswith("#")
     ]
     assert exported.stdout.splitlines() == original
@@ -38,9 +52,19 @@ def test_session_round_trip_and_fit_from_session_equals_fit_from_file(tmp_path):
     from_session = run("fit", "--session", sid, "--json", store=store)
     assert from_session.returncode == 0, from_session.stderr
     from_file = subprocess.run(
-        [sys.executable, "-m", "reconcile.cli", "fit", str(SAMPLES / "line_receiver_cb.toml"),
-         str(SAMPLES / "line_receiver_built.csv"), "--json"],
-        capture_output=True, text=True, cwd=ROOT, timeout=120,
+        [
+            sys.executable,
+            "-m",
+            "reconcile.cli",
+            "fit",
+            str(SAMPLES / "line_receiver_cb.toml"),
+            str(SAMPLES / "line_receiver_built.csv"),
+            "--json",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=120,
     )
     a, b = json.loads(from_session.stdout), json.loads(from_file.stdout)
     assert a.pop("recorded")["session"] == sid

@@ -78,8 +78,8 @@ def solve_batch(
     small_signal: bool = True,
 ) -> BatchSolution:
     """Solve every sample of ``params`` on ``circuit``."""
-    state = solve_dc(circuit, params, initial)
     batch = _Batch(circuit, params)
+    state = solve_dc(circuit, params, initial, batch=batch)
     all_idx = np.arange(params.n_samples)
     v = state.v
     vbe_n, vbc_n = batch.junctions(v)
@@ -128,7 +128,7 @@ def solve_batch(
     ss = analyse(circuit, params, jac_ff) if small_signal else None
     if ss is not None and not np.all(state.converged):
         bad = ~state.converged
-        for name in ("gain", "gain_phase_deg", "source_gain", "input_resistance", "output_resistance"):
+        for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
             getattr(ss, name)[bad] = np.nan
     return BatchSolution(
         circuit=circuit,

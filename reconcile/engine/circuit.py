@@ -108,8 +108,12 @@ def compile_board(board: Board, probes: tuple[tuple[str, str], ...] = ()) -> Cir
     def pair(nodes: tuple[str, str]) -> list[int]:
         return [index[nodes[0]], index[nodes[1]]]
 
-    res_nodes = np.array([pair(r.nodes) for r in board.resistors.values()], dtype=np.intp).reshape(-1, 2)
-    cap_nodes = np.array([pair(c.nodes) for c in board.capacitors.values()], dtype=np.intp).reshape(-1, 2)
+    res_nodes = np.array([pair(r.nodes) for r in board.resistors.values()], dtype=np.intp).reshape(
+        -1, 2
+    )
+    cap_nodes = np.array([pair(c.nodes) for c in board.capacitors.values()], dtype=np.intp).reshape(
+        -1, 2
+    )
     probe_nodes = np.array([pair(p) for p in probes], dtype=np.intp).reshape(-1, 2)
     sup_nodes = np.array([index[s.node] for s in board.supplies.values()], dtype=np.intp)
     q_nodes = np.array(

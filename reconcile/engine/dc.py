@@ -27,7 +27,7 @@ V_REL_TOL = 1e-9
 WARM_ITERATIONS = 40
 COLD_ITERATIONS = 120
 STEP_ITERATIONS = 60
-GMIN_STEPS = tuple(10.0 ** -k for k in range(2, 13)) + (0.0,)
+GMIN_STEPS = tuple(10.0**-k for k in range(2, 13)) + (0.0,)
 
 
 @dataclass(frozen=True)
@@ -234,13 +234,20 @@ def _cold_start(batch: _Batch, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray]
     return v, vj
 
 
-def solve_dc(circuit: Circuit, params: Parameters, initial: DCState | None = None) -> DCState:
+def solve_dc(
+    circuit: Circuit,
+    params: Parameters,
+    initial: DCState | None = None,
+    *,
+    batch: _Batch | None = None,
+) -> DCState:
     """The DC operating point of every sample.
 
     ``initial`` (one sample, or one per sample) seeds Newton; without it a small batch is
     solved cold and a large one is seeded from the solution of its first sample.
     """
-    batch = _Batch(circuit, params)
+    if batch is None:
+        batch = _Batch(circuit, params)
     n = batch.n
     size = circuit.n_nodes + 1
     n_t = len(circuit.transistor_refs)

@@ -1,0 +1,120 @@
+"""Meter loading: a voltmeter on a high-impedance base node pulls it down, and a fit that
+ignores the meter is biased.
+
+Two invented boards with a high-impedance bias divider: 1 MΩ/470 kΩ read with a 1 MΩ
+meter, and 4.7 MΩ/2.2 MΩ read with a 10 MΩ meter (``[bench] voltmeter_ohms``). The true
+board is drawn inside its tolerances and read with the meter attached (the measurement
+model of :mod:`reconcile.measure`, plus seeded noise). Then:
+
+* with the meter modelled (``model_meter=True``) the fit is chi-square consistent, the
+  quantities the loading acts on (beta, and the divider ratio R2/(R1+R2)) lie within
+  2 standard errors of the truth, and every parameter within 3 (recover and assert
+  within k standard errors: common practice, as in lmfit's own tests);
+* without it (``model_meter=False``) the chi-square test rejects the fit (p < 0.001,
+  scipy.stats.chi2) and beta is off by more than 5 standard errors.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from fit_support import draw_truth
+
+from reconcile.board_loader import board_from_text
+from reconcile.fitting import FitResult, fit_board
+from reconcile.simulate import full_plan
+
+BOARD_TOML = """\
+title = "High-impedance bias divider (invented)"
+
+[supplies.VCC]
+node = "vcc"
+volts = "12"
+tolerance = "1%"
+
+[resistors.R1]
+nodes = ["vcc", "b"]
+ohms = "{r1}"
+tolerance = "1%"
+
+[resistors.R2]
+nodes = ["b", "gnd"]
+ohms = "{r2}"
+tolerance = "1%"
+
+[resistors.RC]
+nodes = ["vcc", "c"]
+ohms = "{rc}"
+tolerance = "1%"
+
+[resistors.RE]
+nodes = ["e", "gnd"]
+ohms = "{re}"
+tolerance = "1%"
+
+[transistors.Q1]
+polarity = "npn"
+c = "c"
+b = "b"
+e = "e"
+device = "lab-npn"
+
+[devices.lab-npn]
+IS = {{ value = "8f", low = "2f", high = "40f" }}
+beta = {{ value = 180, low = 90, high = 330 }}
+VA = "80"
+
+[bench]
+voltmeter_ohms = "{meter}"
+"""
+
+CASES = {
+    "1M-meter": {"r1": "1M", "r2": "470k", "rc": "22k", "re": "22k", "meter": "1M"},
+    "10M-meter": {"r1": "4M7", "r2": "2M2", "rc": "100k", "re": "100k", "meter": "10M"},
+}
+
+
+def _z(fit: FitResult, x_true: np.ndarray) -> dict[str, float]:
+    sd = np.sqrt(np.diag(fit.covariance))
+    z = {k: float((fit.x[j] - x_true[j]) / sd[j]) for j, k in enumerate(fit.space.keys)}
+    i1, i2 = fit.space.index("R1"), fit.space.index("R2")
+    c = fit.covariance
+    ratio_sd = np.sqrt(c[i1, i1] + c[i2, i2] - 2.0 * c[i1, i2])
+    log_ratio_error = (fit.x[i1] - fit.x[i2]) - (x_true[i1] - x_true[i2])
+    z["divider"] = float(log_ratio_error / ratio_sd)  # ln(R1/R2) fixes R2/(R1+R2)
+    return z
+
+
+@pytest.fixture(scope="module", params=list(CASES))
+def loaded(request):
+    board = board_from_text(BOARD_TOML.format(**CASES[request.param]), f"{request.param}.toml")
+    rng = np.random.default_rng(0)
+    truth = draw_truth(board, rng)
+    readings = truth.read(full_plan(board), rng)
+    return board, truth, readings
+
+
+def test_meter_loading_is_many_reading_uncertainties(loaded) -> None:
+    """The set-up is one where loading matters: the base reading (meter attached) is
+    more than 10 reading uncertainties below the unloaded true base voltage."""
+    _board, truth, readings = loaded
+    base = next(r for r in readings if r.quantity == "voltage" and r.at == "b")
+    unloaded = float(truth.solution().voltage("b")[0])
+    assert (unloaded - base.value) / base.uncertainty > 10.0
+
+
+def test_fit_with_meter_modelled_recovers_truth_within_sigma(loaded) -> None:
+    board, truth, readings = loaded
+    fit = fit_board(board, readings, model_meter=True)
+    z = _z(fit, truth.internal(fit.space))
+    assert fit.verdict == "consistent", f"p = {fit.p_value:.3g}"
+    assert abs(z["Q1.beta"]) <= 2.0 and abs(z["divider"]) <= 2.0, z
+    assert max(abs(v) for v in z.values()) <= 3.0, z
+
+
+def test_fit_ignoring_meter_is_biased_and_chi_square_rejects_it(loaded) -> None:
+    board, truth, readings = loaded
+    fit = fit_board(board, readings, model_meter=False)
+    z = _z(fit, truth.internal(fit.space))
+    assert fit.p_value < 1e-3 and fit.verdict == "inconsistent", f"p = {fit.p_value:.3g}"
+    assert abs(z["Q1.beta"]) > 5.0, z
