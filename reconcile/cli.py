@@ -205,6 +205,78 @@ class AnalysisInputs:
         )
 
 
+def _value_option(text: str | None, kind: str, option: str) -> float | None:
+    if text is None:
+        return None
+    from .values import parse_value
+
+    try:
+        return parse_value(text, kind)
+    except InputError as err:
+        raise err.located(key=option) from None
+
+
+OptStr = Optional[str]  # noqa: UP045 - typer needs Optional here
+
+
+@app.command()
+def lot(
+    first: Annotated[
+        Path, typer.Argument(help="Jig board (TOML), or a sweep file (CSV) on its own.")
+    ],
+    readings: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Argument(help="Jig readings with a device column, or sweep data (CSV)."),
+    ] = None,
+    json: JsonOpt = False,
+    plot: PlotOpt = None,
+    bins: Annotated[OptStr, typer.Option(help="Beta bin edges, e.g. '100,150,200'.")] = None,
+    vbe_limit: Annotated[str, typer.Option(help="Matching: largest VBE difference.")] = "2m",
+    beta_ratio: Annotated[float, typer.Option(help="Matching: largest beta ratio.")] = 1.1,
+    current: Annotated[str, typer.Option(help="Matching: collector current for VBE.")] = "1m",
+    set_size: Annotated[int, typer.Option(help="Devices per matched set.")] = 2,
+    spec_low: Annotated[Optional[float], typer.Option(help="Beta lower spec limit (Cpk).")] = None,  # noqa: UP045
+    spec_high: Annotated[Optional[float], typer.Option(help="Beta upper spec limit (Cpk).")] = None,  # noqa: UP045
+    socket: Annotated[
+        OptStr, typer.Option(help="Jig transistor under test (default: the only one).")
+    ] = None,
+    device_name: Annotated[str, typer.Option(help="Name of the device table written.")] = "lot",
+    early_voltage: Annotated[
+        OptStr, typer.Option(help="Sweeps: VA for the Early correction.")
+    ] = None,
+) -> None:
+    """Characterise a transistor lot from jig readings or sweeps: spread, outliers, pairs."""
+    from .lots import run_lot
+
+    jig, data = (first, readings) if readings is not None else (None, first)
+    result = run_lot(
+        jig,
+        data,
+        bins=bins,
+        vbe_limit=_value_option(vbe_limit, "volts", "--vbe-limit"),
+        beta_ratio=beta_ratio,
+        current=_value_option(current, "amps", "--current"),
+        spec_low=spec_low,
+        spec_high=spec_high,
+        socket=socket,
+        set_size=set_size,
+        device_name=device_name,
+        early_voltage=_value_option(early_voltage, "volts", "--early-voltage"),
+    )
+    if plot is not None:
+        from .plots_lot import plot_lot
+
+        plot_lot(result, plot)
+    if json:
+        emit_json(result.to_dict())
+        return
+    from .render_lot import print_lot
+
+    print_lot(result)
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
+
+
 @app.command()
 def demo(
     json: JsonOpt = False,

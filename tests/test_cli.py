@@ -94,3 +94,25 @@ def test_demo_json(tmp_path):
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
     assert "cautions" in data
+
+
+def test_lot_jig_json_contract(tmp_path):
+    out = run(
+        "lot",
+        str(SAMPLES / "lot_jig.toml"),
+        str(SAMPLES / "lot_jig_readings.csv"),
+        "--json",
+        "--plot",
+        str(tmp_path / "lot.png"),
+    )
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert {"devices", "summary", "outliers"} <= set(data)
+    assert {"mean", "sd", "p05", "p50", "p95"} <= set(data["summary"]["beta"])
+    assert {"geo_mean", "log10_sd"} <= set(data["summary"]["IS"])
+    assert (tmp_path / "lot.png").stat().st_size > 10_000
+
+
+def test_lot_bad_option_is_exit_2():
+    out = run("lot", str(SAMPLES / "lot_sweep.csv"), "--current", "1 V")
+    assert out.returncode == 2 and "--current" in out.stderr
