@@ -278,6 +278,77 @@ def lot(
 
 
 @app.command()
+def report(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+    out: Annotated[Path, typer.Option("--out", help="HTML file to write.")] = Path(
+        "reconcile-report.html"
+    ),
+    lot_jig: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(help="Add a lot: its jig board (TOML), with --lot-readings."),
+    ] = None,
+    lot_readings: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(help="Add a lot: jig readings or sweep data (CSV)."),
+    ] = None,
+    json: JsonOpt = False,
+) -> None:
+    """Write the bench story as one self-contained HTML page (plots embedded)."""
+    import tempfile
+
+    from .report import collect_report, write_report
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "report")
+    meta = None
+    if session is not None:
+        from .session_commands import show_session
+
+        meta = {k: v for k, v in show_session(session, store=store).items() if k != "readings"}
+    lot_result = lot_png = None
+    if lot_readings is not None:
+        from .lots import run_lot
+        from .plots_lot import plot_lot
+
+        lot_result = run_lot(lot_jig, lot_readings)
+        with tempfile.TemporaryDirectory() as tmp:
+            lot_png = plot_lot(lot_result, Path(tmp) / "lot.png").read_bytes()
+    with tempfile.TemporaryDirectory() as tmp:
+        data = collect_report(
+            inputs.board,
+            inputs.readings,
+            session=meta,
+            lot_result=lot_result,
+            lot_plot=lot_png,
+            work_dir=Path(tmp),
+        )
+    path = write_report(data, out)
+    recorded = None
+    if session is not None:
+        for kind, result in (("fit", data.fit), ("diagnose", data.diagnosis), ("trim", data.trim)):
+            if result is not None:
+                inputs.record(kind, result)
+        recorded = inputs.record("report", {"path": str(path.resolve()), **data.hashes})
+    summary = {
+        "report": str(path.resolve()),
+        "sections": [
+            k
+            for k in ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot")
+            if k in data.plots or k in ("board", "readings")
+        ],
+        "plots": sorted(data.plots),
+        "hashes": data.hashes,
+        "recorded": recorded,
+    }
+    if json:
+        emit_json(summary)
+    else:
+        typer.echo(f"report written to {path.resolve()}")
+
+
+@app.command()
 def demo(
     json: JsonOpt = False,
     out: Annotated[
