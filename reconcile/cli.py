@@ -32,9 +32,11 @@ _state = {"debug": False}
 
 
 def _register_subcommands() -> None:
+    from .cli_capture import capture
     from .cli_session import session_app
 
     app.add_typer(session_app, name="session")
+    app.command()(capture)
 
 
 _register_subcommands()
@@ -273,6 +275,64 @@ def lot(
     from .render_lot import print_lot
 
     print_lot(result)
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
+
+
+@app.command()
+def trim(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    json: JsonOpt = False,
+    plot: PlotOpt = None,
+    max_changes: Annotated[int, typer.Option(help="Most parts one option changes.")] = 2,
+    top: Annotated[int, typer.Option(help="How many options to show.")] = 10,
+    samples: Annotated[int, typer.Option(help="Monte Carlo samples for the yield.")] = 10_000,
+    seed: Annotated[int, typer.Option(help="Seed of the Monte Carlo draws.")] = 0,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+) -> None:
+    """Propose the least rework (standard values, swaps or parts in parallel) that restores
+    the spec, with its yield. Without readings: design mode on the drawn board."""
+    import numpy as np
+
+    from .trim import trim as run_trim
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "trim", readings_optional=True)
+    fit_result = None
+    if inputs.readings is not None:
+        from .fitting import fit_board
+
+        fit_result = fit_board(inputs.board, inputs.readings)
+    result = run_trim(
+        inputs.board,
+        fit_result,
+        max_changes=max_changes,
+        top=top,
+        samples=samples,
+        rng=np.random.default_rng(seed),
+    )
+    out = result.to_dict()
+    if fit_result is not None and fit_result.verdict != "consistent":
+        out["warning"] = (
+            f"the fit's verdict is {fit_result.verdict}: the board may have a fault; "
+            "run diagnose before trusting a trim"
+        )
+    recorded = inputs.record("trim", out)
+    if plot is not None and samples > 0:
+        from .plots_trim import plot_trim
+
+        plot_trim(result, plot)
+    if json:
+        if recorded:
+            out["recorded"] = recorded
+        emit_json(out)
+        return
+    from .render_trim import print_trim
+
+    print_trim(result)
+    if "warning" in out:
+        typer.echo(f"warning: {out['warning']}")
     if plot is not None:
         typer.echo(f"plot written to {plot}")
 

@@ -116,3 +116,19 @@ def test_lot_jig_json_contract(tmp_path):
 def test_lot_bad_option_is_exit_2():
     out = run("lot", str(SAMPLES / "lot_sweep.csv"), "--current", "1 V")
     assert out.returncode == 2 and "--current" in out.stderr
+
+
+def test_trim_json_contract_and_design_mode():
+    out = run(
+        "trim", str(SAMPLES / "line_receiver_cb.toml"), str(SAMPLES / "line_receiver_built.csv"),
+        "--json", "--samples", "2000",
+    )
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert {"baseline", "options"} <= set(data)
+    best = data["options"][0]
+    assert {"changes", "predicted", "meets_spec", "yield"} <= set(best)
+    assert best["changes"][0]["action"] in ("replace", "parallel")
+    design = run("trim", str(SAMPLES / "preamp_ce.toml"), "--json", "--samples", "500")
+    assert design.returncode == 0, design.stderr
+    assert json.loads(design.stdout)["mode"] == "design"
