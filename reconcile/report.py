@@ -72,8 +72,14 @@ def collect_report(
     work_dir: Path,
     trim_samples: int = 10_000,
     seed: int = 0,
+    outcome=None,
+    diagnosis=None,
+    trim_result=None,
 ) -> ReportData:
-    """Run every analysis on (board, readings) and draw the figures."""
+    """Run every analysis on (board, readings) and draw the figures.
+
+    ``outcome`` (:class:`reconcile.analysis.FitOutcome`), ``diagnosis`` and
+    ``trim_result`` may be passed in when they were computed already."""
     import numpy as np
 
     from .analysis import run_fit
@@ -93,7 +99,8 @@ def collect_report(
         created=datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S UTC"),
     )
     design = solve(board)
-    outcome = run_fit(board, readings)
+    if outcome is None:
+        outcome = run_fit(board, readings)
     data.fit = outcome.fit.to_dict()
     data.budget = outcome.budget.to_dict() if outcome.budget is not None else None
     data.next_readings = [s.to_dict() for s in outcome.suggestions]
@@ -104,11 +111,13 @@ def collect_report(
     data.plots["fit"] = panel_png(outcome.fit, "parameters")
     if data.budget:
         data.plots["budget"] = miss_budget_png(data.budget)
-    diag = diagnose(board, readings)
+    diag = diagnosis if diagnosis is not None else diagnose(board, readings)
     data.diagnosis = diag.to_dict()
     data.plots["diagnosis"] = hypotheses_png(data.diagnosis["hypotheses"])
     if board.spec.targets:
-        result = trim(board, outcome.fit, samples=trim_samples, rng=np.random.default_rng(seed))
+        result = trim_result
+        if result is None:
+            result = trim(board, outcome.fit, samples=trim_samples, rng=np.random.default_rng(seed))
         data.trim = result.to_dict()
         try:
             data.plots["trim"] = _png_file(plot_trim(result, work_dir / "trim.png"))

@@ -47,7 +47,7 @@ from reconcile.readings import Reading
 SCHEMA_VERSION = 1
 """The newest schema this code knows; ``MIGRATIONS[i]`` brings a store to version i+1."""
 
-ANALYSIS_KINDS = ("fit", "diagnose", "trim", "lot", "capture")
+ANALYSIS_KINDS = ("fit", "diagnose", "trim", "lot", "capture", "report")
 """Kinds of analysis a session may record."""
 
 DEFAULT_FILE_NAME = "sessions.sqlite"
