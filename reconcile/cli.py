@@ -280,6 +280,45 @@ def lot(
 
 
 @app.command()
+def diagnose(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    json: JsonOpt = False,
+    weights: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(help="TOML file with [fault_weights] (prior weight per fault kind)."),
+    ] = None,
+    rows: Annotated[int, typer.Option(help="Hypotheses shown in the table.")] = 10,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+) -> None:
+    """Say which single fault best explains the readings, and the check to confirm it."""
+    from .diagnosis import diagnose as run_diagnosis
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "diagnose")
+    prior = None
+    if weights is not None:
+        from .fault_weights import load_fault_weights
+
+        prior = load_fault_weights(weights)
+    diag = run_diagnosis(inputs.board, inputs.readings, prior_weights=prior)
+    out = diag.to_dict()
+    recorded = inputs.record("diagnose", out)
+    if json:
+        if recorded:
+            out["recorded"] = recorded
+        emit_json(out)
+        return
+    from .render_diagnosis import print_diagnosis
+
+    print_diagnosis(diag, rows=rows)
+    if recorded:
+        typer.echo(
+            f"recorded with session {recorded['session']} as analysis {recorded['analysis']}"
+        )
+
+
+@app.command()
 def trim(
     board: BoardOptArg = None,
     readings: ReadingsArg = None,

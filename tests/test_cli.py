@@ -132,3 +132,18 @@ def test_trim_json_contract_and_design_mode():
     design = run("trim", str(SAMPLES / "preamp_ce.toml"), "--json", "--samples", "500")
     assert design.returncode == 0, design.stderr
     assert json.loads(design.stdout)["mode"] == "design"
+
+
+def test_diagnose_json_contract():
+    out = run(
+        "diagnose", str(SAMPLES / "line_receiver_cb.toml"), str(SAMPLES / "line_receiver_built.csv"),
+        "--json",
+    )
+    assert out.returncode == 0, out.stderr
+    hyps = json.loads(out.stdout)["hypotheses"]
+    assert {"ref", "fault", "value", "chi_square", "probability"} <= set(hyps[0])
+    assert abs(sum(h["probability"] for h in hyps) - 1.0) < 1e-6
+    kinds = {h["fault"] for h in hyps}
+    assert {"none", "open", "short", "wrong-value", "missing", "reversed"} <= kinds
+    probs = [h["probability"] for h in hyps]
+    assert probs == sorted(probs, reverse=True)
