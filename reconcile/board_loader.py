@@ -45,6 +45,7 @@ from reconcile.board import (
     Transistor,
 )
 from reconcile.errors import InputError, InputErrors
+from reconcile.text_files import read_text
 from reconcile.toml_lines import Key, TomlLines, syntax_error_line
 from reconcile.values import parse_value
 
@@ -220,14 +221,7 @@ def load_board(path: str | os.PathLike[str]) -> Board:
     InputErrors
         The file has one or more problems; all of them are listed.
     """
-    name = os.fspath(path)
-    try:
-        with open(name, encoding="utf-8-sig") as handle:
-            text = handle.read()
-    except OSError as err:
-        raise InputError(f"cannot read the board file: {err.strerror}", path=name) from err
-    except UnicodeDecodeError as err:
-        raise InputError(f"the board file is not UTF-8 text: {err.reason}", path=name) from err
+    name, text = read_text(path, "board file")
     return board_from_text(text, path=name)
 
 

@@ -45,6 +45,7 @@ from .board import Board
 from .errors import InputError, InputErrors
 from .readings import Reading
 from .sweeps import SweepExtraction, SweepSet
+from .text_files import read_text
 
 __all__ = [
     "DeviceEstimate",
@@ -473,14 +474,7 @@ def run_lot(
         current_a=float(current), spec_low=spec_low, spec_high=spec_high, set_size=set_size,
         device_name=device_name,
     )
-    path = os.fspath(readings_path)
-    try:
-        with open(path, encoding="utf-8-sig", newline="") as handle:
-            text = handle.read()
-    except OSError as err:
-        raise InputError(f"cannot read the readings file: {err.strerror}", path=path) from err
-    except UnicodeDecodeError as err:
-        raise InputError(f"the readings file is not UTF-8 text: {err.reason}", path=path) from err
+    path, text = read_text(readings_path, "readings file")
     board = load_board(jig_path) if jig_path is not None else None
     if is_sweep_text(text):
         va, xti, eg, t_default = math.inf, 3.0, 1.11, temperature_k

@@ -37,6 +37,7 @@ from dataclasses import dataclass, field
 
 from reconcile.board import GND, Board
 from reconcile.errors import InputError, InputErrors
+from reconcile.text_files import read_text
 from reconcile.values import KINDS, ZERO_CELSIUS_K, parse_value
 
 __all__ = [
@@ -250,14 +251,7 @@ def load_readings(path: str | os.PathLike[str], board: Board | None = None) -> l
     InputErrors
         The header or some rows are wrong; every problem is listed with its line.
     """
-    name = os.fspath(path)
-    try:
-        with open(name, encoding="utf-8-sig", newline="") as handle:
-            text = handle.read()
-    except OSError as err:
-        raise InputError(f"cannot read the readings file: {err.strerror}", path=name) from err
-    except UnicodeDecodeError as err:
-        raise InputError(f"the readings file is not UTF-8 text: {err.reason}", path=name) from err
+    name, text = read_text(path, "readings file")
     return readings_from_text(text, path=name, board=board)
 
 

@@ -80,6 +80,7 @@ import numpy as np
 from . import devices
 from .errors import InputError, InputErrors
 from .readings import COUNTS_FULL_SCALE, DEFAULT_UNCERTAINTY, UncertaintyRule
+from .text_files import read_text
 from .values import parse_tolerance, parse_value
 
 __all__ = [
@@ -187,14 +188,7 @@ def load_sweeps(path: str | os.PathLike[str], *, temperature_k: float | None = N
     InputErrors
         The header or some rows are wrong; every problem is listed with its line.
     """
-    name = os.fspath(path)
-    try:
-        with open(name, encoding="utf-8-sig", newline="") as handle:
-            text = handle.read()
-    except OSError as err:
-        raise InputError(f"cannot read the sweep file: {err.strerror}", path=name) from err
-    except UnicodeDecodeError as err:
-        raise InputError(f"the sweep file is not UTF-8 text: {err.reason}", path=name) from err
+    name, text = read_text(path, "sweep file")
     return sweeps_from_text(text, path=name, temperature_k=temperature_k)
 
 

@@ -136,7 +136,9 @@ def test_trim_json_contract_and_design_mode():
 
 def test_diagnose_json_contract():
     out = run(
-        "diagnose", str(SAMPLES / "line_receiver_cb.toml"), str(SAMPLES / "line_receiver_built.csv"),
+        "diagnose",
+        str(SAMPLES / "line_receiver_cb.toml"),
+        str(SAMPLES / "line_receiver_built.csv"),
         "--json",
     )
     assert out.returncode == 0, out.stderr
