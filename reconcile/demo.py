@@ -21,6 +21,8 @@ included; nothing is written anywhere else.
 
 from __future__ import annotations
 
+import os
+import shutil
 from pathlib import Path
 
 DESIGN_BOARD = "line_receiver_cb.toml"
@@ -60,6 +62,8 @@ def run_demo(*, json_output: bool = False, out_dir: Path | None = None) -> dict:
     data = sample_data_dir()
     out = Path(out_dir) if out_dir is not None else Path.cwd() / "reconcile-demo-output"
     out.mkdir(parents=True, exist_ok=True)
+    # matplotlib keeps a font cache; keep even that inside the demo's folder.
+    os.environ.setdefault("MPLCONFIGDIR", str(out / ".matplotlib"))
     console = Console(stderr=json_output, quiet=json_output)
     rng = np.random.default_rng(SEED)
     story = _Story(data, out, console, rng)
@@ -280,6 +284,7 @@ class _Story:
             trim_result=trim_result,
         )
         path = write_report(data, self.out / "report.html")
+        shutil.rmtree(self.out / "work", ignore_errors=True)
         store.record_analysis(
             sid,
             "report",

@@ -89,13 +89,6 @@ def test_bad_readings_row_names_line(tmp_path):
     assert "r.csv:3" in out.stderr and "Traceback" not in out.stderr
 
 
-def test_demo_json(tmp_path):
-    out = run("demo", "--json", "--out", str(tmp_path / "demo"), cwd=ROOT)
-    assert out.returncode == 0, out.stderr
-    data = json.loads(out.stdout)
-    assert "cautions" in data
-
-
 def test_lot_jig_json_contract(tmp_path):
     out = run(
         "lot",
@@ -149,3 +142,20 @@ def test_diagnose_json_contract():
     assert {"none", "open", "short", "wrong-value", "missing", "reversed"} <= kinds
     probs = [h["probability"] for h in hyps]
     assert probs == sorted(probs, reverse=True)
+
+
+def test_demo_tells_the_whole_story_inside_its_folder(tmp_path):
+    out_dir = tmp_path / "demo"
+    out = run("demo", "--json", "--out", str(out_dir))
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    # The hidden board had R2 = 56.2k loaded for 62k: the diagnosis must find it.
+    top = data["diagnosis"]["hypotheses"][0]
+    assert (top["ref"], top["fault"]) == ("R2", "wrong-value")
+    assert data["hidden_board_after_rework"]["meets_spec"] is True
+    assert data["trim"]["options"][0]["meets_spec"] is True
+    for key in ("report", "fit_plot", "trim_plot", "lot_plot"):
+        assert Path(data["files"][key]).is_file()
+        assert Path(data["files"][key]).resolve().is_relative_to(out_dir.resolve())
+    assert data["session"]["store"].startswith(str(out_dir))
+    assert "ESD" in data["cautions"]
