@@ -665,6 +665,7 @@ def _next_reading(
     sep = np.zeros(len(cands))
     spread = np.zeros(len(cands))
     norm = 0.0
+    pairs: list[tuple[int, int, np.ndarray]] = []
     for i in range(k):
         for j in range(i + 1, k):
             d = _bhattacharyya(pred[i], s2[i], pred[j], s2[j])
@@ -672,6 +673,7 @@ def _next_reading(
             norm += wij
             sep += wij * (1.0 - np.exp(-d))
             spread += wij * d
+            pairs.append((i, j, wij * (1.0 - np.exp(-d))))
     sep = sep / norm if norm > 0 else sep
     explained = any(h.consistent for h in hyps)
     if top[0].probability < CLEAR_WINNER:
@@ -688,12 +690,17 @@ def _next_reading(
         order = np.lexsort((-spread, -np.nan_to_num(info, nan=0.0)))
     best = int(order[0])
     q, at = cands[best]
+    # Name the pair of hypotheses this reading tells apart best (for "confirm" and
+    # "explore" that is the leader and its runner-up).
+    i_sep, j_sep = 0, 1
+    if purpose == "separate" and pairs:
+        i_sep, j_sep, _ = max(pairs, key=lambda pair: pair[2][best])
     return NextReading(
         quantity=q,
         at=at,
         uncertainty=float(u[0, best]),
         separation=float(sep[best]),
-        separates=(top[0].label, top[1].label),
+        separates=(top[i_sep].label, top[j_sep].label),
         expected={h.label: float(pred[i, best]) for i, h in enumerate(top)},
         purpose=purpose,
     )
