@@ -33,9 +33,11 @@ _state = {"debug": False}
 
 def _register_subcommands() -> None:
     from .cli_capture import capture
+    from .cli_derive import derive_app
     from .cli_session import session_app
 
     app.add_typer(session_app, name="session")
+    app.add_typer(derive_app, name="derive")
     app.command()(capture)
 
 

@@ -159,3 +159,26 @@ def test_demo_tells_the_whole_story_inside_its_folder(tmp_path):
         assert Path(data["files"][key]).resolve().is_relative_to(out_dir.resolve())
     assert data["session"]["store"].startswith(str(out_dir))
     assert "ESD" in data["cautions"]
+
+
+def test_derive_gain_matches_first_order_gum():
+    # G = 0.120/0.010 = 12; relative u = sqrt(1%² + 1%²) (JCGM 100:2008 eq. 10, ratio).
+    out = run("derive", "gain", "--vin", "10m", "--vout", "120m", "--json")
+    assert out.returncode == 0, out.stderr
+    data = json.loads(out.stdout)
+    assert data["value"] == pytest.approx(12.0)
+    assert data["uncertainty"] == pytest.approx(12.0 * (2 * 0.01**2) ** 0.5, rel=1e-9)
+
+
+def test_derive_row_reads_back_as_a_reading(tmp_path):
+    out = run("derive", "input-resistance", "--v1", "20m", "--v2", "10m", "--r-series", "100R")
+    assert out.returncode == 0, out.stderr
+    from reconcile.readings import readings_from_text
+
+    (reading,) = readings_from_text(out.stdout)
+    assert reading.quantity == "input_resistance" and reading.value == pytest.approx(100.0)
+
+
+def test_derive_swapped_leads_is_exit_2():
+    out = run("derive", "input-resistance", "--v1", "10m", "--v2", "20m", "--r-series", "100R")
+    assert out.returncode == 2 and "swapped" in out.stderr
