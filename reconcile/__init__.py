@@ -18,7 +18,7 @@ __version__ = "0.1.0"
 _LAZY = {
     "load_board": ("reconcile.board_loader", "load_board"),
     "board_from_text": ("reconcile.board_loader", "board_from_text"),
-    "solve": ("reconcile.solve", "solve"),
+    "solve": ("reconcile.solution", "solve"),
     "load_readings": ("reconcile.readings", "load_readings"),
     "fit": ("reconcile.fitting", "fit_board"),
 }

@@ -82,7 +82,7 @@ def solve(
 ) -> None:
     """Solve the board as drawn: operating point, small signal and the spec check."""
     from .board_loader import load_board
-    from .solve import solve as solve_board
+    from .solution import solve as solve_board
 
     b = load_board(board)
     sol = solve_board(b, temperature=_temperature_option(temperature))

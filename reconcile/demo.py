@@ -130,7 +130,7 @@ class _Story:
     # ------------------------------------------------------------------ steps
     def design_check(self, design) -> None:
         from .render_solve import print_solution
-        from .solve import solve
+        from .solution import solve
 
         self.step("1. The design, under the exact model")
         sol = solve(design)
@@ -217,7 +217,7 @@ class _Story:
 
         from .plots_trim import plot_trim
         from .render_trim import print_trim
-        from .solve import check_spec, solve
+        from .solution import check_spec, solve
         from .trim import trim
 
         self.step("5. The least rework that restores the spec, and its yield")

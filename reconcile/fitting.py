@@ -140,7 +140,7 @@ class FitResult:
     def predicted_solution(self):
         """The solve block of the fitted board."""
         from .engine import solve_batch
-        from .solve import BoardSolution, board_warnings
+        from .solution import BoardSolution, board_warnings
 
         circuit = compile_board(self.board)
         space = ParameterSpace(circuit, self.space.parameters)

@@ -5,7 +5,7 @@ from __future__ import annotations
 from rich.console import Console, Group
 from rich.table import Table
 
-from .solve import BoardSolution
+from .solution import BoardSolution
 from .values import format_si
 
 STYLE_OK = "green"

@@ -87,7 +87,7 @@ def collect_report(
     from .plots_fit import panel_png
     from .plots_report import hypotheses_png, miss_budget_png, operating_point_png
     from .plots_trim import plot_trim
-    from .solve import solve
+    from .solution import solve
     from .trim import trim
 
     work_dir.mkdir(parents=True, exist_ok=True)

@@ -30,6 +30,18 @@ def test_fit_from_python():
     assert "Q1.beta" in fit.to_dict()["parameters"]
 
 
+def test_api_names_survive_submodule_imports():
+    # Importing every submodule must not shadow a lazily exported function.
+    import importlib
+    import pkgutil
+
+    for mod in pkgutil.iter_modules(reconcile.__path__):
+        importlib.import_module(f"reconcile.{mod.name}")
+    for name in ("load_board", "board_from_text", "solve", "load_readings", "fit"):
+        assert callable(getattr(reconcile, name)), name
+        assert not isinstance(getattr(reconcile, name), type(reconcile)), name
+
+
 def test_unknown_attribute():
     with pytest.raises(AttributeError):
         reconcile.no_such_thing  # noqa: B018

@@ -31,7 +31,7 @@ from reconcile.board import (
 )
 from reconcile.board_loader import load_board
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
-from reconcile.solve import solve
+from reconcile.solution import solve
 
 KCL_TOL_A = 1e-12
 E12 = (1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2)

@@ -22,7 +22,7 @@ from scipy import constants
 
 from reconcile import devices
 from reconcile.board_loader import board_from_text
-from reconcile.solve import solve
+from reconcile.solution import solve
 
 MP_DIGITS = 40
 T0_K = 298.15  # the contract's reference temperature of the device tables

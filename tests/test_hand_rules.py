@@ -23,7 +23,7 @@ import pytest
 
 from reconcile.board import Board
 from reconcile.board_loader import board_from_text
-from reconcile.solve import solve
+from reconcile.solution import solve
 
 VBE_HAND_V = 0.65  # common practice: a silicon junction at about a milliamp
 

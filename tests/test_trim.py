@@ -28,7 +28,7 @@ from reconcile.jsonout import dumps
 from reconcile.plots_trim import plot_trim
 from reconcile.render_trim import print_trim
 from reconcile.simulate import full_plan, simulate_readings
-from reconcile.solve import board_warnings, solve
+from reconcile.solution import board_warnings, solve
 from reconcile.trim import TrimOption, trim
 from reconcile.trim_candidates import CandidateWindow, parallel_ohms
 
