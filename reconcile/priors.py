@@ -175,6 +175,28 @@ class ParameterSpace:
         return p.with_values(**arrays)
 
 
+def _passive(
+    ref: str, kind: str, column: int, nominal: float, tolerance: float, unit: str
+) -> FreeParameter:
+    """A resistor or capacitor: ln of its value, σ = tolerance/√3, bounds ÷/× 1000."""
+    sd = max(tolerance, 1e-4) / math.sqrt(3.0)
+    return FreeParameter(
+        ref,
+        kind,
+        ref,
+        column,
+        "log",
+        math.log(nominal),
+        math.log1p(sd),
+        math.log(nominal / PART_BOUND_FACTOR),
+        math.log(nominal * PART_BOUND_FACTOR),
+        nominal,
+        unit,
+        nominal * (1 - tolerance),
+        nominal * (1 + tolerance),
+    )
+
+
 def build_space(
     circuit: Circuit,
     *,
@@ -196,44 +218,10 @@ def build_space(
 
     for col, ref in enumerate(circuit.resistor_refs):
         r = board.resistors[ref]
-        sd = max(r.tolerance, 1e-4) / math.sqrt(3.0)
-        add(
-            FreeParameter(
-                ref,
-                "resistor",
-                ref,
-                col,
-                "log",
-                math.log(r.ohms),
-                math.log1p(sd),
-                math.log(r.ohms / PART_BOUND_FACTOR),
-                math.log(r.ohms * PART_BOUND_FACTOR),
-                r.ohms,
-                "ohm",
-                r.ohms * (1 - r.tolerance),
-                r.ohms * (1 + r.tolerance),
-            )
-        )
+        add(_passive(ref, "resistor", col, r.ohms, r.tolerance, "ohm"))
     for col, ref in enumerate(circuit.capacitor_refs):
         c = board.capacitors[ref]
-        sd = max(c.tolerance, 1e-4) / math.sqrt(3.0)
-        add(
-            FreeParameter(
-                ref,
-                "capacitor",
-                ref,
-                col,
-                "log",
-                math.log(c.farads),
-                math.log1p(sd),
-                math.log(c.farads / PART_BOUND_FACTOR),
-                math.log(c.farads * PART_BOUND_FACTOR),
-                c.farads,
-                "F",
-                c.farads * (1 - c.tolerance),
-                c.farads * (1 + c.tolerance),
-            )
-        )
+        add(_passive(ref, "capacitor", col, c.farads, c.tolerance, "F"))
     for col, ref in enumerate(circuit.supply_refs):
         s = board.supplies[ref]
         sd = max(s.tolerance / math.sqrt(3.0), SUPPLY_FLOOR) * abs(s.volts)
