@@ -60,15 +60,15 @@ def emit_json(obj: object) -> None:
     sys.stdout.write(dumps(obj) + "\n")
 
 
-def _temperature_option(text: str | None) -> float | None:
+def _value_option(text: str | None, kind: str, option: str) -> float | None:
     if text is None:
         return None
-    from .values import parse_temperature
+    from .values import parse_value
 
     try:
-        return parse_temperature(text)
+        return parse_value(text, kind)
     except InputError as err:
-        raise err.located(key="--temperature") from None
+        raise err.located(key=option) from None
 
 
 @app.command()
@@ -85,7 +85,7 @@ def solve(
     from .solution import solve as solve_board
 
     b = load_board(board)
-    sol = solve_board(b, temperature=_temperature_option(temperature))
+    sol = solve_board(b, temperature=_value_option(temperature, "temperature", "--temperature"))
     if json:
         emit_json(sol.to_dict())
         return
@@ -207,17 +207,6 @@ class AnalysisInputs:
         return record_analysis(
             self.session, kind, result, inputs_sha256=self.digest, store=self.store
         )
-
-
-def _value_option(text: str | None, kind: str, option: str) -> float | None:
-    if text is None:
-        return None
-    from .values import parse_value
-
-    try:
-        return parse_value(text, kind)
-    except InputError as err:
-        raise err.located(key=option) from None
 
 
 OptStr = Optional[str]  # noqa: UP045 - typer needs Optional here
