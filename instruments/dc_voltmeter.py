@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from .driver import Driver
+from reconcile.instruments.driver import Driver
 
 __all__ = ["DcVoltmeter"]
 

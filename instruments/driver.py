@@ -13,14 +13,14 @@ from typing import TYPE_CHECKING, Any, ClassVar, Self
 
 from reconcile.errors import InputError
 
-from . import scpi
-from .commands import actions_for
+from reconcile.instruments import scpi
+from reconcile.instruments.commands import actions_for
 
 if TYPE_CHECKING:
-    from reconcile.accuracy import RangeTable
+    from reconcile.data.accuracy import RangeTable
 
-    from .profile import InstrumentProfile
-    from .transport import Transport
+    from reconcile.instruments.profile import InstrumentProfile
+    from reconcile.instruments.transport import Transport
 
 __all__ = ["Driver"]
 

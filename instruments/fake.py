@@ -11,7 +11,7 @@ from collections.abc import Callable, Iterable, Mapping, Sequence
 
 from reconcile.errors import InstrumentError
 
-from .transport import timeout_message
+from reconcile.instruments.transport import timeout_message
 
 __all__ = ["FakeTransport", "GARBAGE_REPLY"]
 

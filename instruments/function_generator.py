@@ -15,8 +15,8 @@ from typing import Literal
 
 from reconcile.errors import InputError
 
-from . import scpi
-from .driver import Driver
+from reconcile.instruments import scpi
+from reconcile.instruments.driver import Driver
 
 __all__ = ["FunctionGenerator", "vrms_to_vpp_sine"]
 

@@ -8,8 +8,8 @@ A multi-output supply selects its output with command overrides, e.g.
 
 from __future__ import annotations
 
-from . import scpi
-from .driver import Driver
+from reconcile.instruments import scpi
+from reconcile.instruments.driver import Driver
 
 __all__ = ["PowerSupply"]
 

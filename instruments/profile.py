@@ -50,10 +50,10 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
-from reconcile.accuracy import DEFAULT_OVER_RANGE, AccuracySpec, RangeTable
+from reconcile.data.accuracy import DEFAULT_OVER_RANGE, AccuracySpec, RangeTable
 from reconcile.errors import InputError, InputErrors
 
-from .commands import ROLES, actions_for, template_problem
+from reconcile.instruments.commands import ROLES, actions_for, template_problem
 
 __all__ = [
     "InstrumentProfile",
@@ -210,7 +210,7 @@ class InstrumentProfile:
         -------
         instruments.transport.VisaTransport
         """
-        from .transport import open_transport
+        from reconcile.instruments.transport import open_transport
 
         return open_transport(
             self.resource,

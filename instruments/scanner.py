@@ -14,11 +14,11 @@ from typing import TYPE_CHECKING
 
 from reconcile.errors import InputError
 
-from .driver import Driver
+from reconcile.instruments.driver import Driver
 
 if TYPE_CHECKING:
-    from .profile import InstrumentProfile
-    from .transport import Transport
+    from reconcile.instruments.profile import InstrumentProfile
+    from reconcile.instruments.transport import Transport
 
 __all__ = ["Scanner"]
 

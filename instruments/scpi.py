@@ -24,7 +24,7 @@ from typing import NamedTuple
 
 from reconcile.errors import InputError, InstrumentError
 
-from .transport import Transport
+from reconcile.instruments.transport import Transport
 
 __all__ = [
     "Identity",

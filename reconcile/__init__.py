@@ -16,11 +16,11 @@ from typing import Any
 __version__ = "0.1.0"
 
 _LAZY = {
-    "load_board": ("reconcile.board_loader", "load_board"),
-    "board_from_text": ("reconcile.board_loader", "board_from_text"),
-    "solve": ("reconcile.solution", "solve"),
-    "load_readings": ("reconcile.readings", "load_readings"),
-    "fit": ("reconcile.fitting", "fit_board"),
+    "load_board": ("reconcile.model.board_loader", "load_board"),
+    "board_from_text": ("reconcile.model.board_loader", "board_from_text"),
+    "solve": ("reconcile.engine.solution", "solve"),
+    "load_readings": ("reconcile.data.readings", "load_readings"),
+    "fit": ("reconcile.inference.fitting", "fit_board"),
 }
 
 __all__ = ["__version__", *_LAZY]

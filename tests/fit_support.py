@@ -14,14 +14,14 @@ from pathlib import Path
 
 import numpy as np
 
-from reconcile.board import Board, DeviceParam
-from reconcile.board_loader import load_board
+from reconcile.model.board import Board, DeviceParam
+from reconcile.model.board_loader import load_board
 from reconcile.engine import BatchSolution, compile_board, nominal_parameters, solve_batch
-from reconcile.fitting import FitResult
-from reconcile.measure import MeasurementModel, Observation
-from reconcile.priors import TEMPERATURE_SD_K, ParameterSpace, build_space
-from reconcile.readings import Reading
-from reconcile.simulate import simulate_readings
+from reconcile.inference.fitting import FitResult
+from reconcile.inference.measure import MeasurementModel, Observation
+from reconcile.inference.priors import TEMPERATURE_SD_K, ParameterSpace, build_space
+from reconcile.data.readings import Reading
+from reconcile.inference.simulate import simulate_readings
 
 SAMPLE_DATA = Path(__file__).resolve().parent.parent / "sample_data"
 

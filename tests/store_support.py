@@ -7,7 +7,7 @@ import os
 import pwd
 from collections.abc import Callable
 
-from reconcile.readings import Reading
+from reconcile.data.readings import Reading
 
 BOARD_TOML = """\
 title = "Store test stage (invented)"

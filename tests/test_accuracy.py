@@ -11,7 +11,7 @@ import math
 import mpmath
 import pytest
 
-from reconcile.accuracy import (
+from reconcile.data.accuracy import (
     DEFAULT_OVER_RANGE,
     AccuracySpec,
     RangeTable,

@@ -13,8 +13,8 @@ from pathlib import Path
 import pytest
 import scipy.constants as sc
 
-from reconcile.board import GND, DeviceParam
-from reconcile.board_loader import board_from_text, load_board
+from reconcile.model.board import GND, DeviceParam
+from reconcile.model.board_loader import board_from_text, load_board
 from reconcile.errors import InputError, InputErrors
 
 BASE = """\

@@ -31,18 +31,18 @@ import typer
 from fit_support import draw_truth, sample_board
 from typer.testing import CliRunner
 
-from instruments.capture import Capture, CaptureInterrupted, CaptureReport
-from instruments.dc_voltmeter import DcVoltmeter
-from instruments.fake import FakeTransport
-from instruments.plan import SKIP_ANSWERS, ProbeStep, dc_nodes, plan_readings
-from instruments.profile import load_profile
-from instruments.settle import SettleError, SettleRule, settle
-from instruments.simulated_bench import SimulatedBench, capture_simulated_demo
-from reconcile.board import DeviceParam
-from reconcile.board_loader import board_from_text
+from reconcile.capture.run import Capture, CaptureInterrupted, CaptureReport
+from reconcile.instruments.dc_voltmeter import DcVoltmeter
+from reconcile.instruments.fake import FakeTransport
+from reconcile.capture.plan import SKIP_ANSWERS, ProbeStep, dc_nodes, plan_readings
+from reconcile.instruments.profile import load_profile
+from reconcile.capture.settle import SettleError, SettleRule, settle
+from reconcile.capture.simulated_bench import SimulatedBench, capture_simulated_demo
+from reconcile.model.board import DeviceParam
+from reconcile.model.board_loader import board_from_text
 from reconcile.errors import InputError
-from reconcile.fitting import fit_board
-from reconcile.store import open_store
+from reconcile.inference.fitting import fit_board
+from reconcile.store.database import open_store
 
 HERE = Path(__file__).resolve().parent
 SAMPLES = HERE.parent / "sample_data"
@@ -370,7 +370,7 @@ def test_fault_stops_with_a_clear_message_and_resume_does_not_duplicate(
 def test_resume_skips_readings_typed_into_the_session_earlier(store, tmp_path):
     board = _line_receiver()
     sid = _session(store, board)
-    from reconcile.readings import Reading
+    from reconcile.data.readings import Reading
 
     store.add_reading(sid, Reading("voltage", "c", 8.6, "V", 0.01, note="typed"))
     bench = SimulatedBench(board, np.random.default_rng(4))
@@ -493,7 +493,7 @@ def _pyvisa_sim_files(tmp_path) -> tuple[Path, Path, Path]:
 def test_open_bench_runs_a_capture_through_pyvisa(store, tmp_path):
     # The real-instrument path: instrument files -> pyvisa (pyvisa-sim backend) ->
     # VisaTransport -> drivers -> capture.
-    from instruments.bench_setup import open_bench
+    from reconcile.capture.bench_setup import open_bench
 
     dmm, psu, board_file = _pyvisa_sim_files(tmp_path)
     board = board_from_text(board_file.read_text(encoding="utf-8"), str(board_file))
@@ -508,7 +508,7 @@ def test_open_bench_runs_a_capture_through_pyvisa(store, tmp_path):
 
 # ----------------------------------------------------------------------------- command line
 def _app() -> typer.Typer:
-    from reconcile.cli_capture import capture
+    from reconcile.cli.capture import capture
 
     app = typer.Typer(add_completion=False, pretty_exceptions_enable=False)
     app.command()(capture)
@@ -580,7 +580,7 @@ def test_cli_capture_needs_an_instrument_or_simulate(tmp_path):
 
 def test_importing_the_capture_command_loads_nothing_heavy():
     # Common practice for CLI start-up: heavy libraries load inside the command.
-    code = ("import json, sys\nimport reconcile.cli_capture, instruments.capture\n"
+    code = ("import json, sys\nimport reconcile.cli.capture, reconcile.capture.run\n"
             "print(json.dumps(sorted(sys.modules)))\n")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                          check=True, timeout=60)

@@ -15,7 +15,7 @@ SAMPLES = ROOT / "sample_data"
 
 def run(*args: str, cwd: Path = ROOT) -> subprocess.CompletedProcess:
     return subprocess.run(
-        [sys.executable, "-m", "reconcile.cli", *args],
+        [sys.executable, "-m", "reconcile", *args],
         capture_output=True,
         text=True,
         cwd=cwd,
@@ -173,7 +173,7 @@ def test_derive_gain_matches_first_order_gum():
 def test_derive_row_reads_back_as_a_reading(tmp_path):
     out = run("derive", "input-resistance", "--v1", "20m", "--v2", "10m", "--r-series", "100R")
     assert out.returncode == 0, out.stderr
-    from reconcile.readings import readings_from_text
+    from reconcile.data.readings import readings_from_text
 
     (reading,) = readings_from_text(out.stdout)
     assert reading.quantity == "input_resistance" and reading.value == pytest.approx(100.0)

@@ -13,7 +13,7 @@ SAMPLES = ROOT / "sample_data"
 
 def run(*args: str, store: Path) -> subprocess.CompletedProcess:
     return subprocess.run(
-        [sys.executable, "-m", "reconcile.cli", *args, "--store", str(store)],
+        [sys.executable, "-m", "reconcile", *args, "--store", str(store)],
         capture_output=True,
         text=True,
         cwd=ROOT,
@@ -55,7 +55,7 @@ def test_session_round_trip_and_fit_from_session_equals_fit_from_file(tmp_path):
         [
             sys.executable,
             "-m",
-            "reconcile.cli",
+            "reconcile",
             "fit",
             str(SAMPLES / "line_receiver_cb.toml"),
             str(SAMPLES / "line_receiver_built.csv"),

@@ -15,7 +15,7 @@ import math
 import numpy as np
 import pytest
 
-from reconcile.derived_readings import Derived, gain_from_ac, input_resistance_series_method
+from reconcile.data.derived_readings import Derived, gain_from_ac, input_resistance_series_method
 from reconcile.errors import InputError
 
 

@@ -39,20 +39,20 @@ from benchmarks.bench_diagnosis import BENCH_PLAN, bench_board
 from fit_support import draw_truth, sample_board
 from rich.console import Console
 
-from reconcile.board import Board, Resistor
-from reconcile.diagnosis import diagnose
+from reconcile.model.board import Board, Resistor
+from reconcile.diagnosis.diagnose import diagnose
 from reconcile.engine import compile_board
 from reconcile.errors import InputError
-from reconcile.fault_fit import fit_faults
-from reconcile.fault_weights import DEFAULT_FAULT_WEIGHTS, FAULT_KINDS, load_fault_weights
-from reconcile.faults import OPEN_OHMS, single_faults
-from reconcile.fitting import fit_board
+from reconcile.diagnosis.fault_fit import fit_faults
+from reconcile.diagnosis.weights import DEFAULT_FAULT_WEIGHTS, FAULT_KINDS, load_fault_weights
+from reconcile.diagnosis.faults import OPEN_OHMS, single_faults
+from reconcile.inference.fitting import fit_board
 from reconcile.jsonout import dumps
-from reconcile.measure import observations_from
-from reconcile.priors import build_space
-from reconcile.readings import Reading, default_uncertainty
-from reconcile.render_diagnosis import print_diagnosis
-from reconcile.simulate import full_plan, simulate_readings
+from reconcile.inference.measure import observations_from
+from reconcile.inference.priors import build_space
+from reconcile.data.readings import Reading, default_uncertainty
+from reconcile.present.render_diagnosis import print_diagnosis
+from reconcile.inference.simulate import full_plan, simulate_readings
 
 VISIBLE_SIGMA = 10.0
 GAIN_FLOOR = 0.01

@@ -15,12 +15,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from reconcile import devices
-from reconcile.board import GND, Board
-from reconcile.board_loader import board_from_text, load_board
+from reconcile.engine import devices
+from reconcile.model.board import GND, Board
+from reconcile.model.board_loader import board_from_text, load_board
 from reconcile.engine import compile_board, dc, nominal_parameters, solve_batch
 from reconcile.errors import SolveError
-from reconcile.solution import solve
+from reconcile.engine.solution import solve
 
 SAMPLE_DATA = Path(__file__).resolve().parents[1] / "sample_data"
 KCL_TOL_A = 1e-12

@@ -17,8 +17,8 @@ import pytest
 from hypothesis import HealthCheck, example, given, settings
 from hypothesis import strategies as st
 
-from reconcile import devices
-from reconcile.board import (
+from reconcile.engine import devices
+from reconcile.model.board import (
     GND,
     Board,
     Capacitor,
@@ -29,9 +29,9 @@ from reconcile.board import (
     Supply,
     Transistor,
 )
-from reconcile.board_loader import load_board
+from reconcile.model.board_loader import load_board
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
-from reconcile.solution import solve
+from reconcile.engine.solution import solve
 
 KCL_TOL_A = 1e-12
 E12 = (1.0, 1.2, 1.5, 1.8, 2.2, 2.7, 3.3, 3.9, 4.7, 5.6, 6.8, 8.2)

@@ -20,9 +20,9 @@ import numpy as np
 import pytest
 from scipy import constants
 
-from reconcile import devices
-from reconcile.board_loader import board_from_text
-from reconcile.solution import solve
+from reconcile.engine import devices
+from reconcile.model.board_loader import board_from_text
+from reconcile.engine.solution import solve
 
 MP_DIGITS = 40
 T0_K = 298.15  # the contract's reference temperature of the device tables

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from reconcile.errors import InputError
-from reconcile.eseries import (
+from reconcile.model.eseries import (
     SERIES,
     TOLERANCE_SERIES,
     decade_slips,

@@ -30,9 +30,9 @@ import pytest
 from fit_support import draw_truth, sample_board
 
 from reconcile.engine import compile_board, solve_batch
-from reconcile.fitting import FitResult, fit_board
-from reconcile.priors import ParameterSpace
-from reconcile.simulate import full_plan
+from reconcile.inference.fitting import FitResult, fit_board
+from reconcile.inference.priors import ParameterSpace
+from reconcile.inference.simulate import full_plan
 
 MC_DRAWS = 20_000
 TOLERANCE = 0.10

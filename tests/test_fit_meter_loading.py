@@ -20,9 +20,9 @@ import numpy as np
 import pytest
 from fit_support import draw_truth
 
-from reconcile.board_loader import board_from_text
-from reconcile.fitting import FitResult, fit_board
-from reconcile.simulate import full_plan
+from reconcile.model.board_loader import board_from_text
+from reconcile.inference.fitting import FitResult, fit_board
+from reconcile.inference.simulate import full_plan
 
 BOARD_TOML = """\
 title = "High-impedance bias divider (invented)"

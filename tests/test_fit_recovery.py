@@ -27,8 +27,8 @@ import pytest
 from fit_support import draw_truth, quantity_gradient, sample_board
 from scipy import stats
 
-from reconcile.fitting import fit_board
-from reconcile.simulate import full_plan
+from reconcile.inference.fitting import fit_board
+from reconcile.inference.simulate import full_plan
 
 #: (sample board, readings added to :func:`full_plan`)
 CASES = (

@@ -21,9 +21,9 @@ import math
 
 import pytest
 
-from reconcile.board import Board
-from reconcile.board_loader import board_from_text
-from reconcile.solution import solve
+from reconcile.model.board import Board
+from reconcile.model.board_loader import board_from_text
+from reconcile.engine.solution import solve
 
 VBE_HAND_V = 0.65  # common practice: a silicon junction at about a milliamp
 

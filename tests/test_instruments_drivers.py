@@ -11,14 +11,14 @@ import os
 
 import pytest
 
-from instruments.ac_voltmeter import AcVoltmeter
-from instruments.dc_voltmeter import DcVoltmeter
-from instruments.fake import FakeTransport
-from instruments.function_generator import FunctionGenerator, vrms_to_vpp_sine
-from instruments.power_supply import PowerSupply
-from instruments.profile import InstrumentProfile, load_profile
-from instruments.scanner import Scanner
-from instruments.scpi import Identity
+from reconcile.instruments.ac_voltmeter import AcVoltmeter
+from reconcile.instruments.dc_voltmeter import DcVoltmeter
+from reconcile.instruments.fake import FakeTransport
+from reconcile.instruments.function_generator import FunctionGenerator, vrms_to_vpp_sine
+from reconcile.instruments.power_supply import PowerSupply
+from reconcile.instruments.profile import InstrumentProfile, load_profile
+from reconcile.instruments.scanner import Scanner
+from reconcile.instruments.scpi import Identity
 from reconcile.errors import InputError, InstrumentError
 
 NO_ERROR = '+0,"No error"'  # IEEE 488.2 / SCPI-1999: code 0 = empty error queue

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from instruments.fake import GARBAGE_REPLY, FakeTransport
-from instruments.transport import Transport
+from reconcile.instruments.fake import GARBAGE_REPLY, FakeTransport
+from reconcile.instruments.transport import Transport
 from reconcile.errors import InstrumentError
 
 

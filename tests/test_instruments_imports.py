@@ -8,10 +8,10 @@ import subprocess
 import sys
 
 MODULES = [
-    "instruments", "instruments.transport", "instruments.fake", "instruments.scpi",
-    "instruments.commands", "instruments.profile", "instruments.driver",
-    "instruments.dc_voltmeter", "instruments.ac_voltmeter", "instruments.power_supply",
-    "instruments.function_generator", "instruments.scanner",
+    "instruments", "reconcile.instruments.transport", "reconcile.instruments.fake", "reconcile.instruments.scpi",
+    "reconcile.instruments.commands", "reconcile.instruments.profile", "reconcile.instruments.driver",
+    "reconcile.instruments.dc_voltmeter", "reconcile.instruments.ac_voltmeter", "reconcile.instruments.power_supply",
+    "reconcile.instruments.function_generator", "reconcile.instruments.scanner",
 ]
 
 
@@ -32,6 +32,6 @@ def test_instrument_modules_do_not_import_pyvisa():
 
 
 def test_reconcile_math_modules_import_neither_instruments_nor_numpy():
-    loaded = _loaded_after(["reconcile.accuracy", "reconcile.derived_readings"])
+    loaded = _loaded_after(["reconcile.data.accuracy", "reconcile.data.derived_readings"])
     assert "instruments" not in loaded
     assert "numpy" not in loaded

@@ -8,8 +8,8 @@ import textwrap
 
 import pytest
 
-from instruments.profile import InstrumentProfile, load_profile
-from reconcile.accuracy import AccuracySpec
+from reconcile.instruments.profile import InstrumentProfile, load_profile
+from reconcile.data.accuracy import AccuracySpec
 from reconcile.errors import InputError, InputErrors
 
 SAMPLES = os.path.join(os.path.dirname(os.path.abspath(__file__)), "..", "sample_data",

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import pytest
 
-from instruments import scpi
-from instruments.fake import FakeTransport
+from reconcile.instruments import scpi
+from reconcile.instruments.fake import FakeTransport
 from reconcile.errors import InputError, InstrumentError
 
 NO_ERROR = '+0,"No error"'

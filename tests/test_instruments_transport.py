@@ -12,13 +12,13 @@ import time
 
 import pytest
 
-from instruments import scpi
-from instruments import transport as transport_module
-from instruments.ac_voltmeter import AcVoltmeter
-from instruments.dc_voltmeter import DcVoltmeter
-from instruments.power_supply import PowerSupply
-from instruments.profile import load_profile
-from instruments.transport import Transport, VisaTransport, check_backend, open_transport
+from reconcile.instruments import scpi
+from reconcile.instruments import transport as transport_module
+from reconcile.instruments.ac_voltmeter import AcVoltmeter
+from reconcile.instruments.dc_voltmeter import DcVoltmeter
+from reconcile.instruments.power_supply import PowerSupply
+from reconcile.instruments.profile import load_profile
+from reconcile.instruments.transport import Transport, VisaTransport, check_backend, open_transport
 from reconcile.errors import InputError, InstrumentError
 
 HERE = os.path.dirname(os.path.abspath(__file__))

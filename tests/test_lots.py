@@ -27,15 +27,15 @@ import numpy as np
 import pytest
 from scipy import constants, stats
 
-from reconcile.board import DeviceParam
-from reconcile.board_loader import board_from_text, load_board
+from reconcile.model.board import DeviceParam
+from reconcile.model.board_loader import board_from_text, load_board
 from reconcile.errors import InputError
 from reconcile.jsonout import dumps
-from reconcile.lot_stats import capability, robust_z, vbe_at_current
-from reconcile.lots import LotOptions, characterise_jig, characterise_sweeps, parse_bins, run_lot
-from reconcile.readings import Reading, readings_from_text
-from reconcile.simulate import simulate_readings
-from reconcile.sweeps import extract, simulate_sweeps, sweeps_from_text, sweeps_to_csv
+from reconcile.lot.stats import capability, robust_z, vbe_at_current
+from reconcile.lot.characterise import LotOptions, characterise_jig, characterise_sweeps, parse_bins, run_lot
+from reconcile.data.readings import Reading, readings_from_text
+from reconcile.inference.simulate import simulate_readings
+from reconcile.lot.sweeps import extract, simulate_sweeps, sweeps_from_text, sweeps_to_csv
 
 ROOT = Path(__file__).resolve().parents[1]
 JIG = ROOT / "sample_data" / "lot_jig.toml"
@@ -114,8 +114,8 @@ def test_jig_lot_mean_and_spread_within_sampling_error(jig_lot):
 
 def test_jig_batched_fit_agrees_with_fit_board_loop(jig, jig_lot):
     # Same MAP objective, solved one device at a time by reconcile.fitting (lmfit).
-    from reconcile.fitting import fit_board
-    from reconcile.jig_fit import fit_jig
+    from reconcile.inference.fitting import fit_board
+    from reconcile.lot.jig_fit import fit_jig
 
     some = ("T000", "T001", "T002")
     readings = [r for r in jig_lot["readings"] if r.device in some or not r.device]
@@ -348,7 +348,7 @@ def test_modified_z_score_by_hand():
 
 def test_vbe_at_current_against_mpmath_root():
     # Solve IS(T)·(exp(V/(n·VT)) − 1) = I for V with mpmath.findroot (device model).
-    from reconcile import devices
+    from reconcile.engine import devices
 
     is_25, n, t, i = 7e-15, 1.01, 310.0, 1e-3
     is_t = float(devices.saturation_current(is_25, t))
@@ -419,7 +419,7 @@ def test_device_table_loads_and_sets_tomorrows_priors(jig_lot):
     # The table reads back through the board loader, and priors.py turns its ±2σ range
     # into a prior whose sd is the lot's own spread (reconcile.priors docstring).
     from reconcile.engine import compile_board
-    from reconcile.priors import build_space
+    from reconcile.inference.priors import build_space
 
     res = jig_lot["result"]
     text = JIG.read_text().replace('device = "small-npn"', 'device = "lot"')
@@ -444,8 +444,8 @@ def test_run_lot_needs_a_jig_for_jig_readings():
 def test_print_and_plot(tmp_path):
     from rich.console import Console
 
-    from reconcile.plots_lot import plot_lot
-    from reconcile.render_lot import print_lot
+    from reconcile.present.plots_lot import plot_lot
+    from reconcile.present.render_lot import print_lot
 
     res = run_lot(JIG, JIG_READINGS, bins=[100, 150, 200], spec_low=120)
     console = Console(record=True, width=140)

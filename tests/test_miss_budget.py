@@ -27,11 +27,11 @@ import numpy as np
 import pytest
 from fit_support import draw_truth, quantity_stderr, sample_board
 
-from reconcile import miss_budget as mb
+from reconcile.analysis import miss_budget as mb
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
-from reconcile.fitting import FitResult, fit_board
-from reconcile.priors import ParameterSpace
-from reconcile.simulate import full_plan, simulate_readings
+from reconcile.inference.fitting import FitResult, fit_board
+from reconcile.inference.priors import ParameterSpace
+from reconcile.inference.simulate import full_plan, simulate_readings
 
 CASES = {
     "line_receiver_cb": (("resistance", "RE"),),

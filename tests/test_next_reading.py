@@ -17,10 +17,10 @@ import numpy as np
 import pytest
 from fit_support import draw_truth, quantity_gradient, quantity_stderr, sample_board
 
-from reconcile.board import Board
-from reconcile.fitting import fit_board
-from reconcile.next_reading import candidate_readings, suggest_next
-from reconcile.simulate import full_plan
+from reconcile.model.board import Board
+from reconcile.inference.fitting import fit_board
+from reconcile.analysis.next_reading import candidate_readings, suggest_next
+from reconcile.inference.simulate import full_plan
 
 MIN_PREDICTED_SHRINK = 0.03
 AGREEMENT = 0.30

@@ -14,10 +14,10 @@ from pathlib import Path
 import pytest
 import scipy.constants as sc
 
-from reconcile.board import Board
-from reconcile.board_loader import board_from_text
+from reconcile.model.board import Board
+from reconcile.model.board_loader import board_from_text
 from reconcile.errors import InputError, InputErrors
-from reconcile.readings import (
+from reconcile.data.readings import (
     DEFAULT_UNCERTAINTY,
     QUANTITIES,
     Reading,

@@ -11,9 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from reconcile.board_loader import load_board
-from reconcile.readings import load_readings
-from reconcile.report import collect_report, write_report
+from reconcile.model.board_loader import load_board
+from reconcile.data.readings import load_readings
+from reconcile.present.report import collect_report, write_report
 
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_data"
@@ -22,8 +22,8 @@ PLOTTED = ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot")
 
 @pytest.fixture(scope="module")
 def report_file(tmp_path_factory) -> Path:
-    from reconcile.lots import run_lot
-    from reconcile.plots_lot import plot_lot
+    from reconcile.lot.characterise import run_lot
+    from reconcile.present.plots_lot import plot_lot
 
     work = tmp_path_factory.mktemp("report")
     board = load_board(SAMPLES / "line_receiver_cb.toml")

@@ -1,4 +1,4 @@
-"""Tests of reconcile.session_commands, the logic behind ``reconcile session ...``.
+"""Tests of reconcile.store.sessions, the logic behind ``reconcile session ...``.
 
 Reference: the contract's section 5 (``session new`` prints ``{"session": ID}``; ``session
 export`` prints the readings as a readings file, section 3).
@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 from store_support import BOARD_TOML, READINGS_CSV
 
-from reconcile import session_commands as commands
+from reconcile.store import sessions as commands
 from reconcile.errors import InputError, InputErrors
 
 
@@ -96,7 +96,7 @@ def test_a_missing_session_exits_2(files):
 
 
 def test_importing_the_commands_does_not_import_sqlalchemy():
-    code = ("import sys, reconcile.session_commands; "
+    code = ("import sys, reconcile.store.sessions; "
             "print(sorted(m for m in sys.modules if m.split('.')[0] in "
             "('sqlalchemy', 'psycopg', 'platformdirs')))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,

@@ -33,11 +33,11 @@ from store_support import (
     run_unprivileged,
 )
 
-from reconcile import store as store_module
-from reconcile.board_loader import board_from_text
+from reconcile.store import database as store_module
+from reconcile.model.board_loader import board_from_text
 from reconcile.errors import InputError, StoreError
-from reconcile.readings import readings_from_text
-from reconcile.store import SCHEMA_VERSION, inputs_sha256, open_store
+from reconcile.data.readings import readings_from_text
+from reconcile.store.database import SCHEMA_VERSION, inputs_sha256, open_store
 
 TESTS = Path(__file__).resolve().parent
 WRITER = TESTS / "store_writer.py"
@@ -120,7 +120,7 @@ def _dump(location: str) -> dict[str, list[tuple]]:
 def test_file_to_session_to_export_is_identical(location, session, tmp_path):
     path = tmp_path / "readings.csv"
     path.write_text(READINGS_CSV, encoding="utf-8")
-    from reconcile.readings import load_readings
+    from reconcile.data.readings import load_readings
 
     readings = load_readings(path)
     with open_store(location) as store:

@@ -19,18 +19,18 @@ import pytest
 from rich.console import Console
 from scipy import stats
 
-from reconcile.board import Board, DeviceParam
-from reconcile.board_loader import load_board
+from reconcile.model.board import Board, DeviceParam
+from reconcile.model.board_loader import load_board
 from reconcile.errors import InputError, ReconcileError
-from reconcile.eseries import values_in_range
-from reconcile.fitting import fit_board
+from reconcile.model.eseries import values_in_range
+from reconcile.inference.fitting import fit_board
 from reconcile.jsonout import dumps
-from reconcile.plots_trim import plot_trim
-from reconcile.render_trim import print_trim
-from reconcile.simulate import full_plan, simulate_readings
-from reconcile.solution import board_warnings, solve
-from reconcile.trim import TrimOption, trim
-from reconcile.trim_candidates import CandidateWindow, parallel_ohms
+from reconcile.present.plots_trim import plot_trim
+from reconcile.present.render_trim import print_trim
+from reconcile.inference.simulate import full_plan, simulate_readings
+from reconcile.engine.solution import board_warnings, solve
+from reconcile.trim.rework import TrimOption, trim
+from reconcile.trim.candidates import CandidateWindow, parallel_ohms
 
 DATA = Path(__file__).resolve().parents[1] / "sample_data"
 SAMPLES = 2000  # Monte Carlo draws per option in tests (the default is 10 000)

@@ -15,7 +15,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 from reconcile.errors import InputError
-from reconcile.values import (
+from reconcile.model.values import (
     ZERO_CELSIUS_K,
     format_si,
     parse_temperature,

@@ -10,10 +10,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .. import devices
-from .circuit import FLOAT_SIEMENS, Circuit, Parameters
-from .dc import DCState, _Batch, solve_dc
-from .small_signal import SmallSignal, analyse
+from reconcile.engine import devices
+from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
+from reconcile.engine.dc import DCState, _Batch, solve_dc
+from reconcile.engine.small_signal import SmallSignal, analyse
 
 RO_INFINITE_OHMS = 1e15
 """An output resistance above this is reported as infinite (null in JSON)."""

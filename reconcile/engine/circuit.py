@@ -16,7 +16,7 @@ from dataclasses import dataclass, field, fields, replace
 
 import numpy as np
 
-from ..board import GND, Board
+from reconcile.model.board import GND, Board
 
 
 @dataclass(frozen=True)

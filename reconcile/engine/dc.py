@@ -19,8 +19,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .. import devices
-from .circuit import FLOAT_SIEMENS, Circuit, Parameters
+from reconcile.engine import devices
+from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
 
 V_ABS_TOL = 1e-9
 V_REL_TOL = 1e-9

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .circuit import Circuit, Parameters
+from reconcile.engine.circuit import Circuit, Parameters
 
 
 @dataclass(frozen=True)

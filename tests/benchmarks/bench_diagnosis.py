@@ -98,7 +98,7 @@ TARGET_S = 2.0
 
 def bench_board():
     """The benchmark board as a :class:`reconcile.board.Board`."""
-    from reconcile.board_loader import board_from_text
+    from reconcile.model.board_loader import board_from_text
 
     return board_from_text(BENCH_BOARD_TOML, "bench_diagnosis.toml")
 
@@ -113,8 +113,8 @@ def run(repeats: int = 7) -> dict[str, Any]:
         ``hypotheses``, ``readings``, ``top`` (label and probability of the top
         hypothesis), ``target_s`` and ``meets_target``.
     """
-    from reconcile.diagnosis import diagnose
-    from reconcile.simulate import simulate_readings
+    from reconcile.diagnosis.diagnose import diagnose
+    from reconcile.inference.simulate import simulate_readings
 
     board = bench_board()
     truth = board.with_resistor_ohms("RE", 100.0)

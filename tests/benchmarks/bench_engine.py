@@ -187,7 +187,7 @@ def _median_time(fn, repeats: int, warmup: int = 1) -> float:
 
 
 def bench_batched(n: int) -> dict:
-    from reconcile.board_loader import load_board
+    from reconcile.model.board_loader import load_board
     from reconcile.engine import compile_board, solve_batch
 
     circuit = compile_board(load_board(BOARD_PATH))
@@ -209,7 +209,7 @@ def bench_batched(n: int) -> dict:
 
 
 def bench_loop(n: int) -> dict:
-    from reconcile.board_loader import load_board
+    from reconcile.model.board_loader import load_board
     from reconcile.engine import compile_board, nominal_parameters, solve_batch
 
     circuit = compile_board(load_board(BOARD_PATH))

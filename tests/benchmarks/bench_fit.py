@@ -20,11 +20,11 @@ from typing import Any
 
 import numpy as np
 
-from reconcile.board_loader import load_board
-from reconcile.fitting import fit_board
-from reconcile.miss_budget import miss_budget
-from reconcile.next_reading import suggest_next
-from reconcile.simulate import full_plan, simulate_readings
+from reconcile.model.board_loader import load_board
+from reconcile.inference.fitting import fit_board
+from reconcile.analysis.miss_budget import miss_budget
+from reconcile.analysis.next_reading import suggest_next
+from reconcile.inference.simulate import full_plan, simulate_readings
 
 BOARD = Path(__file__).resolve().parents[2] / "sample_data" / "line_receiver_cb.toml"
 FIT_TARGET_S = 0.050

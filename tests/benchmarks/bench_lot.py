@@ -55,7 +55,7 @@ def _median_time(fn, repeats: int = 3) -> float:
 
 
 def _sweep_lot(n_devices: int, seed: int = 4242):
-    from reconcile.sweeps import simulate_sweeps
+    from reconcile.lot.sweeps import simulate_sweeps
 
     rng = np.random.default_rng(seed)
     names = [f"D{i:05d}" for i in range(n_devices)]
@@ -68,7 +68,7 @@ def _sweep_lot(n_devices: int, seed: int = 4242):
 
 
 def _polyfit_loop(sw, idx) -> None:
-    from reconcile import devices
+    from reconcile.engine import devices
 
     for i in idx:
         m = sw.mask[i]
@@ -85,8 +85,8 @@ def _polyfit_loop(sw, idx) -> None:
 
 
 def bench_sweeps(n_devices: int = 10_000) -> dict:
-    from reconcile.lots import characterise_sweeps
-    from reconcile.sweeps import extract, sweeps_from_text, sweeps_to_csv
+    from reconcile.lot.characterise import characterise_sweeps
+    from reconcile.lot.sweeps import extract, sweeps_from_text, sweeps_to_csv
 
     sw = _sweep_lot(n_devices)
     text = sweeps_to_csv(sw)
@@ -123,8 +123,8 @@ def bench_sweeps(n_devices: int = 10_000) -> dict:
 
 
 def _jig_readings(board, n_devices: int, seed: int = 99):
-    from reconcile.board import DeviceParam
-    from reconcile.simulate import simulate_readings
+    from reconcile.model.board import DeviceParam
+    from reconcile.inference.simulate import simulate_readings
 
     rng = np.random.default_rng(seed)
     plan = [("voltage", "b"), ("voltage", "c"), ("current", "VCC")]
@@ -142,9 +142,9 @@ def _jig_readings(board, n_devices: int, seed: int = 99):
 
 
 def bench_jig(n_devices: int = JIG_DEVICES) -> dict:
-    from reconcile.board_loader import load_board
-    from reconcile.fitting import fit_board
-    from reconcile.lots import characterise_jig
+    from reconcile.model.board_loader import load_board
+    from reconcile.inference.fitting import fit_board
+    from reconcile.lot.characterise import characterise_jig
 
     board = load_board(JIG_PATH)
     readings = _jig_readings(board, n_devices)

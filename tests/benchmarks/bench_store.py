@@ -16,9 +16,9 @@ import time
 from pathlib import Path
 from typing import Any
 
-from reconcile.board_loader import board_from_text
-from reconcile.readings import Reading
-from reconcile.store import open_store
+from reconcile.model.board_loader import board_from_text
+from reconcile.data.readings import Reading
+from reconcile.store.database import open_store
 
 BOARD_TOML = """\
 title = "Benchmark stage (invented)"

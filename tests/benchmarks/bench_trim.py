@@ -48,7 +48,7 @@ LOOP_SUBSET = 300
 
 def stage():
     """The four-resistor E96 stage (see the module docstring)."""
-    from reconcile.board_loader import load_board
+    from reconcile.model.board_loader import load_board
 
     board = load_board(BOARD_PATH).with_resistor_ohms("R2", 56e3)
     parts = dict(board.resistors)
@@ -59,11 +59,11 @@ def stage():
 
 def _loop_per_board(board, seed: int = 7) -> tuple[float, int]:
     """Seconds per candidate when each is its own engine call (subset, extrapolated)."""
-    from reconcile import trim_search as ts
+    from reconcile.trim import search as ts
     from reconcile.engine import compile_board, solve_batch
-    from reconcile.priors import build_space
-    from reconcile.trim_candidates import single_candidates
-    from reconcile.trim_combos import all_pairs
+    from reconcile.inference.priors import build_space
+    from reconcile.trim.candidates import single_candidates
+    from reconcile.trim.combos import all_pairs
 
     circuit = compile_board(board)
     space = build_space(circuit)
@@ -87,7 +87,7 @@ def _loop_per_board(board, seed: int = 7) -> tuple[float, int]:
 
 
 def run() -> dict:
-    from reconcile.trim import trim
+    from reconcile.trim.rework import trim
 
     board = stage()
     trim(board, samples=1000)  # warm-up

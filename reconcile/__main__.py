@@ -1,0 +1,5 @@
+"""``python -m reconcile``: the command-line app."""
+
+from reconcile.cli.app import main
+
+main()

@@ -1,0 +1,1 @@
+"""The guided capture workflow: plan, settle rule, run and resume, simulated bench."""

@@ -1,0 +1,5 @@
+"""``python -m reconcile.cli``."""
+
+from reconcile.cli.app import main
+
+main()

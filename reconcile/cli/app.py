@@ -1,0 +1,479 @@
+"""The ``reconcile`` command line: a thin typer app.
+
+Each command imports what it needs inside its body, so ``reconcile --help`` stays fast.
+Errors the project raises on purpose (:class:`reconcile.errors.ReconcileError`) become one
+line on stderr and exit code 2 (bad input) or 1 (other known failures); ``--debug``
+shows the traceback instead.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from reconcile.cli.output import emit_json
+from reconcile.errors import InputError, ReconcileError
+
+app = typer.Typer(
+    name="reconcile",
+    help=(
+        "Fit a model of a built transistor board to bench readings: what was built, "
+        "what is wrong with it, and the least rework that restores its spec."
+    ),
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+    rich_markup_mode=None,
+)
+
+_state = {"debug": False}
+
+
+def _register_subcommands() -> None:
+    from reconcile.cli.capture import capture
+    from reconcile.cli.derive import derive_app
+    from reconcile.cli.session import session_app
+
+    app.add_typer(session_app, name="session")
+    app.add_typer(derive_app, name="derive")
+    app.command()(capture)
+
+
+_register_subcommands()
+
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print exactly one JSON object on stdout.")]
+BoardArg = Annotated[Path, typer.Argument(help="Board file (TOML).", show_default=False)]
+
+
+@app.callback()
+def _root(
+    debug: Annotated[bool, typer.Option("--debug", help="Show tracebacks for errors.")] = False,
+) -> None:
+    _state["debug"] = debug
+
+
+def _value_option(text: str | None, kind: str, option: str) -> float | None:
+    if text is None:
+        return None
+    from reconcile.model.values import parse_value
+
+    try:
+        return parse_value(text, kind)
+    except InputError as err:
+        raise err.located(key=option) from None
+
+
+@app.command()
+def solve(
+    board: BoardArg,
+    json: JsonOpt = False,
+    temperature: Annotated[
+        Optional[str],  # noqa: UP045 - typer needs Optional here
+        typer.Option(help="Junction temperature, e.g. '45 C' (default: the board's)."),
+    ] = None,
+) -> None:
+    """Solve the board as drawn: operating point, small signal and the spec check."""
+    from reconcile.model.board_loader import load_board
+    from reconcile.engine.solution import solve as solve_board
+
+    b = load_board(board)
+    sol = solve_board(b, temperature=_value_option(temperature, "temperature", "--temperature"))
+    if json:
+        emit_json(sol.to_dict())
+        return
+    from reconcile.present.render_solve import print_solution
+
+    print_solution(sol)
+
+
+ReadingsArg = Annotated[
+    Optional[Path],  # noqa: UP045
+    typer.Argument(help="Readings file (CSV).", show_default=False),
+]
+PlotOpt = Annotated[
+    Optional[Path],  # noqa: UP045
+    typer.Option("--plot", help="Write a PNG plot to this file."),
+]
+
+
+SessionOpt = Annotated[
+    Optional[str],  # noqa: UP045
+    typer.Option("--session", help="Analyse a stored session (and record the result with it)."),
+]
+StoreOpt = Annotated[
+    Optional[str],  # noqa: UP045
+    typer.Option("--store", help="Store file path or database URL (default: your data folder)."),
+]
+BoardOptArg = Annotated[
+    Optional[Path],  # noqa: UP045
+    typer.Argument(help="Board file (TOML); not needed with --session.", show_default=False),
+]
+
+
+@app.command()
+def fit(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    json: JsonOpt = False,
+    plot: PlotOpt = None,
+    meter_model: Annotated[
+        bool,
+        typer.Option(
+            "--meter-model/--no-meter-model",
+            help="Predict voltage readings with the voltmeter attached (default on).",
+        ),
+    ] = True,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+) -> None:
+    """Fit the built board to its readings: values, uncertainties, miss budget, next reading."""
+    from reconcile.pipeline.analyses import run_fit
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "fit")
+    outcome = run_fit(inputs.board, inputs.readings, model_meter=meter_model)
+    result = outcome.to_dict()
+    recorded = inputs.record("fit", result)
+    if plot is not None:
+        from reconcile.present.plots_fit import plot_fit
+
+        plot_fit(outcome.fit, plot)
+    if json:
+        if recorded:
+            result["recorded"] = recorded
+        emit_json(result)
+        return
+    from reconcile.present.render_fit import print_fit
+
+    print_fit(outcome.fit, outcome.budget, outcome.suggestions)
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
+    if recorded:
+        typer.echo(
+            f"recorded with session {recorded['session']} as analysis {recorded['analysis']}"
+        )
+
+
+class AnalysisInputs:
+    """A board and readings from files or from a stored session, and where to record."""
+
+    def __init__(self, board, readings, session, store, digest) -> None:
+        self.board = board
+        self.readings = readings
+        self.session = session
+        self.store = store
+        self.digest = digest
+
+    @classmethod
+    def gather(
+        cls, board_path, readings_path, session, store, command: str, *, readings_optional=False
+    ):
+        if session is not None:
+            from reconcile.store.sessions import analysis_inputs
+
+            if readings_path is not None:
+                raise InputError(f"{command}: give either READINGS or --session, not both")
+            b, rd, digest = analysis_inputs(session, store=store)
+            if board_path is not None:
+                from reconcile.model.board_loader import load_board
+
+                b = load_board(board_path)
+            return cls(b, rd, session, store, digest)
+        if board_path is None:
+            raise InputError(f"{command} needs a BOARD file (or --session ID)")
+        from reconcile.model.board_loader import load_board
+
+        b = load_board(board_path)
+        if readings_path is None:
+            if readings_optional:
+                return cls(b, None, None, None, None)
+            raise InputError(f"{command} needs a READINGS file (or --session ID)")
+        from reconcile.data.readings import load_readings
+
+        return cls(b, load_readings(readings_path, b), None, None, None)
+
+    def record(self, kind: str, result: dict) -> dict | None:
+        if self.session is None:
+            return None
+        from reconcile.store.sessions import record_analysis
+
+        return record_analysis(
+            self.session, kind, result, inputs_sha256=self.digest, store=self.store
+        )
+
+
+OptStr = Optional[str]  # noqa: UP045 - typer needs Optional here
+
+
+@app.command()
+def lot(
+    first: Annotated[
+        Path, typer.Argument(help="Jig board (TOML), or a sweep file (CSV) on its own.")
+    ],
+    readings: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Argument(help="Jig readings with a device column, or sweep data (CSV)."),
+    ] = None,
+    json: JsonOpt = False,
+    plot: PlotOpt = None,
+    bins: Annotated[OptStr, typer.Option(help="Beta bin edges, e.g. '100,150,200'.")] = None,
+    vbe_limit: Annotated[str, typer.Option(help="Matching: largest VBE difference.")] = "2m",
+    beta_ratio: Annotated[float, typer.Option(help="Matching: largest beta ratio.")] = 1.1,
+    current: Annotated[str, typer.Option(help="Matching: collector current for VBE.")] = "1m",
+    set_size: Annotated[int, typer.Option(help="Devices per matched set.")] = 2,
+    spec_low: Annotated[Optional[float], typer.Option(help="Beta lower spec limit (Cpk).")] = None,  # noqa: UP045
+    spec_high: Annotated[Optional[float], typer.Option(help="Beta upper spec limit (Cpk).")] = None,  # noqa: UP045
+    socket: Annotated[
+        OptStr, typer.Option(help="Jig transistor under test (default: the only one).")
+    ] = None,
+    device_name: Annotated[str, typer.Option(help="Name of the device table written.")] = "lot",
+    early_voltage: Annotated[
+        OptStr, typer.Option(help="Sweeps: VA for the Early correction.")
+    ] = None,
+) -> None:
+    """Characterise a transistor lot from jig readings or sweeps: spread, outliers, pairs."""
+    from reconcile.lot.characterise import run_lot
+
+    jig, data = (first, readings) if readings is not None else (None, first)
+    result = run_lot(
+        jig,
+        data,
+        bins=bins,
+        vbe_limit=_value_option(vbe_limit, "volts", "--vbe-limit"),
+        beta_ratio=beta_ratio,
+        current=_value_option(current, "amps", "--current"),
+        spec_low=spec_low,
+        spec_high=spec_high,
+        socket=socket,
+        set_size=set_size,
+        device_name=device_name,
+        early_voltage=_value_option(early_voltage, "volts", "--early-voltage"),
+    )
+    if plot is not None:
+        from reconcile.present.plots_lot import plot_lot
+
+        plot_lot(result, plot)
+    if json:
+        emit_json(result.to_dict())
+        return
+    from reconcile.present.render_lot import print_lot
+
+    print_lot(result)
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
+
+
+@app.command()
+def diagnose(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    json: JsonOpt = False,
+    weights: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(help="TOML file with [fault_weights] (prior weight per fault kind)."),
+    ] = None,
+    rows: Annotated[int, typer.Option(help="Hypotheses shown in the table.")] = 10,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+) -> None:
+    """Say which single fault best explains the readings, and the check to confirm it."""
+    from reconcile.diagnosis.diagnose import diagnose as run_diagnosis
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "diagnose")
+    prior = None
+    if weights is not None:
+        from reconcile.diagnosis.weights import load_fault_weights
+
+        prior = load_fault_weights(weights)
+    diag = run_diagnosis(inputs.board, inputs.readings, prior_weights=prior)
+    out = diag.to_dict()
+    recorded = inputs.record("diagnose", out)
+    if json:
+        if recorded:
+            out["recorded"] = recorded
+        emit_json(out)
+        return
+    from reconcile.present.render_diagnosis import print_diagnosis
+
+    print_diagnosis(diag, rows=rows)
+    if recorded:
+        typer.echo(
+            f"recorded with session {recorded['session']} as analysis {recorded['analysis']}"
+        )
+
+
+@app.command()
+def trim(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    json: JsonOpt = False,
+    plot: PlotOpt = None,
+    max_changes: Annotated[int, typer.Option(help="Most parts one option changes.")] = 2,
+    top: Annotated[int, typer.Option(help="How many options to show.")] = 10,
+    samples: Annotated[int, typer.Option(help="Monte Carlo samples for the yield.")] = 10_000,
+    seed: Annotated[int, typer.Option(help="Seed of the Monte Carlo draws.")] = 0,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+) -> None:
+    """Propose the least rework (standard values, swaps or parts in parallel) that restores
+    the spec, with its yield. Without readings: design mode on the drawn board."""
+    import numpy as np
+
+    from reconcile.trim.rework import trim as run_trim
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "trim", readings_optional=True)
+    fit_result = None
+    if inputs.readings is not None:
+        from reconcile.inference.fitting import fit_board
+
+        fit_result = fit_board(inputs.board, inputs.readings)
+    result = run_trim(
+        inputs.board,
+        fit_result,
+        max_changes=max_changes,
+        top=top,
+        samples=samples,
+        rng=np.random.default_rng(seed),
+    )
+    out = result.to_dict()
+    if fit_result is not None and fit_result.verdict != "consistent":
+        out["warning"] = (
+            f"the fit's verdict is {fit_result.verdict}: the board may have a fault; "
+            "run diagnose before trusting a trim"
+        )
+    recorded = inputs.record("trim", out)
+    if plot is not None and samples > 0:
+        from reconcile.present.plots_trim import plot_trim
+
+        plot_trim(result, plot)
+    if json:
+        if recorded:
+            out["recorded"] = recorded
+        emit_json(out)
+        return
+    from reconcile.present.render_trim import print_trim
+
+    print_trim(result)
+    if "warning" in out:
+        typer.echo(f"warning: {out['warning']}")
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
+
+
+@app.command()
+def report(
+    board: BoardOptArg = None,
+    readings: ReadingsArg = None,
+    session: SessionOpt = None,
+    store: StoreOpt = None,
+    out: Annotated[Path, typer.Option("--out", help="HTML file to write.")] = Path(
+        "reconcile-report.html"
+    ),
+    lot_jig: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(help="Add a lot: its jig board (TOML), with --lot-readings."),
+    ] = None,
+    lot_readings: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(help="Add a lot: jig readings or sweep data (CSV)."),
+    ] = None,
+    json: JsonOpt = False,
+) -> None:
+    """Write the bench story as one self-contained HTML page (plots embedded)."""
+    import tempfile
+
+    from reconcile.present.report import collect_report, write_report
+
+    inputs = AnalysisInputs.gather(board, readings, session, store, "report")
+    meta = None
+    if session is not None:
+        from reconcile.store.sessions import show_session
+
+        meta = {k: v for k, v in show_session(session, store=store).items() if k != "readings"}
+    lot_result = lot_png = None
+    if lot_readings is not None:
+        from reconcile.lot.characterise import run_lot
+        from reconcile.present.plots_lot import plot_lot
+
+        lot_result = run_lot(lot_jig, lot_readings)
+        with tempfile.TemporaryDirectory() as tmp:
+            lot_png = plot_lot(lot_result, Path(tmp) / "lot.png").read_bytes()
+    with tempfile.TemporaryDirectory() as tmp:
+        data = collect_report(
+            inputs.board,
+            inputs.readings,
+            session=meta,
+            lot_result=lot_result,
+            lot_plot=lot_png,
+            work_dir=Path(tmp),
+        )
+    path = write_report(data, out)
+    recorded = None
+    if session is not None:
+        for kind, result in (("fit", data.fit), ("diagnose", data.diagnosis), ("trim", data.trim)):
+            if result is not None:
+                inputs.record(kind, result)
+        recorded = inputs.record("report", {"path": str(path.resolve()), **data.hashes})
+    summary = {
+        "report": str(path.resolve()),
+        "sections": [
+            k
+            for k in ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot")
+            if k in data.plots or k in ("board", "readings")
+        ],
+        "plots": sorted(data.plots),
+        "hashes": data.hashes,
+        "recorded": recorded,
+    }
+    if json:
+        emit_json(summary)
+    else:
+        typer.echo(f"report written to {path.resolve()}")
+
+
+@app.command()
+def demo(
+    json: JsonOpt = False,
+    out: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option(
+            help="Folder for everything the demo writes (default: ./reconcile-demo-output)."
+        ),
+    ] = None,
+) -> None:
+    """Run the bench story on the bundled sample boards (invented examples)."""
+    from reconcile.cli.demo import run_demo
+
+    run_demo(json_output=json, out_dir=out)
+
+
+def main() -> None:
+    """Console-script entry point with the project's single error handler.
+
+    typer handles usage errors itself (exit 2); everything the project raises on
+    purpose is caught here.
+    """
+    try:
+        app()
+    except ReconcileError as err:
+        if _state["debug"]:
+            raise
+        sys.stderr.write(f"reconcile: {err}\n")
+        sys.exit(err.exit_code)
+    except KeyboardInterrupt:
+        sys.stderr.write("reconcile: interrupted\n")
+        sys.exit(130)
+    except BrokenPipeError:
+        sys.exit(1)
+    except OSError as err:
+        if _state["debug"]:
+            raise
+        name = getattr(err, "filename", None)
+        sys.stderr.write(f"reconcile: {str(name) + ': ' if name else ''}{err.strerror or err}\n")
+        sys.exit(2)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,270 @@
+"""``reconcile capture``: take a session's readings from instruments (thin).
+
+Registered in :mod:`reconcile.cli` with ``app.command()(capture)``. Importing this
+module costs only typer: the instrument layer, pyvisa and the store load inside the
+command.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+from typing import TYPE_CHECKING, Annotated, Any, Optional
+
+import typer
+
+if TYPE_CHECKING:
+    from reconcile.capture.run import CaptureReport, LiveValue
+    from reconcile.capture.plan import ProbeStep
+
+__all__ = ["capture"]
+
+_FileOpt = Optional[Path]  # noqa: UP045 - typer needs Optional here
+_TextOpt = Optional[str]  # noqa: UP045
+
+
+def _shown(value: float, unit: str, digits: int) -> str:
+    from reconcile.model.values import format_si
+
+    return f"{value:.{digits}g}" if not unit else format_si(value, unit, digits)
+
+
+def _value(text: str | None, kind: str, option: str, default: float) -> float:
+    if text is None:
+        return default
+    from reconcile.errors import InputError
+    from reconcile.model.values import parse_value
+
+    try:
+        if kind == "tolerance":
+            from reconcile.model.values import parse_tolerance
+
+            return parse_tolerance(text)
+        return parse_value(text, kind)
+    except InputError as err:
+        raise err.located(key=option) from None
+
+
+class _Screen:
+    """Prints a capture run: a live line per reading, a line per stored reading.
+
+    On a terminal the value updates in place until it settles (rich Live); elsewhere
+    (a pipe, a log file) only the stored readings are printed. With ``--json``
+    everything goes to stderr, so stdout holds the one JSON object.
+    """
+
+    def __init__(self, *, json_output: bool) -> None:
+        from rich.console import Console
+
+        self.console = Console(stderr=json_output, highlight=False, soft_wrap=True)
+        self.live: Any = None
+
+    def _stop_live(self) -> None:
+        if self.live is not None:
+            self.live.stop()
+            self.live = None
+
+    def show(self, event: LiveValue) -> None:
+        if event.stored:
+            self._stop_live()
+            u = (
+                "" if event.uncertainty is None
+                else f" ± {_shown(event.uncertainty, event.unit, 3)}"
+            )
+            self.console.print(
+                f"[green]stored[/] {event.label}: {_shown(event.value, event.unit, 7)}{u}"
+            )
+            return
+        if not self.console.is_terminal:
+            return
+        from rich.live import Live
+        from rich.text import Text
+
+        state = "settled" if event.settled else "settling"
+        text = Text(f"  {event.label}: {_shown(event.value, event.unit, 7)}  "
+                    f"(value {event.sample}, {state})")
+        if self.live is None:
+            self.live = Live(text, console=self.console, auto_refresh=False, transient=True)
+            self.live.start()
+        self.live.update(text, refresh=True)
+
+    def say(self, text: str) -> None:
+        self._stop_live()
+        self.console.print(text, markup=False)
+
+    def ask(self, step: ProbeStep) -> str:
+        """The operator's prompt: the step's text, then wait for Enter (Ctrl-C stops)."""
+        from reconcile.errors import InputError
+
+        self._stop_live()
+        self.console.print(f">> {step.text} ", end="", markup=False)
+        self.console.file.flush()
+        line = sys.stdin.readline()
+        if line == "":
+            self.console.print()
+            raise InputError(
+                "capture needs an operator at the terminal to place the probe, but input "
+                "is closed; use a scanner whose [channels] reach every node, or --simulate",
+                key="prompt")
+        return line.strip()
+
+    def simulated(self, operator: Any) -> Any:
+        """Wrap the simulated operator so that its steps are shown."""
+
+        def prompt(step: ProbeStep) -> str | None:
+            self.say(f">> {step.text} [simulated operator]")
+            return operator(step)
+
+        return prompt
+
+    def summary(self, report: CaptureReport) -> None:
+        from rich.table import Table
+
+        self._stop_live()
+        table = Table(title=f"Capture into session {report.session}", title_justify="left")
+        for col in ("id", "quantity", "at", "value", "uncertainty", "values read"):
+            table.add_column(col, justify="right" if col in ("id", "values read") else "left")
+        for t in report.taken:
+            r = t.reading
+            table.add_row(str(t.id), r.quantity, r.at, _shown(r.value, r.unit, 7),
+                          _shown(r.uncertainty or 0.0, r.unit, 3), str(t.samples))
+        self.console.print(table)
+        for p in report.skipped_existing:
+            self.console.print(f"skipped {p.label}: already in the session")
+        for p, why in report.skipped:
+            self.console.print(f"skipped {p.label}: {why}")
+        self.console.print(f"{len(report.taken)} readings stored by this run; the session "
+                           f"now holds {report.stored_total}")
+
+
+def capture(
+    board: Annotated[Path, typer.Argument(help="Board file (TOML) of the session.",
+                                          show_default=False)],
+    session: Annotated[str, typer.Option("--session", help="Session id to capture into.",
+                                         show_default=False)],
+    store: Annotated[_TextOpt, typer.Option(
+        "--store", help="Store file path or database URL (default: your data folder).")] = None,
+    dmm: Annotated[_FileOpt, typer.Option(
+        "--dmm", help="Instrument file of the DC voltmeter (also the AC one if it has the role).",
+    )] = None,
+    supply: Annotated[Optional[list[str]], typer.Option(  # noqa: UP045
+        "--supply", help="Instrument file of the bench supply, FILE or REF=FILE (repeatable).",
+    )] = None,
+    scanner: Annotated[_FileOpt, typer.Option(
+        "--scanner", help="Instrument file of a scanner; its [channels] map channels to nodes.",
+    )] = None,
+    ac_meter: Annotated[_FileOpt, typer.Option(
+        "--ac-meter", help="Instrument file of the AC voltmeter (default: the DMM).")] = None,
+    generator: Annotated[_FileOpt, typer.Option(
+        "--generator", help="Instrument file of the function generator.")] = None,
+    gain: Annotated[bool, typer.Option(
+        "--gain/--no-gain", help="Also take the small-signal gain.")] = False,
+    series_resistor: Annotated[_TextOpt, typer.Option(
+        "--series-resistor",
+        help="Also take the input resistance by the series-resistor method, with this "
+             "resistor (e.g. 75, 1k).")] = None,
+    series_tolerance: Annotated[str, typer.Option(
+        "--series-tolerance", help="Tolerance of the series resistor.")] = "1%",
+    signal: Annotated[_TextOpt, typer.Option(
+        "--signal", help="Generator amplitude in V rms (default 10m).")] = None,
+    settle_count: Annotated[int, typer.Option(
+        "--settle-count", help="Consecutive values that must agree.")] = 3,
+    settle_band: Annotated[_TextOpt, typer.Option(
+        "--settle-band", help="Absolute settle band for voltages (default 0.1m V).")] = None,
+    settle_band_current: Annotated[_TextOpt, typer.Option(
+        "--settle-band-current", help="Absolute settle band for currents (default 1u A).",
+    )] = None,
+    max_samples: Annotated[int, typer.Option(
+        "--max-samples", help="Values read at most before a reading is given up.")] = 50,
+    interval: Annotated[_TextOpt, typer.Option(
+        "--interval", help="Time between values, s (default 0.2 s; 0 with --simulate).",
+    )] = None,
+    simulate: Annotated[_FileOpt, typer.Option(
+        "--simulate",
+        help="Use a simulated bench answering for this hidden board file instead of "
+             "instruments (instrument files then optional).")] = None,
+    seed: Annotated[int, typer.Option("--seed", help="Noise seed of the simulated bench.")] = 0,
+    json: Annotated[bool, typer.Option(
+        "--json", help="Print exactly one JSON object on stdout.")] = False,
+) -> None:
+    """Take a session's readings from instruments: probe, settle, store each at once.
+
+    Plans every node voltage, each supply's current and (with --gain, --series-resistor)
+    the small-signal readings; prompts for each probe position unless a scanner reaches
+    it; stores every reading as soon as it settles. Run it again after an interruption:
+    readings already in the session are skipped.
+    """
+    from reconcile.capture.bench_setup import open_bench, parse_supply_options, simulated_bench
+    from reconcile.capture.run import (
+        DEFAULT_SETTLE_BAND_A,
+        DEFAULT_SETTLE_BAND_V,
+        DEFAULT_SIGNAL_VRMS,
+        Capture,
+        CaptureInterrupted,
+    )
+
+    from reconcile.model.board_loader import load_board
+    from reconcile.errors import InputError
+    from reconcile.store.database import open_store
+
+    design = load_board(board)
+    supplies = parse_supply_options(supply or [], design)
+    band_v = _value(settle_band, "volts", "--settle-band", DEFAULT_SETTLE_BAND_V)
+    band_a = _value(settle_band_current, "amps", "--settle-band-current", DEFAULT_SETTLE_BAND_A)
+    signal_vrms = _value(signal, "volts", "--signal", DEFAULT_SIGNAL_VRMS)
+    interval_s = _value(interval, "seconds", "--interval", 0.0 if simulate else 0.2)
+    r_series = _value(series_resistor, "ohms", "--series-resistor", 0.0) or None
+    tolerance = _value(series_tolerance, "tolerance", "--series-tolerance", 0.01)
+    screen = _Screen(json_output=json)
+
+    if simulate is not None:
+        bench = simulated_bench(load_board(simulate), seed=seed, dmm=dmm, supplies=supplies,
+                                scanner=scanner, ac_meter=ac_meter, generator=generator)
+        prompt = screen.simulated(bench.prompt)
+    else:
+        if dmm is None:
+            raise InputError("capture needs --dmm FILE (or --simulate TRUE_BOARD)", key="--dmm")
+        bench = open_bench(dmm=dmm, supplies=supplies, scanner=scanner, ac_meter=ac_meter,
+                           generator=generator)
+        prompt = screen.ask
+    run = None
+    try:
+        with open_store(store) as db:
+            run = Capture(
+                design, db, session,
+                voltmeter=bench.voltmeter, supply=bench.supplies or None,
+                scanner=bench.scanner, ac_voltmeter=bench.ac_voltmeter,
+                generator=bench.generator, gain=gain,
+                input_resistance=r_series is not None,
+                series_resistor_ohm=r_series,
+                series_resistor_u_ohm=(r_series or 0.0) * tolerance / 3.0**0.5,
+                signal_vrms=signal_vrms, settle_count=settle_count, settle_band_v=band_v,
+                settle_band_a=band_a, max_samples=max_samples, sample_interval_s=interval_s,
+                prompt=prompt, show=screen.show,
+            )
+            try:
+                report = run.run()
+            except CaptureInterrupted as stop:
+                if json:
+                    _emit(stop.report.to_dict())
+                else:
+                    screen.summary(stop.report)
+                raise
+    except KeyboardInterrupt:
+        if run is not None:
+            done = run.progress()
+            screen.say(f"capture interrupted: {len(done.taken)} readings of this run are "
+                       f"stored in session {done.session}; run it again to resume")
+        raise
+    finally:
+        bench.close()
+    if json:
+        _emit(report.to_dict())
+    else:
+        screen.summary(report)
+
+
+def _emit(obj: object) -> None:
+    from reconcile.jsonout import dumps
+
+    sys.stdout.write(dumps(obj) + "\n")

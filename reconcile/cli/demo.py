@@ -1,0 +1,295 @@
+"""``reconcile demo``: the whole bench story on the bundled, invented sample data.
+
+The scenario (invented): a 75-ohm line receiver, a common-base stage, was designed for a
+gain of 10 and an input resistance of 75 ohm. Unit LR-0042 came off the line at a gain
+of about 9.2 and 85 ohm. The demo
+
+1. solves the design under the exact model (it meets its spec);
+2. opens a session for LR-0042 and captures its readings from a simulated bench (a
+   scanner routes the meter; the bench answers for a hidden board,
+   ``sample_data/line_receiver_lr0042_truth.toml``, plus noise);
+3. fits the built board to the readings (what was built, miss budget, next readings);
+4. asks which single fault explains them, takes the reading the diagnosis suggests
+   (on the simulated bench) and asks again;
+5. proposes the least rework and its yield, and checks it against the hidden board;
+6. characterises a small transistor lot from a jig;
+7. writes the HTML report.
+
+Everything goes into one folder (default ``./reconcile-demo-output``), the session store
+included; nothing is written anywhere else.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+from pathlib import Path
+
+DESIGN_BOARD = "line_receiver_cb.toml"
+HIDDEN_TRUTH = "line_receiver_lr0042_truth.toml"
+LOT_JIG = "lot_jig.toml"
+LOT_READINGS = "lot_jig_readings.csv"
+SERIAL = "LR-0042"
+SEED = 42
+MAX_EXTRA_READINGS = 3
+CONFIDENT = 0.8
+
+CAUTIONS = (
+    "Bench safety: the sample data is invented. On a real bench follow your local lab "
+    "rules and qualified practice: power off and let supplies and capacitors discharge "
+    "before any rework, keep mains-powered instruments properly earthed, use ESD "
+    "protection for transistors, set the supply's current limit, and check the ratings "
+    "of every part you add."
+)
+
+
+def sample_data_dir() -> Path:
+    """The bundled sample_data folder (the working directory's, else the source tree's)."""
+    here = Path(__file__).resolve().parent
+    for candidate in (Path.cwd() / "sample_data", here.parent / "sample_data"):
+        if (candidate / DESIGN_BOARD).is_file():
+            return candidate
+    from reconcile.errors import InputError
+
+    raise InputError("the bundled sample_data folder was not found (run from the repository)")
+
+
+def run_demo(*, json_output: bool = False, out_dir: Path | None = None) -> dict:
+    """Run the story; print it (or, with ``json_output``, one JSON object)."""
+    import numpy as np
+    from rich.console import Console
+
+    data = sample_data_dir()
+    out = Path(out_dir) if out_dir is not None else Path.cwd() / "reconcile-demo-output"
+    out.mkdir(parents=True, exist_ok=True)
+    # matplotlib keeps a font cache; keep even that inside the demo's folder.
+    os.environ.setdefault("MPLCONFIGDIR", str(out / ".matplotlib"))
+    console = Console(stderr=json_output, quiet=json_output)
+    rng = np.random.default_rng(SEED)
+    story = _Story(data, out, console, rng)
+    console.print(f"[bold]reconcile demo[/] — an invented bench story, data from {data}")
+    console.print(f"[yellow]{CAUTIONS}[/]\n")
+    summary = story.run()
+    summary["cautions"] = CAUTIONS
+    console.print(f"\n[bold]Everything the demo wrote is in[/] {out}")
+    console.print(f"[bold]Report:[/] {summary['files']['report']}")
+    if json_output:
+        from reconcile.cli.output import emit_json
+
+        emit_json(summary)
+    return summary
+
+
+class _Story:
+    def __init__(self, data: Path, out: Path, console, rng) -> None:
+        self.data, self.out, self.console, self.rng = data, out, console, rng
+        self.summary: dict = {"sample_data": str(data), "output_folder": str(out), "files": {}}
+
+    def step(self, title: str) -> None:
+        self.console.rule(title)
+
+    def run(self) -> dict:
+        from reconcile.model.board_loader import load_board
+        from reconcile.store.database import open_store
+
+        design = load_board(self.data / DESIGN_BOARD)
+        truth = load_board(self.data / HIDDEN_TRUTH)
+        self.design_check(design)
+        store_path = self.out / "sessions.sqlite"
+        with open_store(str(store_path)) as store:
+            sid = store.create_session(
+                design, serial=SERIAL, operator="demo", notes="invented demo scenario"
+            )
+            self.summary["session"] = {"id": sid, "store": str(store_path)}
+            self.capture(design, truth, store, sid)
+            _, readings = store.session_inputs(sid)
+            outcome = self.fit(design, readings)
+            store.record_analysis(
+                sid, "fit", outcome.to_dict(), inputs_sha256=self._digest(design, readings)
+            )
+            diag, readings = self.diagnose(design, truth, store, sid, readings)
+            outcome = self.fit(design, readings, quiet=True)
+            trim_result = self.trim(design, truth, outcome)
+            store.record_analysis(
+                sid, "diagnose", diag.to_dict(), inputs_sha256=self._digest(design, readings)
+            )
+            store.record_analysis(
+                sid, "trim", trim_result.to_dict(), inputs_sha256=self._digest(design, readings)
+            )
+            lot, lot_png = self.lot()
+            self.report(design, readings, outcome, diag, trim_result, lot, lot_png, store, sid)
+            store.end_session(sid, note="demo complete")
+        return self.summary
+
+    @staticmethod
+    def _digest(board, readings) -> str:
+        from reconcile.data.digest import inputs_sha256
+
+        return inputs_sha256(board, readings)
+
+    # ------------------------------------------------------------------ steps
+    def design_check(self, design) -> None:
+        from reconcile.present.render_solve import print_solution
+        from reconcile.engine.solution import solve
+
+        self.step("1. The design, under the exact model")
+        sol = solve(design)
+        self.summary["design"] = sol.to_dict()
+        print_solution(sol, self.console)
+
+    def capture(self, design, truth, store, sid) -> None:
+        from reconcile.capture.simulated_bench import capture_simulated_demo
+
+        self.step(f"2. Unit {SERIAL}: readings captured from a simulated bench")
+        self.console.print(
+            "A scanner routes the DMM to every node, the supply reads back its current, and "
+            "a generator with an AC meter gives the gain and (series-resistor method) the "
+            "input resistance. The bench answers for a hidden board, plus noise."
+        )
+        report = capture_simulated_demo(design, truth, store, sid, self.rng)
+        self.summary["capture"] = report.to_dict()
+        from rich.table import Table
+
+        t = Table(title=f"Captured into session {sid}", title_justify="left")
+        for col in ("reading", "value", "u", "instrument"):
+            t.add_column(col)
+        for taken in report.taken:
+            r = taken.reading
+            t.add_row(
+                f"{r.quantity} {r.at}".strip(),
+                f"{r.value:.6g}",
+                f"{r.uncertainty:.2g}",
+                r.instrument,
+            )
+        self.console.print(t)
+
+    def fit(self, design, readings, *, quiet: bool = False):
+        from reconcile.pipeline.analyses import run_fit
+
+        outcome = run_fit(design, readings)
+        if quiet:
+            self.summary["fit_after_new_reading"] = outcome.to_dict()
+            return outcome
+        self.step("3. What was built: the fit")
+        from reconcile.present.plots_fit import plot_fit
+        from reconcile.present.render_fit import print_fit
+
+        print_fit(outcome.fit, outcome.budget, outcome.suggestions, self.console)
+        path = plot_fit(outcome.fit, self.out / "fit.png")
+        self.summary["fit"] = outcome.to_dict()
+        self.summary["files"]["fit_plot"] = str(path)
+        return outcome
+
+    def diagnose(self, design, truth, store, sid, readings):
+        from reconcile.diagnosis.diagnose import diagnose
+        from reconcile.present.render_diagnosis import print_diagnosis
+        from reconcile.inference.simulate import simulate_readings
+
+        self.step("4. What is wrong with it: single-fault diagnosis")
+        diag = diagnose(design, readings)
+        print_diagnosis(diag, self.console, rows=6)
+        self.summary["diagnosis_first"] = diag.to_dict()
+        taken = []
+        for _ in range(MAX_EXTRA_READINGS):
+            nxt = diag.next_reading
+            if nxt is None or diag.top.probability >= CONFIDENT:
+                break
+            label = f"{nxt.quantity} {nxt.at}".strip()
+            self.console.print(
+                f"\nThe diagnosis asks for one more reading: [bold]{label}[/]. Taking it on "
+                "the simulated bench (for a part out of circuit: power off first)."
+            )
+            new = simulate_readings(
+                truth, [(nxt.quantity, nxt.at)], rng=self.rng, note="demo: suggested"
+            )
+            store.add_readings(sid, new, source="demo")
+            taken.append({"quantity": nxt.quantity, "at": nxt.at, "value": new[0].value})
+            _, readings = store.session_inputs(sid)
+            diag = diagnose(design, readings)
+            self.console.print(f"[bold]With {label} = {new[0].value:.5g}:[/]")
+            print_diagnosis(diag, self.console, rows=6)
+        self.summary["extra_readings"] = taken
+        self.summary["diagnosis"] = diag.to_dict()
+        return diag, readings
+
+    def trim(self, design, truth, outcome):
+        import dataclasses
+
+        from reconcile.present.plots_trim import plot_trim
+        from reconcile.present.render_trim import print_trim
+        from reconcile.engine.solution import check_spec, solve
+        from reconcile.trim.rework import trim
+
+        self.step("5. The least rework that restores the spec, and its yield")
+        result = trim(design, outcome.fit, rng=self.rng)
+        print_trim(result, self.console)
+        self.summary["trim"] = result.to_dict()
+        try:
+            self.summary["files"]["trim_plot"] = str(plot_trim(result, self.out / "trim.png"))
+        except Exception:  # no option with draws: the table says why
+            pass
+        best = result.best
+        if best is not None and best.changes:
+            reworked = truth
+            for c in best.changes:
+                built = truth.resistors[c.ref].ohms
+                ohms = c.ohms if c.action == "replace" else built * c.ohms / (built + c.ohms)
+                reworked = reworked.replace_part(
+                    dataclasses.replace(truth.resistors[c.ref], ohms=ohms)
+                )
+            after = solve(reworked)
+            checks = check_spec(design, after.small_signal or {})
+            verdict = all(ch.met for ch in checks)
+            self.summary["hidden_board_after_rework"] = {
+                "small_signal": after.small_signal,
+                "meets_spec": verdict,
+            }
+            values = ", ".join(f"{ch.quantity} {ch.value:.4g}" for ch in checks)
+            self.console.print(
+                f"The hidden board with that rework: {values} — "
+                + ("[green]meets its spec[/]" if verdict else "[red]still misses[/]")
+                + " (the demo can check this; on a real bench, measure again after rework)."
+            )
+        return result
+
+    def lot(self):
+        from reconcile.lot.characterise import run_lot
+        from reconcile.present.plots_lot import plot_lot
+        from reconcile.present.render_lot import print_lot
+
+        self.step("6. A new transistor lot, measured in a jig")
+        lot = run_lot(self.data / LOT_JIG, self.data / LOT_READINGS)
+        print_lot(lot, self.console)
+        path = plot_lot(lot, self.out / "lot.png")
+        self.summary["lot"] = lot.to_dict()
+        self.summary["files"]["lot_plot"] = str(path)
+        return lot, path.read_bytes()
+
+    def report(
+        self, design, readings, outcome, diag, trim_result, lot, lot_png, store, sid
+    ) -> None:
+        from reconcile.present.report import collect_report, write_report
+
+        self.step("7. The report")
+        meta = {k: v for k, v in store.show_session(sid).to_dict().items() if k != "readings"}
+        data = collect_report(
+            design,
+            readings,
+            session=meta,
+            lot_result=lot,
+            lot_plot=lot_png,
+            work_dir=self.out / "work",
+            outcome=outcome,
+            diagnosis=diag,
+            trim_result=trim_result,
+        )
+        path = write_report(data, self.out / "report.html")
+        shutil.rmtree(self.out / "work", ignore_errors=True)
+        store.record_analysis(
+            sid,
+            "report",
+            {"path": str(path), **data.hashes},
+            inputs_sha256=data.hashes["readings_sha256"],
+        )
+        self.summary["files"]["report"] = str(path)
+        self.console.print(f"report written to {path}")

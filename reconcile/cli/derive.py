@@ -1,0 +1,137 @@
+"""``reconcile derive ...``: gain and input resistance worked out from typed AC readings.
+
+The same helpers the capture run uses (:mod:`reconcile.derived_readings`), for readings
+taken by hand: the result is printed as a readings-file row, ready to paste, with its
+propagated standard uncertainty (JCGM 100:2008, first order).
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from typing import Annotated
+
+import typer
+
+derive_app = typer.Typer(
+    name="derive",
+    help="Work out gain or input resistance from AC voltage readings, with uncertainty.",
+    no_args_is_help=True,
+    add_completion=False,
+    pretty_exceptions_enable=False,
+    rich_markup_mode=None,
+)
+
+AC_DEFAULT = "1%"
+"""Default standard uncertainty of a typed AC voltage reading: 1 % of reading (common
+practice for a bench AC meter or an oscilloscope's rms measurement)."""
+
+JsonOpt = Annotated[bool, typer.Option("--json", help="Print exactly one JSON object on stdout.")]
+
+
+def _volts(text: str, option: str) -> float:
+    from reconcile.errors import InputError
+    from reconcile.model.values import parse_value
+
+    try:
+        return parse_value(text, "volts")
+    except InputError as err:
+        raise err.located(key=option) from None
+
+
+def _u(text: str, value: float, kind: str, option: str) -> float:
+    """A standard uncertainty: ``1%`` of the value, or an absolute value string."""
+    from reconcile.errors import InputError
+    from reconcile.model.values import parse_tolerance, parse_value
+
+    try:
+        if text.strip().endswith(("%", "ppm")):
+            return abs(value) * parse_tolerance(text)
+        return parse_value(text, kind)
+    except InputError as err:
+        raise err.located(key=option) from None
+
+
+def _emit(quantity: str, value: float, u: float, unit: str, note: str, json: bool) -> None:
+    if json:
+        from reconcile.cli.output import emit_json
+
+        emit_json(
+            {"quantity": quantity, "value": value, "uncertainty": u, "unit": unit, "note": note}
+        )
+        return
+    # Two significant digits of the uncertainty decide how many decimals the value keeps.
+    decimals = max(0, 1 - int(math.floor(math.log10(u)))) if u > 0 else 6
+    import csv
+
+    writer = csv.writer(sys.stdout, lineterminator="\n")
+    writer.writerow(["quantity", "at", "value", "unit", "uncertainty", "instrument", "note"])
+    writer.writerow([quantity, "", f"{value:.{decimals}f}", unit, f"{u:.2g}", "", note])
+
+
+@derive_app.command("gain")
+def derive_gain(
+    vin: Annotated[str, typer.Option(help="AC voltage at the input node, rms (e.g. 10.2m).")],
+    vout: Annotated[str, typer.Option(help="AC voltage at the output node, rms.")],
+    u_vin: Annotated[str, typer.Option(help="Its standard uncertainty (value or %).")] = AC_DEFAULT,
+    u_vout: Annotated[
+        str, typer.Option(help="Its standard uncertainty (value or %).")
+    ] = AC_DEFAULT,
+    correlation: Annotated[
+        float, typer.Option(help="Correlation of the two readings' errors.")
+    ] = 0.0,
+    json: JsonOpt = False,
+) -> None:
+    """Gain = Vout / Vin from two AC readings."""
+    from reconcile.data.derived_readings import gain_from_ac
+
+    v_in, v_out = _volts(vin, "--vin"), _volts(vout, "--vout")
+    g = gain_from_ac(
+        v_in,
+        _u(u_vin, v_in, "volts", "--u-vin"),
+        v_out,
+        _u(u_vout, v_out, "volts", "--u-vout"),
+        correlation,
+    )
+    _emit("gain", g.value, g.uncertainty, "", f"from Vin {vin} and Vout {vout}", json)
+
+
+@derive_app.command("input-resistance")
+def derive_input_resistance(
+    v1: Annotated[
+        str, typer.Option(help="AC voltage at the generator side of the series resistor.")
+    ],
+    v2: Annotated[str, typer.Option(help="AC voltage at the board input.")],
+    r_series: Annotated[str, typer.Option(help="The series resistor, e.g. 75R or 1k.")],
+    r_tolerance: Annotated[str, typer.Option(help="Its tolerance (read as rectangular).")] = "1%",
+    u_v1: Annotated[
+        str, typer.Option(help="Standard uncertainty of V1 (value or %).")
+    ] = AC_DEFAULT,
+    u_v2: Annotated[
+        str, typer.Option(help="Standard uncertainty of V2 (value or %).")
+    ] = AC_DEFAULT,
+    correlation: Annotated[float, typer.Option(help="Correlation of the V1 and V2 errors.")] = 0.0,
+    json: JsonOpt = False,
+) -> None:
+    """Input resistance by the series-resistor method: Rin = Rs·V2/(V1 − V2)."""
+    from reconcile.data.derived_readings import input_resistance_series_method
+    from reconcile.errors import InputError
+    from reconcile.model.values import parse_tolerance, parse_value
+
+    a, b = _volts(v1, "--v1"), _volts(v2, "--v2")
+    try:
+        rs = parse_value(r_series, "ohms")
+        u_rs = rs * parse_tolerance(r_tolerance) / math.sqrt(3.0)  # GUM 4.3.7
+    except InputError as err:
+        raise err.located(key="--r-series/--r-tolerance") from None
+    r = input_resistance_series_method(
+        a, _u(u_v1, a, "volts", "--u-v1"), b, _u(u_v2, b, "volts", "--u-v2"), rs, u_rs, correlation
+    )
+    _emit(
+        "input_resistance",
+        r.value,
+        r.uncertainty,
+        "ohm",
+        f"series-resistor method, Rs {r_series}",
+        json,
+    )

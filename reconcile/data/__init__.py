@@ -1,0 +1,1 @@
+"""What was read on the bench: readings files, instrument accuracy, derived readings."""

@@ -1,0 +1,202 @@
+"""Readings computed from other readings, with first-order (GUM) uncertainty.
+
+Two bench quantities are not read directly but worked out from AC voltmeter readings:
+
+- the small-signal gain, ``G = V_out / V_in`` (two rms readings);
+- the input resistance by the series-resistor method: a known resistor ``Rs`` sits
+  between generator and board input; ``V1`` is read at its generator side and ``V2``
+  at the board input. The same current flows through ``Rs`` and into the board, so
+  ``(V1 − V2)/Rs = V2/Rin`` and ``Rin = Rs·V2/(V1 − V2)``. This assumes the input looks
+  resistive at the test frequency (V1 and V2 in phase); otherwise the rms readings do
+  not subtract.
+
+Uncertainty is propagated by the law of propagation of uncertainty, JCGM 100:2008
+eq. (10) for uncorrelated inputs, with the correlation term of eq. (16) (5.2.2, from
+memory) when two readings share an error (one meter on one range often makes them
+positively correlated, which lowers the uncertainty of a ratio). Sensitivity
+coefficients are written out analytically in each function. First order is sound when
+relative uncertainties are small; for ``V1 − V2`` close to its own uncertainty it is
+not, and a Monte Carlo run (JCGM 101:2008) should be preferred.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import NamedTuple
+
+from reconcile.errors import InputError
+
+__all__ = ["Derived", "gain_from_ac", "input_resistance_series_method"]
+
+
+class Derived(NamedTuple):
+    """A derived value and its standard uncertainty (same unit)."""
+
+    value: float
+    uncertainty: float
+
+
+def _number(value: float, key: str) -> float:
+    try:
+        number = float(value)
+    except (TypeError, ValueError) as exc:
+        raise InputError(f"expected a number, got {value!r}", key=key) from exc
+    if not math.isfinite(number):
+        raise InputError(f"expected a finite number, got {value!r}", key=key)
+    return number
+
+
+def _uncertainty(value: float, key: str) -> float:
+    number = _number(value, key)
+    if number < 0:
+        raise InputError(f"a standard uncertainty cannot be negative, got {value!r}", key=key)
+    return number
+
+
+def _correlation(value: float) -> float:
+    number = _number(value, "correlation")
+    if not -1.0 <= number <= 1.0:
+        raise InputError(f"a correlation coefficient lies in [-1, 1], got {value!r}",
+                         key="correlation")
+    return number
+
+
+def gain_from_ac(
+    v_in: float,
+    u_v_in: float,
+    v_out: float,
+    u_v_out: float,
+    correlation: float = 0.0,
+) -> Derived:
+    """Voltage gain from two AC rms readings, with its standard uncertainty.
+
+    ``G = V_out / V_in``. Sensitivity coefficients::
+
+        c_in  = ∂G/∂V_in  = −V_out / V_in²
+        c_out = ∂G/∂V_out =  1 / V_in
+
+    and (JCGM 100:2008 eq. (10), plus the eq. (16) correlation term)::
+
+        u²(G) = c_in²·u²(V_in) + c_out²·u²(V_out) + 2·r·c_in·c_out·u(V_in)·u(V_out)
+
+    Parameters
+    ----------
+    v_in : float
+        Input rms voltage, V; > 0.
+    u_v_in : float
+        Its standard uncertainty, V.
+    v_out : float
+        Output rms voltage, V; >= 0.
+    u_v_out : float
+        Its standard uncertainty, V.
+    correlation : float
+        Correlation coefficient r of the two readings' errors, in [-1, 1] (default 0).
+
+    Returns
+    -------
+    Derived
+        ``(gain, u)``, both dimensionless.
+
+    Raises
+    ------
+    InputError
+        ``v_in <= 0``, ``v_out < 0``, a negative uncertainty, or ``|r| > 1``.
+    """
+    vi = _number(v_in, "v_in")
+    vo = _number(v_out, "v_out")
+    ui = _uncertainty(u_v_in, "u_v_in")
+    uo = _uncertainty(u_v_out, "u_v_out")
+    r = _correlation(correlation)
+    if vi <= 0:
+        raise InputError(f"the input rms voltage must be > 0 V, got {vi:g} V", key="v_in")
+    if vo < 0:
+        raise InputError(f"an rms voltage cannot be negative, got {vo:g} V", key="v_out")
+    gain = vo / vi
+    c_in = -vo / vi**2
+    c_out = 1.0 / vi
+    variance = (c_in * ui) ** 2 + (c_out * uo) ** 2 + 2.0 * r * c_in * c_out * ui * uo
+    return Derived(gain, math.sqrt(max(variance, 0.0)))
+
+
+def input_resistance_series_method(
+    v1: float,
+    u_v1: float,
+    v2: float,
+    u_v2: float,
+    r_series: float,
+    u_r_series: float,
+    correlation: float = 0.0,
+) -> Derived:
+    """Input resistance from the series-resistor method, with its standard uncertainty.
+
+    ``Rin = Rs·V2 / (V1 − V2)``, where ``V1`` is the rms voltage at the generator side of
+    the series resistor ``Rs`` and ``V2`` the rms voltage at the board input. With
+    ``D = V1 − V2`` the sensitivity coefficients are::
+
+        c_Rs = ∂Rin/∂Rs = V2 / D
+        c_V1 = ∂Rin/∂V1 = −Rs·V2 / D²
+        c_V2 = ∂Rin/∂V2 = Rs/D + Rs·V2/D² = Rs·V1 / D²
+
+    and (JCGM 100:2008 eq. (10), plus the eq. (16) term for correlated V1, V2)::
+
+        u²(Rin) = c_Rs²·u²(Rs) + c_V1²·u²(V1) + c_V2²·u²(V2) + 2·r·c_V1·c_V2·u(V1)·u(V2)
+
+    Parameters
+    ----------
+    v1 : float
+        Rms voltage at the generator side of ``Rs``, V.
+    u_v1 : float
+        Its standard uncertainty, V.
+    v2 : float
+        Rms voltage at the board input, V; > 0 and < ``v1``.
+    u_v2 : float
+        Its standard uncertainty, V.
+    r_series : float
+        The series resistor, ohm; > 0.
+    u_r_series : float
+        Its standard uncertainty, ohm.
+    correlation : float
+        Correlation coefficient r of the V1 and V2 errors, in [-1, 1] (default 0).
+
+    Returns
+    -------
+    Derived
+        ``(rin, u)``, ohm.
+
+    Raises
+    ------
+    InputError
+        ``v1 <= v2`` (impossible for a resistive load: the leads may be swapped),
+        ``v2 <= 0``, ``r_series <= 0``, a negative uncertainty, or ``|r| > 1``.
+    """
+    a = _number(v1, "v1")
+    b = _number(v2, "v2")
+    rs = _number(r_series, "r_series")
+    ua = _uncertainty(u_v1, "u_v1")
+    ub = _uncertainty(u_v2, "u_v2")
+    urs = _uncertainty(u_r_series, "u_r_series")
+    r = _correlation(correlation)
+    if rs <= 0:
+        raise InputError(f"the series resistor must be > 0 ohm, got {rs:g} ohm",
+                         key="r_series")
+    if b <= 0:
+        raise InputError(f"the board-input voltage V2 must be > 0 V, got {b:g} V", key="v2")
+    if a <= b:
+        raise InputError(
+            f"V1 (generator side of the series resistor, {a:g} V) must be greater than "
+            f"V2 (board input, {b:g} V) for a resistive load; the probe leads may be "
+            "swapped between the two points",
+            key="v1",
+        )
+    d = a - b
+    rin = rs * b / d
+    c_rs = b / d
+    c_v1 = -rs * b / d**2
+    c_v2 = rs * a / d**2
+    variance = (
+        (c_rs * urs) ** 2
+        + (c_v1 * ua) ** 2
+        + (c_v2 * ub) ** 2
+        + 2.0 * r * c_v1 * c_v2 * ua * ub
+    )
+    return Derived(rin, math.sqrt(max(variance, 0.0)))

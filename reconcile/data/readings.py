@@ -1,0 +1,546 @@
+"""Bench readings: the readings CSV file (the contract's section 3).
+
+One row per reading::
+
+    quantity,at,value,unit,uncertainty,instrument,note[,device]
+
+- ``quantity`` is one of :data:`QUANTITIES`; ``at`` says where (see below);
+- ``value`` is a value string (:mod:`reconcile.values`: ``0.54m``, ``9.93k``, ``4k7``)
+  read together with ``unit`` (``V``, ``A``, ``mA``, ``ohm``, ``kΩ``, ``F``, ``C``,
+  ``K`` or blank), which must fit the quantity;
+- ``uncertainty`` is one standard uncertainty. A bare number is in the reading's unit
+  (``0.01`` with unit ``mA`` is 10 µA); a value string with its own prefix or unit stands
+  for itself (``2u`` is 2e-6 in SI); ``1%`` is 1 % of the reading; blank means the
+  documented default (:data:`DEFAULT_UNCERTAINTY`, :func:`default_uncertainty`). A
+  temperature's uncertainty is in kelvin (the same size as a degree Celsius);
+- ``at``: a node, or ``a/b`` for V(a) − V(b) (voltage); a supply ref or a resistor ref
+  (current); a resistor ref (resistance, measured out of circuit); a capacitor ref
+  (capacitance); blank for gain, input_resistance, output_resistance and temperature.
+  ``0`` is ``gnd``.
+
+Header names are case-insensitive; only ``quantity`` and ``value`` are required.
+Lines starting with ``#`` and blank lines are skipped; a UTF-8 byte-order mark is
+allowed. Every bad row is reported, with file and line, in one
+:class:`reconcile.errors.InputErrors`.
+"""
+
+from __future__ import annotations
+
+import csv
+import difflib
+import io
+import math
+import os
+import re
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, field
+
+from reconcile.model.board import GND, Board
+from reconcile.errors import InputError, InputErrors
+from reconcile.model.text_files import read_text
+from reconcile.model.values import KINDS, ZERO_CELSIUS_K, parse_value
+
+__all__ = [
+    "COLUMNS",
+    "COUNTS_FULL_SCALE",
+    "DEFAULT_UNCERTAINTY",
+    "QUANTITIES",
+    "Reading",
+    "UncertaintyRule",
+    "default_uncertainty",
+    "load_readings",
+    "readings_from_text",
+    "readings_to_csv",
+    "standard_uncertainty",
+]
+
+#: Columns in the order they are written; ``device`` only when a reading has one.
+COLUMNS = ("quantity", "at", "value", "unit", "uncertainty", "instrument", "note", "device")
+_REQUIRED_COLUMNS = ("quantity", "value")
+
+#: quantity -> (value kind for :func:`reconcile.values.parse_value`, what ``at`` names)
+QUANTITIES: dict[str, tuple[str, str]] = {
+    "voltage": ("volts", "a node or a/b"),
+    "current": ("amps", "a supply or resistor ref"),
+    "gain": ("plain", "nothing (leave at blank)"),
+    "input_resistance": ("ohms", "nothing (leave at blank)"),
+    "output_resistance": ("ohms", "nothing (leave at blank)"),
+    "resistance": ("ohms", "a resistor ref"),
+    "capacitance": ("farads", "a capacitor ref"),
+    "temperature": ("temperature", "nothing (leave at blank)"),
+}
+_SI_UNIT = {"volts": "V", "amps": "A", "plain": "", "ohms": "ohm", "farads": "F",
+            "temperature": "K"}
+_NO_AT = ("gain", "input_resistance", "output_resistance", "temperature")
+_NON_NEGATIVE = ("gain", "input_resistance", "output_resistance", "resistance", "capacitance")
+_BARE_NUMBER = re.compile(r"\s*[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?\s*$")
+
+
+@dataclass(frozen=True)
+class Reading:
+    """One bench reading.
+
+    Parameters
+    ----------
+    quantity
+        One of :data:`QUANTITIES`.
+    at
+        Where it was read, normalised (``0`` written as ``gnd``, spaces around ``/``
+        removed); ``""`` for quantities that take no place.
+    value
+        The reading in SI units (V, A, ohm, F, a plain ratio, or K for temperature).
+    unit
+        The unit as written in the file (may be ``""``); used when writing it back.
+    uncertainty
+        One standard uncertainty in SI units (K for temperature), or ``None`` for the
+        default of :func:`default_uncertainty`.
+    instrument, note, device
+        Free text; ``device`` names the device under test in lot files.
+    line
+        Line in the file the reading came from (not compared).
+    raw
+        The row's cells as written, in :data:`COLUMNS` order, so that
+        :func:`readings_to_csv` can reproduce the file cell by cell (not compared).
+    """
+
+    quantity: str
+    at: str
+    value: float
+    unit: str
+    uncertainty: float | None
+    instrument: str = ""
+    note: str = ""
+    device: str = ""
+    line: int | None = field(default=None, compare=False)
+    raw: tuple[str, ...] = field(default=(), compare=False)
+
+
+# ------------------------------------------------------------------ uncertainty
+#: Display counts of the 4½-digit bench meter the defaults assume (±19 999).
+COUNTS_FULL_SCALE = 20000
+
+
+@dataclass(frozen=True)
+class UncertaintyRule:
+    """A default uncertainty: limits ±(relative·|reading| + counts·resolution + absolute).
+
+    ``resolution`` is the auto-selected range (the smallest of ``ranges`` above
+    |reading|, else the largest) divided by :data:`COUNTS_FULL_SCALE`. The limits are
+    divided by ``divisor`` to give one standard uncertainty: √3 for an instrument's
+    accuracy specification taken as a rectangular distribution (JCGM 100:2008, GUM
+    4.3.7), 1 where the figure already is a standard uncertainty.
+    """
+
+    relative: float
+    counts: float = 0.0
+    ranges: tuple[float, ...] = ()
+    absolute: float = 0.0
+    divisor: float = 1.0
+    basis: str = ""
+
+    def limits(self, value: float) -> float:
+        """Half-width of the limits of error, SI units."""
+        magnitude = abs(value)
+        resolution = 0.0
+        if self.ranges:
+            full_scale = next((r for r in self.ranges if magnitude < r), self.ranges[-1])
+            resolution = full_scale / COUNTS_FULL_SCALE
+        return self.relative * magnitude + self.counts * resolution + self.absolute
+
+    def standard(self, value: float) -> float:
+        """One standard uncertainty, SI units."""
+        return self.limits(value) / self.divisor
+
+
+_RECT = math.sqrt(3.0)
+
+#: Default uncertainties per quantity (common practice for a 4½-digit bench DMM and
+#: an oscilloscope; see the README table). Values in SI units.
+DEFAULT_UNCERTAINTY: dict[str, UncertaintyRule] = {
+    "voltage": UncertaintyRule(
+        0.0005, counts=2, ranges=(0.2, 2.0, 20.0, 200.0, 1000.0), divisor=_RECT,
+        basis="DMM DC volts ±(0.05 % of reading + 2 counts), rectangular",
+    ),
+    "current": UncertaintyRule(
+        0.002, counts=2, ranges=(200e-6, 2e-3, 20e-3, 200e-3, 2.0, 10.0), divisor=_RECT,
+        basis="DMM DC current ±(0.2 % of reading + 2 counts), rectangular",
+    ),
+    "resistance": UncertaintyRule(
+        0.001, counts=2, ranges=(200.0, 2e3, 20e3, 200e3, 2e6, 20e6), absolute=0.1,
+        divisor=_RECT,
+        basis="DMM 2-wire ohms ±(0.1 % of reading + 2 counts + 0.1 ohm leads), rectangular",
+    ),
+    "capacitance": UncertaintyRule(
+        0.02, divisor=_RECT, basis="DMM capacitance ±2 % of reading, rectangular"
+    ),
+    "gain": UncertaintyRule(0.01, basis="1 % of reading, standard uncertainty"),
+    "input_resistance": UncertaintyRule(0.02, basis="2 % of reading, standard uncertainty"),
+    "output_resistance": UncertaintyRule(0.02, basis="2 % of reading, standard uncertainty"),
+    "temperature": UncertaintyRule(0.0, absolute=1.0, basis="1 K, standard uncertainty"),
+}
+
+
+def default_uncertainty(reading: Reading) -> float:
+    """The default standard uncertainty of a reading, SI units (K for temperature).
+
+    The defaults (:data:`DEFAULT_UNCERTAINTY`) assume a 4½-digit bench DMM
+    (20 000 counts, auto-ranging) and common practice for the derived quantities:
+
+    ===================  =====================================================  ========
+    quantity             limits of error                                         divisor
+    ===================  =====================================================  ========
+    voltage              ±(0.05 % of reading + 2 counts), ranges 200 mV–1000 V    √3
+    current              ±(0.2 % of reading + 2 counts), ranges 200 µA–10 A       √3
+    resistance           ±(0.1 % of reading + 2 counts + 0.1 Ω), 200 Ω–20 MΩ      √3
+    capacitance          ±2 % of reading                                          √3
+    gain                 1 % of reading (already a standard uncertainty)          1
+    input_resistance     2 % of reading                                           1
+    output_resistance    2 % of reading                                           1
+    temperature          1 K                                                      1
+    ===================  =====================================================  ========
+
+    A count is the range divided by 20 000 (e.g. 0.1 mV on the 2 V range); the range is
+    the smallest that holds the reading. Dividing limits by √3 treats them as a
+    rectangular distribution (JCGM 100:2008, GUM 4.3.7). The reading's own
+    ``uncertainty`` is ignored here; see :func:`standard_uncertainty`.
+
+    Raises
+    ------
+    InputError
+        The default is zero (a reading of exactly 0 whose default is purely relative):
+        the file must give an uncertainty for it.
+    """
+    u = DEFAULT_UNCERTAINTY[reading.quantity].standard(reading.value)
+    if u <= 0.0:
+        raise InputError(
+            f"{reading.quantity} reading of {reading.value:g} has no default uncertainty "
+            "(the default is relative to the reading): give one in the uncertainty column",
+            line=reading.line,
+        )
+    return u
+
+
+def standard_uncertainty(reading: Reading) -> float:
+    """The reading's uncertainty as given, else :func:`default_uncertainty`."""
+    if reading.uncertainty is not None:
+        return reading.uncertainty
+    return default_uncertainty(reading)
+
+
+# ----------------------------------------------------------------------- parsing
+def load_readings(path: str | os.PathLike[str], board: Board | None = None) -> list[Reading]:
+    """Read a readings CSV file.
+
+    Parameters
+    ----------
+    path
+        The file (UTF-8, a byte-order mark is allowed).
+    board
+        When given, every ``at`` is checked against it (nodes and refs must exist,
+        small-signal readings need its ``[signal]`` table).
+
+    Returns
+    -------
+    list of Reading
+        In file order.
+
+    Raises
+    ------
+    InputError
+        The file cannot be read.
+    InputErrors
+        The header or some rows are wrong; every problem is listed with its line.
+    """
+    name, text = read_text(path, "readings file")
+    return readings_from_text(text, path=name, board=board)
+
+
+def readings_from_text(
+    text: str, path: str = "<text>", board: Board | None = None
+) -> list[Reading]:
+    """Parse readings CSV text; see :func:`load_readings`."""
+    rows = _csv_rows(text.removeprefix("\ufeff"))
+    header = next(rows, None)
+    if header is None:
+        raise InputErrors([InputError(
+            "no header line: the first line must be " + ",".join(COLUMNS[:7]), path=path
+        )])
+    header_line, header_cells = header
+    index = _header_index(header_cells, header_line, path)
+    errors: list[InputError] = []
+    readings: list[Reading] = []
+    for line, cells in rows:
+        if len(cells) > len(header_cells) and any(c.strip() for c in cells[len(header_cells):]):
+            errors.append(InputError(
+                f"row has {len(cells)} cells but the header has {len(header_cells)}: "
+                "quote a cell that holds a comma", path=path, line=line,
+            ))
+            continue
+        raw = tuple(
+            cells[index[c]] if c in index and index[c] < len(cells) else "" for c in COLUMNS
+        )
+        problems: list[str] = []
+        reading = _reading_from_cells(raw, line, board, problems)
+        errors.extend(InputError(p, path=path, line=line) for p in problems)
+        if reading is not None:
+            readings.append(reading)
+    if errors:
+        raise InputErrors(errors)
+    return readings
+
+
+def _csv_rows(text: str) -> Iterator[tuple[int, list[str]]]:
+    """(line number, cells) for every row that is not a comment or blank."""
+    start: list[int | None] = [None]
+
+    def lines() -> Iterator[str]:
+        for number, line in enumerate(text.splitlines(keepends=True), start=1):
+            if start[0] is None:
+                stripped = line.strip()
+                if not stripped or stripped.startswith("#"):
+                    continue
+                start[0] = number
+            yield line
+
+    for cells in csv.reader(lines()):
+        number, start[0] = start[0], None
+        if any(c.strip() for c in cells):
+            yield number or 0, cells
+
+
+def _suggest(word: str, choices: Iterable[str]) -> str:
+    """`` (did you mean 'x'?)`` or ``""``; case is ignored when matching."""
+    by_lower = {c.lower(): c for c in choices}
+    close = difflib.get_close_matches(word.lower(), list(by_lower), n=1, cutoff=0.6)
+    return f" (did you mean {by_lower[close[0]]!r}?)" if close else ""
+
+
+def _header_index(cells: list[str], line: int, path: str) -> dict[str, int]:
+    names = [c.strip().lower() for c in cells]
+    errors: list[InputError] = []
+    if not set(names) & set(COLUMNS):
+        raise InputErrors([InputError(
+            f"the first line must be the header ({','.join(COLUMNS[:7])}), found "
+            f"{','.join(cells)!r}", path=path, line=line,
+        )])
+    index: dict[str, int] = {}
+    for i, name in enumerate(names):
+        if name not in COLUMNS:
+            errors.append(InputError(
+                f"unknown column {cells[i].strip()!r}{_suggest(name, COLUMNS)}; the columns "
+                f"are {', '.join(COLUMNS)}", path=path, line=line,
+            ))
+        elif name in index:
+            errors.append(InputError(f"column {name!r} appears twice", path=path, line=line))
+        else:
+            index[name] = i
+    for name in _REQUIRED_COLUMNS:
+        if name not in index:
+            errors.append(InputError(
+                f"missing required column {name!r} in the header", path=path, line=line
+            ))
+    if errors:
+        raise InputErrors(errors)
+    return index
+
+
+def _unit_scale(unit: str, kind: str) -> float:
+    """SI value of one ``unit`` of ``kind`` (not for temperature)."""
+    return parse_value(f"1 {unit}", kind) if unit else 1.0
+
+
+def _reading_from_cells(
+    raw: tuple[str, ...], line: int | None, board: Board | None, problems: list[str]
+) -> Reading | None:
+    quantity_cell, at_cell, value_cell, unit_cell, unc_cell, instrument, note, device = raw
+    quantity = quantity_cell.strip().lower()
+    if quantity not in QUANTITIES:
+        hint = _suggest(quantity, QUANTITIES)
+        if quantity == "supply_voltage":
+            hint = " (write a voltage at the supply's node instead)"
+        problems.append(
+            f"unknown quantity {quantity_cell.strip()!r}{hint}; one of {', '.join(QUANTITIES)}"
+        )
+        return None
+    kind = QUANTITIES[quantity][0]
+    unit = unit_cell.strip()
+    value = _value(quantity, kind, value_cell.strip(), unit, problems)
+    uncertainty = _uncertainty(quantity, kind, unc_cell.strip(), unit, value, problems)
+    at = _at(quantity, at_cell.strip(), board, problems)
+    if problems or value is None or at is None:
+        return None
+    return Reading(
+        quantity=quantity, at=at, value=value, unit=unit, uncertainty=uncertainty,
+        instrument=instrument.strip(), note=note.strip(), device=device.strip(),
+        line=line, raw=raw,
+    )
+
+
+def _value(
+    quantity: str, kind: str, text: str, unit: str, problems: list[str]
+) -> float | None:
+    if not text:
+        problems.append(f"{quantity} reading has no value")
+        return None
+    if unit:
+        try:
+            parse_value(f"1 {unit}", kind)
+        except InputError:
+            problems.append(
+                f"unit {unit!r} does not fit a {quantity} reading, which takes "
+                f"{KINDS[kind][1]}"
+            )
+            return None
+    try:
+        value = parse_value(f"{text} {unit}" if unit else text, kind)
+    except InputError as err:
+        problems.append(f"{quantity}: {err.message}")
+        return None
+    if not math.isfinite(value):
+        problems.append(f"{quantity} value {text!r} must be finite")
+        return None
+    if quantity in _NON_NEGATIVE and value < 0.0:
+        problems.append(f"{quantity} cannot be negative, found {text!r}")
+        return None
+    return value
+
+
+def _uncertainty(
+    quantity: str, kind: str, text: str, unit: str, value: float | None, problems: list[str]
+) -> float | None:
+    if not text:
+        return None
+    try:
+        if text.endswith("%") and kind != "temperature":
+            if value is None:
+                return None
+            u = parse_value(text, "tolerance") * abs(value)
+        elif kind == "temperature":
+            bare = text.removesuffix("K").removesuffix("°C").removesuffix("C").strip()
+            u = parse_value(bare, "plain")
+        elif _BARE_NUMBER.match(text):
+            u = float(f"{float(text) * _unit_scale(unit, kind):.12g}")
+        else:
+            u = parse_value(text, kind)
+    except InputError as err:
+        problems.append(f"uncertainty: {err.message}")
+        return None
+    if not (u > 0.0 and math.isfinite(u)):
+        problems.append(
+            f"uncertainty {text!r} must be a positive finite number (one standard "
+            "uncertainty), or blank for the default"
+        )
+        return None
+    return u
+
+
+def _at(quantity: str, text: str, board: Board | None, problems: list[str]) -> str | None:
+    if quantity in _NO_AT:
+        if text:
+            problems.append(f"{quantity} takes no 'at' (found {text!r}): leave it blank")
+            return None
+        if board is not None and quantity != "temperature" and board.signal.input is None:
+            problems.append(
+                f"{quantity} is a small-signal reading but the board has no [signal] table"
+            )
+            return None
+        return ""
+    if not text:
+        problems.append(f"{quantity} needs 'at': {QUANTITIES[quantity][1]}")
+        return None
+    if quantity == "voltage":
+        return _voltage_at(text, board, problems)
+    if "/" in text:
+        problems.append(f"{quantity} at {text!r}: a/b is for voltage only")
+        return None
+    if board is not None:
+        tables = {
+            "current": ("supplies", "resistors"),
+            "resistance": ("resistors",),
+            "capacitance": ("capacitors",),
+        }[quantity]
+        known = [ref for t in tables for ref in getattr(board, t)]
+        if text not in known:
+            listing = "; ".join(f"{t}: {', '.join(getattr(board, t)) or 'none'}" for t in tables)
+            problems.append(
+                f"{quantity} at {text!r}: not {QUANTITIES[quantity][1]} on the board"
+                f"{_suggest(text, known)}; {listing}"
+            )
+            return None
+    return text
+
+
+def _voltage_at(text: str, board: Board | None, problems: list[str]) -> str | None:
+    ends = [p.strip() for p in text.split("/")]
+    if len(ends) > 2 or not all(ends):
+        problems.append(f"voltage at {text!r}: write a node, or a/b for V(a) - V(b)")
+        return None
+    ends = [GND if e == "0" else e for e in ends]
+    if len(ends) == 2 and ends[0] == ends[1]:
+        problems.append(f"voltage at {text!r}: both ends are the same node")
+        return None
+    if board is not None:
+        known = [*board.nodes, GND]
+        for end in ends:
+            if end in known:
+                continue
+            hint = _suggest(end, known)
+            if end in board.supplies:
+                hint = f" ({end} is a supply; its node is {board.supplies[end].node!r})"
+            problems.append(
+                f"voltage at {text!r}: unknown node {end!r}{hint}; the board's nodes are "
+                f"{', '.join(known)}"
+            )
+            return None
+    return "/".join(ends)
+
+
+# ----------------------------------------------------------------------- writing
+def _number(x: float) -> str:
+    return repr(float(f"{x:.12g}"))
+
+
+def _cells(reading: Reading) -> tuple[str, ...]:
+    """The row for a reading: its raw cells when they still say the same, else formatted."""
+    if len(reading.raw) == len(COLUMNS):
+        problems: list[str] = []
+        again = _reading_from_cells(reading.raw, reading.line, None, problems)
+        if again == reading:
+            return reading.raw
+    kind = QUANTITIES[reading.quantity][0]
+    unit = reading.unit
+    value, u = reading.value, reading.uncertainty
+    if kind == "temperature":
+        if unit in ("", "K"):
+            unit, value_text = "K", repr(value)
+        else:
+            value_text = _number(value - ZERO_CELSIUS_K)
+        unc_text = "" if u is None else repr(u)
+    elif unit in ("", _SI_UNIT[kind]):
+        value_text, unc_text = repr(value), "" if u is None else repr(u)
+    else:
+        scale = _unit_scale(unit, kind)
+        value_text = _number(value / scale)
+        unc_text = "" if u is None else _number(u / scale)
+    return (reading.quantity, reading.at, value_text, unit, unc_text,
+            reading.instrument, reading.note, reading.device)
+
+
+def readings_to_csv(readings: Iterable[Reading]) -> str:
+    """Readings as CSV text, header first.
+
+    The header is ``quantity,at,value,unit,uncertainty,instrument,note``, plus
+    ``,device`` when any reading has a device. A reading loaded from a file is written
+    with its cells as they were (so a file round-trips cell by cell); any other is
+    written in its own unit with ``repr`` floats, so reading the text back gives an
+    equal :class:`Reading`.
+    """
+    readings = list(readings)
+    with_device = any(r.device for r in readings)
+    width = len(COLUMNS) if with_device else len(COLUMNS) - 1
+    out = io.StringIO()
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(COLUMNS[:width])
+    for reading in readings:
+        writer.writerow(_cells(reading)[:width])
+    return out.getvalue()

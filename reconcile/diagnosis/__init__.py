@@ -1,0 +1,1 @@
+"""Which fault best explains the readings: hypotheses, their fits and their scores."""

@@ -1,0 +1,228 @@
+"""Solve one board as drawn: the operating point, small signal, spec check and warnings.
+
+This is the notebook-facing view of the engine for a single board; the engine itself
+(:mod:`reconcile.engine`) is batched and is what every analysis calls.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from reconcile.engine import devices
+from reconcile.model.board import Board
+from reconcile.engine import BatchSolution, compile_board, nominal_parameters, solve_batch
+from reconcile.errors import SolveError
+
+SMALL_SIGNAL_KEYS = (
+    "gain",
+    "gain_phase_deg",
+    "source_gain",
+    "input_resistance",
+    "output_resistance",
+)
+
+
+@dataclass(frozen=True)
+class SpecCheck:
+    """One [spec] entry against the solved board. ``margin`` is relative to the target:
+    the distance to the nearer limit over the target value, negative when outside."""
+
+    quantity: str
+    target: float
+    low: float
+    high: float
+    value: float
+    margin: float
+    met: bool
+
+    def to_dict(self) -> dict:
+        return {
+            "target": self.target,
+            "low": self.low,
+            "high": self.high,
+            "value": self.value,
+            "margin": self.margin,
+            "met": self.met,
+        }
+
+
+def check_spec(board: Board, values: dict[str, float]) -> list[SpecCheck]:
+    """Compare small-signal values against the board's [spec] targets."""
+    checks = []
+    for name, target in board.spec.targets.items():
+        value = float(values.get(name, math.nan))
+        margin = min(value - target.low, target.high - value) / target.value
+        met = bool(target.low <= value <= target.high)
+        checks.append(SpecCheck(name, target.value, target.low, target.high, value, margin, met))
+    return checks
+
+
+def _finite(x: float) -> float | None:
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True)
+class BoardSolution:
+    """The solved board: one sample of a :class:`~reconcile.engine.BatchSolution`."""
+
+    board: Board
+    batch: BatchSolution
+    index: int = 0
+    warnings: tuple[str, ...] = field(default=())
+
+    # ----------------------------------------------------------------- values
+    @property
+    def nodes(self) -> dict[str, float | None]:
+        """DC node voltages; None for a node with no DC path (reached only through
+        capacitors, as a signal input or output may be)."""
+        i = self.index
+        floating = set(self.batch.circuit.dc_floating.tolist())
+        return {
+            n: (None if k in floating else float(self.batch.node_v[i, k]) + 0.0)
+            for k, n in enumerate(self.batch.circuit.node_names)
+        }
+
+    @property
+    def transistors(self) -> dict[str, dict]:
+        b, i = self.batch, self.index
+        out = {}
+        for k, ref in enumerate(b.circuit.transistor_refs):
+            out[ref] = {
+                "polarity": self.board.transistors[ref].polarity,
+                "ic": float(b.ic[i, k]),
+                "ib": float(b.ib[i, k]),
+                "ie": float(b.ie[i, k]),
+                "vbe": float(b.vbe[i, k]),
+                "vce": float(b.vce[i, k]),
+                "region": devices.REGIONS[int(b.region[i, k])],
+                "gm": float(b.gm[i, k]),
+                "rpi": _finite(b.rpi[i, k]),
+                "ro": _finite(b.ro[i, k]),
+                "power": float(b.transistor_power[i, k]),
+            }
+        return out
+
+    @property
+    def supplies(self) -> dict[str, dict]:
+        b, i = self.batch, self.index
+        return {
+            ref: {
+                "volts": float(b.params.supply_volts[i, k]),
+                "current": float(b.supply_current[i, k]),
+            }
+            for k, ref in enumerate(b.circuit.supply_refs)
+        }
+
+    @property
+    def resistors(self) -> dict[str, dict]:
+        b, i = self.batch, self.index
+        out = {}
+        for k, ref in enumerate(b.circuit.resistor_refs):
+            rating = self.board.resistors[ref].rating_w
+            out[ref] = {
+                "ohms": float(b.params.resistor_ohms[i, k]),
+                "current": float(b.resistor_current[i, k]),
+                "power": float(b.resistor_power[i, k]),
+                "rating": rating,
+            }
+        return out
+
+    @property
+    def small_signal(self) -> dict[str, float] | None:
+        ss = self.batch.small_signal
+        if ss is None:
+            return None
+        i = self.index
+        out = {"frequency": float(ss.frequency[i])}
+        for key in SMALL_SIGNAL_KEYS:
+            out[key] = float(getattr(ss, key)[i])
+        return out
+
+    @property
+    def spec_checks(self) -> list[SpecCheck]:
+        return check_spec(self.board, self.small_signal or {})
+
+    # ---------------------------------------------------------------- outputs
+    def to_dict(self) -> dict:
+        """The contract's ``solve`` JSON object (plus resistors, spec and warnings)."""
+        out = {
+            "nodes": self.nodes,
+            "transistors": self.transistors,
+            "supplies": self.supplies,
+            "resistors": self.resistors,
+            "small_signal": self.small_signal,
+            "temperature": float(self.batch.params.temperature[self.index]),
+        }
+        if self.board.spec.targets or self.board.spec.min_vce is not None:
+            out["spec"] = {c.quantity: c.to_dict() for c in self.spec_checks}
+            out["meets_spec"] = bool(all(c.met for c in self.spec_checks)) and not any(
+                w.startswith("headroom") for w in self.warnings
+            )
+        out["warnings"] = list(self.warnings)
+        return out
+
+    def nodes_frame(self):
+        """Node voltages as a pandas DataFrame (index: node, column: volts)."""
+        import pandas as pd
+
+        return pd.DataFrame({"volts": self.nodes}).rename_axis("node")
+
+    def transistors_frame(self):
+        import pandas as pd
+
+        return pd.DataFrame(self.transistors).T.rename_axis("ref")
+
+    def resistors_frame(self):
+        import pandas as pd
+
+        return pd.DataFrame(self.resistors).T.rename_axis("ref")
+
+    def supplies_frame(self):
+        import pandas as pd
+
+        return pd.DataFrame(self.supplies).T.rename_axis("ref")
+
+
+def board_warnings(board: Board, batch: BatchSolution, index: int = 0) -> tuple[str, ...]:
+    """Warnings a designer should see: region, headroom, resistor ratings."""
+    out = []
+    circuit = batch.circuit
+    min_vce = board.spec.min_vce
+    for k, ref in enumerate(circuit.transistor_refs):
+        region = devices.REGIONS[int(batch.region[index, k])]
+        vce = float(batch.vce[index, k])
+        if region != "forward-active":
+            out.append(f"region: {ref} is {region} (VCE = {vce:.3g} V), not forward-active")
+        if min_vce is not None and circuit.polarity[k] * vce < min_vce:
+            out.append(
+                f"headroom: {ref} has |VCE| = {abs(vce):.3g} V, under min_vce = {min_vce:.3g} V"
+            )
+    for k, ref in enumerate(circuit.resistor_refs):
+        rating = board.resistors[ref].rating_w
+        power = float(batch.resistor_power[index, k])
+        if rating is not None and power > rating:
+            out.append(f"rating: {ref} dissipates {power:.3g} W, over its {rating:.3g} W rating")
+    return tuple(out)
+
+
+def solve(board: Board, *, temperature: float | None = None) -> BoardSolution:
+    """Solve a board as drawn (nominal values), optionally at another temperature (K).
+
+    Raises
+    ------
+    SolveError
+        If no operating point is found.
+    """
+    circuit = compile_board(board)
+    params = nominal_parameters(circuit, 1, temperature=temperature)
+    batch = solve_batch(circuit, params)
+    if not bool(np.all(batch.converged)):
+        where = board.source_path or board.title or "board"
+        raise SolveError(
+            f"{where}: no DC operating point found (Newton, gmin and source stepping all failed)"
+        )
+    return BoardSolution(board=board, batch=batch, warnings=board_warnings(board, batch))

@@ -1,0 +1,1 @@
+"""From readings to parameters: priors, the measurement model, the fit, simulated readings."""

@@ -1,0 +1,236 @@
+"""How each reading is predicted: the measurement model.
+
+Every reading is predicted the way it was taken:
+
+* a DC ``voltage`` with the voltmeter (``bench.voltmeter_ohms``) attached across the two
+  nodes it was read between — a separate solve per distinct probe position, all in the
+  same batched engine call;
+* a ``current`` from the board with no meter attached (a supply's read-back, or an
+  ammeter in series with a resistor whose burden voltage is neglected);
+* ``gain``, ``input_resistance`` and ``output_resistance`` with the [signal] set-up:
+  the generator's source resistance and the load, as the contract defines them;
+* ``resistance`` and ``capacitance`` of a part measured out of circuit are direct
+  readings of that parameter.
+
+A ``temperature`` reading is the ambient; it sets the prior of the junction
+temperature (see :mod:`reconcile.priors`) and is not predicted.
+
+For M parameter vectors the model runs one engine call of M·(1 + K) boards, K being the
+number of distinct probe positions: row 0 of each group is the board alone, row k the
+board with probe k attached.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from reconcile.model.board import GND, Board
+from reconcile.engine import BatchSolution, DCState, compile_board, nominal_parameters, solve_batch
+from reconcile.inference.priors import ParameterSpace, build_space
+from reconcile.data.readings import Reading, standard_uncertainty
+
+PREDICTED = (
+    "voltage",
+    "current",
+    "gain",
+    "input_resistance",
+    "output_resistance",
+    "source_gain",
+    "resistance",
+    "capacitance",
+)
+SMALL_SIGNAL = ("gain", "input_resistance", "output_resistance", "source_gain")
+
+
+def probe_nodes(at: str) -> tuple[str, str]:
+    """The two nodes a voltage reading sits between (``a`` means ``a/gnd``)."""
+    if "/" in at:
+        a, b = at.split("/", 1)
+        return a.strip(), b.strip()
+    return at.strip(), GND
+
+
+@dataclass(frozen=True)
+class Observation:
+    """A reading as the model sees it: what to predict, the value and its uncertainty."""
+
+    quantity: str
+    at: str
+    measured: float
+    uncertainty: float
+    reading: Reading | None = None
+
+
+def observations_from(readings: list[Reading]) -> list[Observation]:
+    """Readings the model predicts (temperature readings excluded)."""
+    out = []
+    for r in readings:
+        if r.quantity not in PREDICTED:
+            continue
+        out.append(Observation(r.quantity, r.at, r.value, standard_uncertainty(r), r))
+    return out
+
+
+def ambient_from(readings: list[Reading]) -> tuple[float | None, float | None]:
+    """The mean ambient temperature reading (K) and its standard uncertainty, if any."""
+    temps = [r for r in readings if r.quantity == "temperature"]
+    if not temps:
+        return None, None
+    values = np.array([r.value for r in temps])
+    u = np.array([standard_uncertainty(r) for r in temps])
+    w = 1.0 / u**2
+    return float(np.sum(w * values) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w)))
+
+
+class MeasurementModel:
+    """Predicts a list of observations for many parameter vectors in one engine call."""
+
+    def __init__(
+        self,
+        board: Board,
+        observations: list[Observation],
+        space: ParameterSpace | None = None,
+        *,
+        model_meter: bool = True,
+    ) -> None:
+        self.board = board
+        self.observations = observations
+        self.model_meter = model_meter
+        probes: list[tuple[str, str]] = []
+        for ob in observations:
+            if ob.quantity == "voltage" and model_meter:
+                pair = probe_nodes(ob.at)
+                if pair not in probes:
+                    probes.append(pair)
+        self.probes = tuple(probes)
+        self.circuit = compile_board(board, self.probes)
+        self.space = space if space is not None else build_space(self.circuit)
+        if self.space.circuit is not self.circuit:
+            # Rebuild the space on this circuit (same parameters, probes added).
+            self.space = ParameterSpace(self.circuit, self.space.parameters)
+        self.group = 1 + len(self.probes)
+        self.base = nominal_parameters(self.circuit, 1)
+        self._state: DCState | None = None
+        self._plan = [self._plan_one(ob) for ob in observations]
+
+    # ------------------------------------------------------------------ set-up
+    def _plan_one(self, ob: Observation) -> tuple[str, int, object]:
+        c = self.circuit
+        q = ob.quantity
+        if q == "voltage":
+            a, b = probe_nodes(ob.at)
+            row = 1 + self.probes.index((a, b)) if self.model_meter else 0
+            return ("voltage", row, (c.node_index(a), c.node_index(b)))
+        if q == "current":
+            if ob.at in c.supply_refs:
+                return ("supply_current", 0, c.supply_refs.index(ob.at))
+            return ("resistor_current", 0, c.resistor_refs.index(ob.at))
+        if q in SMALL_SIGNAL:
+            return ("small_signal", 0, q)
+        if q in ("resistance", "capacitance"):
+            key = ob.at
+            if key in self.space.keys:
+                return ("parameter", 0, self.space.index(key))
+            kind = "resistor_ohms" if q == "resistance" else "capacitor_farads"
+            refs = c.resistor_refs if q == "resistance" else c.capacitor_refs
+            return ("fixed", 0, (kind, refs.index(key)))
+        raise ValueError(f"cannot predict quantity {q!r}")
+
+    @property
+    def measured(self) -> np.ndarray:
+        return np.array([ob.measured for ob in self.observations])
+
+    @property
+    def uncertainty(self) -> np.ndarray:
+        return np.array([ob.uncertainty for ob in self.observations])
+
+    # --------------------------------------------------------------- predict
+    def parameters(self, x: np.ndarray):
+        """Engine parameters for M internal vectors: M·group rows."""
+        x = np.atleast_2d(x)
+        p = self.space.to_parameters(x, self.base).repeat(self.group)
+        if self.probes:
+            g = 1.0 / self.board.bench.voltmeter_ohms
+            probe = np.zeros((x.shape[0] * self.group, len(self.probes)))
+            rows = np.arange(x.shape[0])[:, None] * self.group + np.arange(1, self.group)[None, :]
+            probe[rows, np.arange(len(self.probes))[None, :]] = g
+            p = p.with_values(probe_siemens=probe)
+        return p
+
+    def solve(self, x: np.ndarray, *, warm: bool = True) -> BatchSolution:
+        """The engine solution for M internal vectors (M·group rows)."""
+        params = self.parameters(x)
+        initial = None
+        if warm and self._state is not None:
+            initial = self._state
+            if initial.v.shape[0] != params.n_samples:
+                reps = params.n_samples // initial.v.shape[0]
+                if reps * initial.v.shape[0] == params.n_samples:
+                    initial = DCState(
+                        v=np.tile(initial.v, (reps, 1)),
+                        vj=np.tile(initial.vj, (reps, 1, 1)),
+                        converged=np.tile(initial.converged, reps),
+                        iterations=np.tile(initial.iterations, reps),
+                    )
+                else:
+                    initial = None
+        sol = solve_batch(self.circuit, params, initial)
+        if x.shape[0] == 1 or self._state is None:
+            self._state = DCState(
+                v=sol.state.v[: self.group].copy(),
+                vj=sol.state.vj[: self.group].copy(),
+                converged=sol.state.converged[: self.group].copy(),
+                iterations=sol.state.iterations[: self.group].copy(),
+            )
+        return sol
+
+    def predict(self, x: np.ndarray, *, solution: BatchSolution | None = None) -> np.ndarray:
+        """Predicted observations (M, R) for internal vectors x (M, P); NaN where the
+        engine found no operating point."""
+        x = np.atleast_2d(x)
+        m = x.shape[0]
+        sol = solution if solution is not None else self.solve(x)
+        ext = self.space.external(x)
+        out = np.empty((m, len(self.observations)))
+        base_rows = np.arange(m) * self.group
+        for k, (kind, row, what) in enumerate(self._plan):
+            rows = base_rows + row
+            if kind == "voltage":
+                a, b = what
+                va = sol.node_v[rows, a] if a < self.circuit.n_nodes else 0.0
+                vb = sol.node_v[rows, b] if b < self.circuit.n_nodes else 0.0
+                out[:, k] = va - vb
+            elif kind == "supply_current":
+                out[:, k] = sol.supply_current[rows, what]
+            elif kind == "resistor_current":
+                out[:, k] = sol.resistor_current[rows, what]
+            elif kind == "small_signal":
+                out[:, k] = getattr(sol.small_signal, what)[rows]
+            elif kind == "parameter":
+                out[:, k] = ext[:, what]
+            else:
+                name, col = what
+                out[:, k] = getattr(self.base, name)[0, col]
+        bad = ~sol.converged.reshape(m, self.group).all(axis=1)
+        out[bad] = np.nan
+        return out
+
+    def jacobian(self, x: np.ndarray, *, step: float = 1e-6) -> tuple[np.ndarray, np.ndarray]:
+        """Predictions at x (R,) and their forward-difference Jacobian (R, P) in
+        internal coordinates, from one batched engine call."""
+        x = np.asarray(x, dtype=float).ravel()
+        p = x.size
+        h = np.full(p, step)
+        for j, fp in enumerate(self.space.parameters):
+            if fp.kind == "temperature":
+                h[j] = 1e-4
+            elif fp.kind == "supply":
+                h[j] = step * max(1.0, abs(x[j]))
+        xs = np.repeat(x[None, :], p + 1, axis=0)
+        xs[1:][np.arange(p), np.arange(p)] += h
+        pred = self.predict(xs)
+        f0 = pred[0]
+        jac = (pred[1:] - f0[None, :]) / h[:, None]
+        return f0, jac.T

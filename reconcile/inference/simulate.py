@@ -1,0 +1,74 @@
+"""Readings of a hidden "true" board, made with the engine (for demos and tests).
+
+The true board is a :class:`~reconcile.board.Board` with the values that were really
+built; readings of it are predicted by the same measurement model the fit uses and,
+optionally, disturbed by Gaussian noise of each reading's standard uncertainty.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from reconcile.model.board import Board
+from reconcile.inference.measure import MeasurementModel, Observation
+from reconcile.data.readings import Reading, default_uncertainty
+
+UNITS = {
+    "voltage": "V",
+    "current": "A",
+    "gain": "",
+    "input_resistance": "ohm",
+    "output_resistance": "ohm",
+    "resistance": "ohm",
+    "capacitance": "F",
+    "temperature": "K",
+}
+
+
+def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
+    """Every node voltage, every supply current and (with [signal]) gain and input
+    resistance: what a careful engineer reads first."""
+    plan = [
+        ("voltage", n) for n in board.nodes if n not in (board.signal.input, board.signal.output)
+    ]
+    plan += [("current", ref) for ref in board.supplies]
+    if small_signal and board.signal.input and board.signal.output:
+        plan += [("gain", ""), ("input_resistance", "")]
+    return plan
+
+
+def simulate_readings(
+    true_board: Board,
+    plan: list[tuple[str, str]],
+    *,
+    rng: np.random.Generator | None = None,
+    temperature: float | None = None,
+    relative_noise: float = 1.0,
+    note: str = "simulated",
+) -> list[Reading]:
+    """Readings of ``true_board`` at the places in ``plan`` (quantity, at).
+
+    Each reading carries its default standard uncertainty; with ``rng`` it is disturbed
+    by that much Gaussian noise times ``relative_noise``. ``temperature`` (K) is the true
+    junction temperature (default: the board's).
+    """
+    obs = [Observation(q, at, 0.0, 1.0) for q, at in plan if q != "temperature"]
+    model = MeasurementModel(true_board, obs)
+    params = model.parameters(
+        np.zeros((1, 0)) if model.space.size == 0 else model.space.prior_mean[None, :]
+    )
+    if temperature is not None:
+        params = params.with_values(temperature=np.full(params.n_samples, temperature))
+    from reconcile.engine import solve_batch
+
+    sol = solve_batch(model.circuit, params)
+    exact = model.predict(model.space.prior_mean[None, :], solution=sol)[0]
+    out = []
+    for k, ob in enumerate(obs):
+        proto = Reading(ob.quantity, ob.at, float(exact[k]), UNITS[ob.quantity], None)
+        u = default_uncertainty(proto) if exact[k] != 0 else 1e-6
+        value = float(exact[k])
+        if rng is not None:
+            value += relative_noise * u * rng.standard_normal()
+        out.append(Reading(ob.quantity, ob.at, value, UNITS[ob.quantity], u, note=note))
+    return out

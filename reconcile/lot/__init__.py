@@ -1,0 +1,1 @@
+"""Characterising a transistor lot from a jig or from sweeps."""

@@ -1,0 +1,1 @@
+"""The analyses as the CLI, the report and the demo run them, one after another."""

@@ -1,0 +1,1 @@
+"""Everything a person sees: rich tables, matplotlib figures, the HTML report."""

@@ -1,0 +1,181 @@
+"""Rich tables for a diagnosis (human output of ``reconcile diagnose``)."""
+
+from __future__ import annotations
+
+import math
+
+from rich.console import Console, Group
+from rich.table import Table
+
+from reconcile.diagnosis.diagnose import Diagnosis, Hypothesis, NextReading
+from reconcile.inference.simulate import UNITS
+from reconcile.model.values import format_si
+
+STYLE_OK = "green"
+STYLE_BAD = "bold red"
+STYLE_DIM = "dim"
+CHECK_MIN_PROBABILITY = 0.01
+OFF_TOLERANCE_SHOWN = 3
+_QUANTITY_SHORT = {
+    "gain": "gain",
+    "source_gain": "source gain",
+    "input_resistance": "Rin",
+    "output_resistance": "Rout",
+}
+
+
+def _unit(quantity: str) -> str:
+    return "Ω" if UNITS.get(quantity) == "ohm" else UNITS.get(quantity, "")
+
+
+def _value(x: float | None, unit: str) -> str:
+    if x is None or not math.isfinite(x):
+        return "-"
+    return format_si(x, unit, digits=3)
+
+
+def _probability(p: float) -> str:
+    if p >= 0.001:
+        return f"{p:.3f}"
+    if p > 0:
+        return f"{p:.0e}"
+    return "0"
+
+
+def _label(h: Hypothesis) -> str:
+    text = h.label
+    if h.aliases:
+        text += f" (or {', '.join(h.aliases)})"
+    if h.same_as:
+        text += f" ≡ {', '.join(h.same_as)}"
+    return text
+
+
+def _fault_value(h: Hypothesis) -> str:
+    if h.fault != "wrong-value" or h.value is None:
+        return ""
+    text = f"{_value(h.value, 'Ω')} ± {_value(h.stderr, 'Ω')}"
+    if h.nearest is not None:
+        text += f", nearest {h.series} {_value(h.nearest, 'Ω')}"
+    if h.decade_slip:
+        text += f" [{STYLE_BAD}]decade slip[/]"
+    return text
+
+
+def _fitted_board(h: Hypothesis) -> str:
+    f = h.fitted
+    parts = [
+        f"{short} {_value(f[key], _unit(key))}"
+        for key, short in _QUANTITY_SHORT.items()
+        if key in f and key != "source_gain" and f[key] is not None and math.isfinite(f[key])
+    ]
+    parts += [f"{ref} {region}" for ref, region in f.get("regions", {}).items()]
+    off = list(f.get("off_tolerance", {}).items())
+    if off:
+        shown = ", ".join(f"{k} = {v:.3g}" for k, v in off[:OFF_TOLERANCE_SHOWN])
+        extra = len(off) - OFF_TOLERANCE_SHOWN
+        more = f" and {extra} more" if extra > 0 else ""
+        parts.append(f"needs {shown}{more} outside tolerance")
+    return "; ".join(parts)
+
+
+def hypothesis_table(diag: Diagnosis, rows: int = 10) -> Table:
+    """The ranked hypotheses: fault, probability, χ², the fitted board."""
+    t = Table(title="Single-fault explanations, most probable first", title_justify="left")
+    t.add_column("#", justify="right")
+    t.add_column("fault")
+    t.add_column("probability", justify="right")
+    t.add_column("χ²", justify="right")
+    t.add_column("fitted value")
+    t.add_column("the fitted board then has")
+    for i, h in enumerate(diag.hypotheses[:rows], start=1):
+        style = "" if h.converged else STYLE_DIM
+        chi = f"{h.chi_square:.3g}" if h.converged else f"≥{h.chi_square:.3g}"
+        t.add_row(
+            str(i), _label(h), _probability(h.probability), chi, _fault_value(h),
+            _fitted_board(h), style=style,
+        )
+    more = len(diag.hypotheses) - rows
+    if more > 0:
+        rest = sum(h.probability for h in diag.hypotheses[rows:])
+        t.caption = f"{more} more hypotheses, together probability {_probability(rest)}"
+    return t
+
+
+def readings_table(diag: Diagnosis) -> Table:
+    """Readings the best hypothesis disagrees with."""
+    t = Table(title=f"Readings that disagree with {diag.top.label}", title_justify="left")
+    for col in ("reading", "measured", "predicted", "u", "residual"):
+        t.add_column(col, justify="left" if col == "reading" else "right")
+    for r in diag.disagreeing_readings:
+        unit = _unit(r["quantity"])
+        where = f" at {r['at']}" if r["at"] else ""
+        t.add_row(
+            f"{r['quantity']}{where}",
+            _value(r["measured"], unit),
+            _value(r["predicted"], unit),
+            _value(r["uncertainty"], unit),
+            f"[{STYLE_BAD}]{r['normalized_residual']:+.1f}σ[/]",
+        )
+    return t
+
+
+def next_reading_text(nr: NextReading) -> str:
+    """One line: what to read next, why, and what each leading hypothesis expects."""
+    unit = _unit(nr.quantity)
+    why = {
+        "separate": f"to tell {nr.separates[0]} from {nr.separates[1]}",
+        "confirm": f"to confirm {nr.separates[0]} against {nr.separates[1]}",
+        "explore": f"the reading {nr.separates[0]} predicts least well",
+    }[nr.purpose]
+    expect = "; ".join(f"{label}: {_value(v, unit)}" for label, v in list(nr.expected.items())[:4])
+    return f"[bold]Next reading:[/] {nr.label} ({why}). Expected: {expect}"
+
+
+def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3) -> Group:
+    """Everything ``diagnose`` shows: verdict, ranked table, checks, readings, next."""
+    parts: list = []
+    if diag.explained:
+        parts.append(f"[{STYLE_OK}]{diag.summary}[/]")
+    else:
+        parts.append(f"[{STYLE_BAD}]{diag.summary}[/]")
+    parts.append(hypothesis_table(diag, rows))
+    shown = [
+        h for i, h in enumerate(diag.hypotheses[:checks])
+        if i == 0 or h.probability >= CHECK_MIN_PROBABILITY
+    ]
+    if shown:
+        parts.append("[bold]Checks to make with a meter:[/]")
+        for i, h in enumerate(shown, start=1):
+            parts.append(f"  {i}. {h.label} (probability {_probability(h.probability)}): {h.check}")
+    if diag.disagreeing_readings:
+        parts.append(readings_table(diag))
+    if diag.next_reading is not None:
+        parts.append(next_reading_text(diag.next_reading))
+    early = [h for h in diag.hypotheses if not h.converged]
+    if early:
+        parts.append(
+            f"[{STYLE_DIM}]{len(early)} fits stopped before their minimum (χ² shown as an "
+            f"upper bound): {', '.join(h.label for h in early[:6])}"
+            f"{' ...' if len(early) > 6 else ''}[/]"
+        )
+    failed = [h for h in diag.hypotheses if h.fit.status == "no-operating-point"]
+    if failed:
+        parts.append(
+            f"[{STYLE_DIM}]no operating point (probability 0): "
+            f"{', '.join(h.label for h in failed)}[/]"
+        )
+    parts.append(
+        f"[{STYLE_DIM}]Probabilities use prior weights over fault kinds "
+        f"({', '.join(f'{k} {v:g}' for k, v in diag.prior_weights.items())}); "
+        f"the defaults are invented guesses.[/]"
+    )
+    return Group(*parts)
+
+
+def print_diagnosis(diag: Diagnosis, console: Console | None = None, *, rows: int = 10) -> None:
+    """Print a diagnosis for a person (the CLI's ``diagnose`` without ``--json``)."""
+    console = console or Console()
+    title = diag.board.title or (diag.board.source_path or "board")
+    console.print(f"[bold]{title}[/]: {diag.n_readings} readings")
+    console.print(diagnosis_tables(diag, rows=rows))

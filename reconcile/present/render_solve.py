@@ -1,0 +1,120 @@
+"""Rich tables for a solved board (human output of ``reconcile solve``)."""
+
+from __future__ import annotations
+
+from rich.console import Console, Group
+from rich.table import Table
+
+from reconcile.engine.solution import BoardSolution
+from reconcile.model.values import format_si
+
+STYLE_OK = "green"
+STYLE_BAD = "bold red"
+STYLE_WARN = "yellow"
+
+
+def _si(x: float | None, unit: str) -> str:
+    if x is None:
+        return "∞"
+    return format_si(x, unit, digits=4)
+
+
+def solution_tables(sol: BoardSolution) -> Group:
+    """Node voltages, transistors, supplies, resistors, small signal and spec check."""
+    parts = []
+    nodes = Table(title="Node voltages", title_justify="left")
+    nodes.add_column("node")
+    nodes.add_column("V", justify="right")
+    for name, v in sol.nodes.items():
+        nodes.add_row(name, "no DC path" if v is None else f"{v:.4f}")
+    parts.append(nodes)
+
+    if sol.transistors:
+        q = Table(title="Transistors", title_justify="left")
+        q.add_column("")
+        for ref in sol.transistors:
+            q.add_column(ref, justify="right")
+        ts = list(sol.transistors.values())
+
+        def row(label: str, fmt) -> None:
+            q.add_row(label, *(fmt(t) for t in ts))
+
+        row("polarity", lambda t: t["polarity"])
+        row(
+            "region",
+            lambda t: (
+                f"[{STYLE_OK if t['region'] == 'forward-active' else STYLE_BAD}]{t['region']}[/]"
+            ),
+        )
+        row("IC", lambda t: _si(t["ic"], "A"))
+        row("IB", lambda t: _si(t["ib"], "A"))
+        row("VBE", lambda t: f"{t['vbe']:.4f} V")
+        row("VCE", lambda t: f"{t['vce']:.3f} V")
+        row("gm", lambda t: _si(t["gm"], "S"))
+        row("rπ", lambda t: _si(t["rpi"], "Ω"))
+        row("ro", lambda t: _si(t["ro"], "Ω"))
+        row("dissipation", lambda t: _si(t["power"], "W"))
+        parts.append(q)
+
+    s = Table(title="Supplies", title_justify="left")
+    for col in ("ref", "V", "current"):
+        s.add_column(col, justify="right" if col != "ref" else "left")
+    for ref, sup in sol.supplies.items():
+        s.add_row(ref, f"{sup['volts']:.4g}", _si(sup["current"], "A"))
+    parts.append(s)
+
+    r = Table(title="Resistors", title_justify="left")
+    for col in ("ref", "value", "current", "power", "rating"):
+        r.add_column(col, justify="right" if col != "ref" else "left")
+    for ref, res in sol.resistors.items():
+        rating = res["rating"]
+        over = rating is not None and res["power"] > rating
+        r.add_row(
+            ref,
+            _si(res["ohms"], "Ω"),
+            _si(res["current"], "A"),
+            f"[{STYLE_BAD if over else ''}]{_si(res['power'], 'W')}[/]"
+            if over
+            else _si(res["power"], "W"),
+            _si(rating, "W") if rating is not None else "-",
+        )
+    parts.append(r)
+
+    ss = sol.small_signal
+    if ss is not None:
+        t = Table(title=f"Small signal at {_si(ss['frequency'], 'Hz')}", title_justify="left")
+        t.add_column("quantity")
+        t.add_column("value", justify="right")
+        t.add_row("gain |vout/vin|", f"{ss['gain']:.4g}")
+        t.add_row("gain phase", f"{ss['gain_phase_deg']:.2f}°")
+        t.add_row("source gain |vout/vgen|", f"{ss['source_gain']:.4g}")
+        t.add_row("input resistance", _si(ss["input_resistance"], "Ω"))
+        t.add_row("output resistance", _si(ss["output_resistance"], "Ω"))
+        parts.append(t)
+
+    checks = sol.spec_checks
+    if checks:
+        sp = Table(title="Spec", title_justify="left")
+        for col in ("quantity", "target", "allowed", "value", "margin", "result"):
+            sp.add_column(col, justify="left" if col in ("quantity", "result") else "right")
+        for c in checks:
+            unit = "Ω" if c.quantity.endswith("resistance") else ""
+            sp.add_row(
+                c.quantity,
+                _si(c.target, unit),
+                f"{_si(c.low, unit)} … {_si(c.high, unit)}",
+                _si(c.value, unit),
+                f"{100 * c.margin:+.1f}%",
+                f"[{STYLE_OK}]meets[/]" if c.met else f"[{STYLE_BAD}]misses[/]",
+            )
+        parts.append(sp)
+    for w in sol.warnings:
+        parts.append(f"[{STYLE_WARN}]warning:[/] {w}")
+    return Group(*parts)
+
+
+def print_solution(sol: BoardSolution, console: Console | None = None) -> None:
+    console = console or Console()
+    title = sol.board.title or (sol.board.source_path or "board")
+    console.print(f"[bold]{title}[/]")
+    console.print(solution_tables(sol))

@@ -1,0 +1,101 @@
+"""Rich table for rework options (human output of ``reconcile trim``)."""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.table import Table
+
+from reconcile.trim.rework import Change, TrimOption, TrimResult
+from reconcile.model.values import format_si
+
+STYLE_OK = "green"
+STYLE_BAD = "bold red"
+STYLE_WARN = "yellow"
+STYLE_DIM = "dim"
+
+
+def _unit(quantity: str) -> str:
+    return "Ω" if quantity.endswith("resistance") else ""
+
+
+def _value(quantity: str, x: float | None) -> str:
+    if x is None:
+        return "-"
+    unit = _unit(quantity)
+    return format_si(x, unit, digits=4) if unit else f"{x:.4g}"
+
+
+def describe_change(change: Change) -> str:
+    """``replace RC with 931 Ω (E96)`` or ``RC ∥ 12.4 kΩ (E96) → 940 Ω``."""
+    new = format_si(change.ohms, "Ω", digits=3)
+    if change.action == "replace":
+        return f"replace {change.ref} with {new} ({change.series})"
+    combined = format_si(change.combined_ohms, "Ω", digits=4)
+    return f"{change.ref} ∥ {new} ({change.series}) → {combined}"
+
+
+def _yield_text(option: TrimOption) -> str:
+    if option.yield_ is None:
+        return "-"
+    style = STYLE_OK if option.yield_ >= 0.95 else STYLE_WARN if option.yield_ >= 0.5 else STYLE_BAD
+    return f"[{style}]{100 * option.yield_:.1f}%[/]"
+
+
+def trim_table(result: TrimResult) -> Table:
+    """One row for the board as it is, then one per option, best first."""
+    quantities = list(result.baseline.predicted)
+    mode = "fitted board" if result.mode == "fitted" else "board as drawn (design mode)"
+    table = Table(
+        title=f"Rework options against the {mode}; search {result.search}, "
+        f"{result.evaluated} boards solved",
+        title_justify="left",
+    )
+    table.add_column("#", justify="right")
+    table.add_column("changes")
+    for q in quantities:
+        head = q.replace("_", " ")
+        if q in result.spec:
+            s = result.spec[q]
+            head += f"\n{_value(q, s['low'])} … {_value(q, s['high'])}"
+        table.add_column(head, justify="right")
+    table.add_column("margin\n(worst case)", justify="right")
+    table.add_column("meets", justify="center")
+    table.add_column("yield", justify="right")
+    table.add_column("cost", justify="right")
+
+    def row(label: str, option: TrimOption, changes: str) -> None:
+        meets = f"[{STYLE_OK}]yes[/]" if option.meets_spec else f"[{STYLE_BAD}]no[/]"
+        cells = [_value(q, option.predicted.get(q)) for q in quantities]
+        margin = f"{100 * option.margin:+.1f}% ({100 * option.worst_case_margin:+.1f}%)"
+        table.add_row(
+            label, changes, *cells, margin, meets, _yield_text(option), f"{option.cost:g}"
+        )
+
+    row("", result.baseline, f"[{STYLE_DIM}]as it is[/]")
+    for i, option in enumerate(result.options, start=1):
+        changes = "\n".join(describe_change(c) for c in option.changes)
+        if option.problems:
+            changes += "\n" + "\n".join(f"[{STYLE_WARN}]{p}[/]" for p in option.problems)
+        row(str(i), option, changes)
+    return table
+
+
+def print_trim(result: TrimResult, console: Console | None = None) -> None:
+    """Print the options table and a one-line verdict."""
+    console = console or Console()
+    console.print(trim_table(result))
+    costs = ", ".join(f"{k} {v:g}" for k, v in sorted(result.costs.items()))
+    console.print(
+        f"[{STYLE_DIM}]margin: distance to the nearer spec limit over the target at the predicted "
+        f"board (in brackets {result.k_sigma:g} predicted σ further in); yield: Monte Carlo over "
+        f"{result.samples} draws; rework cost per part: {costs}[/]"
+    )
+    if not result.needed:
+        console.print(f"[{STYLE_OK}]The board as it is meets spec: no rework needed.[/]")
+    elif result.best is None or not result.best.meets_spec:
+        console.print(f"[{STYLE_BAD}]No option within the search meets spec.[/]")
+    else:
+        best = result.best
+        text = "; ".join(describe_change(c) for c in best.changes)
+        tail = "" if best.yield_ is None else f" (yield {100 * best.yield_:.1f}%)"
+        console.print(f"[bold]Best:[/] {text}{tail}")

@@ -1,0 +1,484 @@
+"""The bench story in one self-contained HTML page.
+
+:func:`collect_report` runs the analyses (fit, miss budget, next readings, diagnosis,
+trim, and a lot when given) and draws their figures; :func:`render_html` turns the
+result into one HTML file with every plot embedded as a PNG data URI, so the page opens
+anywhere with no network. Code here computes or renders; it never prints.
+"""
+
+from __future__ import annotations
+
+import base64
+import hashlib
+import html
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+
+from reconcile import __version__
+from reconcile.model.board import Board
+from reconcile.data.readings import Reading, readings_to_csv, standard_uncertainty
+from reconcile.model.values import format_si
+
+CAUTIONS = (
+    "Bench work can hurt people. Follow your local lab rules and qualified practice: "
+    "switch off and let supplies and large capacitors discharge before any rework or "
+    "in-circuit measurement; keep mains-powered instruments properly earthed and never "
+    "defeat a protective earth; use ESD protection for transistors; set the supply's "
+    "current limit before powering a board that may be faulty; check the power and "
+    "voltage ratings of every part you add. This report is arithmetic on readings, not "
+    "a safety assessment."
+)
+
+SECTIONS = ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot", "provenance")
+
+
+@dataclass
+class ReportData:
+    """Everything the page shows: result dictionaries (their ``to_dict()``) and PNGs."""
+
+    board: Board
+    readings: list[Reading]
+    title: str
+    session: dict | None = None
+    fit: dict | None = None
+    budget: dict | None = None
+    next_readings: list[dict] = field(default_factory=list)
+    diagnosis: dict | None = None
+    trim: dict | None = None
+    lot: dict | None = None
+    plots: dict[str, bytes] = field(default_factory=dict)
+    hashes: dict[str, str] = field(default_factory=dict)
+    created: str = ""
+
+
+def _sha(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def _png_file(path: Path) -> bytes:
+    data = path.read_bytes()
+    path.unlink(missing_ok=True)
+    return data
+
+
+def collect_report(
+    board: Board,
+    readings: list[Reading],
+    *,
+    session: dict | None = None,
+    lot_result=None,
+    lot_plot: bytes | None = None,
+    work_dir: Path,
+    trim_samples: int = 10_000,
+    seed: int = 0,
+    outcome=None,
+    diagnosis=None,
+    trim_result=None,
+) -> ReportData:
+    """Run every analysis on (board, readings) and draw the figures.
+
+    ``outcome`` (:class:`reconcile.analysis.FitOutcome`), ``diagnosis`` and
+    ``trim_result`` may be passed in when they were computed already."""
+    import numpy as np
+
+    from reconcile.pipeline.analyses import run_fit
+    from reconcile.diagnosis.diagnose import diagnose
+    from reconcile.present.plots_fit import panel_png
+    from reconcile.present.plots_report import hypotheses_png, miss_budget_png, operating_point_png
+    from reconcile.present.plots_trim import plot_trim
+    from reconcile.engine.solution import solve
+    from reconcile.trim.rework import trim
+
+    work_dir.mkdir(parents=True, exist_ok=True)
+    data = ReportData(
+        board=board,
+        readings=list(readings),
+        title=board.title or (board.source_path or "board"),
+        session=session,
+        created=datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S UTC"),
+    )
+    design = solve(board)
+    if outcome is None:
+        outcome = run_fit(board, readings)
+    data.fit = outcome.fit.to_dict()
+    data.budget = outcome.budget.to_dict() if outcome.budget is not None else None
+    data.next_readings = [s.to_dict() for s in outcome.suggestions]
+    data.plots["board"] = operating_point_png(
+        design.nodes, data.fit["predicted"]["nodes"], readings
+    )
+    data.plots["readings"] = panel_png(outcome.fit, "readings")
+    data.plots["fit"] = panel_png(outcome.fit, "parameters")
+    if data.budget:
+        data.plots["budget"] = miss_budget_png(data.budget)
+    diag = diagnosis if diagnosis is not None else diagnose(board, readings)
+    data.diagnosis = diag.to_dict()
+    data.plots["diagnosis"] = hypotheses_png(data.diagnosis["hypotheses"])
+    if board.spec.targets:
+        result = trim_result
+        if result is None:
+            result = trim(board, outcome.fit, samples=trim_samples, rng=np.random.default_rng(seed))
+        data.trim = result.to_dict()
+        try:
+            data.plots["trim"] = _png_file(plot_trim(result, work_dir / "trim.png"))
+        except Exception:  # no option or no draws: the table says why
+            pass
+    if lot_result is not None:
+        data.lot = lot_result.to_dict()
+        if lot_plot is not None:
+            data.plots["lot"] = lot_plot
+    data.hashes = {
+        "board_sha256": _sha(board.source_text or ""),
+        "readings_sha256": _sha(readings_to_csv(readings)),
+    }
+    return data
+
+
+# ----------------------------------------------------------------------- HTML
+STYLE = """
+body{font-family:system-ui,-apple-system,"Segoe UI",sans-serif;margin:2rem auto;max-width:1100px;
+color:#1d2327;line-height:1.4;padding:0 1rem}
+h1{font-size:1.6rem;margin-bottom:.2rem} h2{border-bottom:2px solid #1b6a8a;padding-bottom:.2rem;
+margin-top:2.2rem;color:#1b6a8a}
+table{border-collapse:collapse;margin:.6rem 0;font-size:.88rem} th,td{border:1px solid #d0d7de;
+padding:.25rem .5rem;text-align:right} th{background:#eef3f6}
+td:first-child,th:first-child{text-align:left}
+.caution{background:#fff4d6;border-left:5px solid #d7a233;padding:.7rem 1rem;margin:1rem 0}
+.bad{color:#b23a48;font-weight:600} .ok{color:#2a7f62;font-weight:600} .dim{color:#777}
+img.plot{max-width:100%;border:1px solid #e1e4e8;margin:.6rem 0;display:block}
+pre{background:#f6f8fa;padding:.6rem;overflow:auto;font-size:.8rem}
+.verdict{font-size:1.05rem;margin:.5rem 0}
+"""
+
+CHECK_SCRIPT = """
+window.addEventListener('load', function () {
+  var imgs = Array.prototype.slice.call(document.querySelectorAll('img.plot'));
+  var good = imgs.filter(function (i) {
+    return i.complete && i.naturalWidth >= 200 && i.naturalHeight >= 100;
+  });
+  var sections = document.querySelectorAll('section.part').length;
+  document.body.setAttribute('data-plots', String(imgs.length));
+  document.body.setAttribute('data-plots-ok', String(good.length));
+  document.body.setAttribute('data-sections', String(sections));
+  document.body.setAttribute('data-rendered', good.length === imgs.length ? 'ok' : 'broken');
+});
+"""
+
+
+def _e(x) -> str:
+    return html.escape(str(x))
+
+
+def _num(x, unit: str = "", digits: int = 4) -> str:
+    if x is None:
+        return "–"
+    if isinstance(x, bool):
+        return "yes" if x else "no"
+    if isinstance(x, int | float):
+        return _e(format_si(float(x), unit, digits=digits)) if unit else _e(f"{x:.{digits}g}")
+    return _e(x)
+
+
+def _table(headers: list[str], rows: list[list[str]]) -> str:
+    head = "".join(f"<th>{_e(h)}</th>" for h in headers)
+    body = "".join("<tr>" + "".join(f"<td>{c}</td>" for c in row) + "</tr>" for row in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _img(data: bytes | None, alt: str) -> str:
+    if not data:
+        return f'<p class="dim">(no figure: {_e(alt)})</p>'
+    b64 = base64.b64encode(data).decode("ascii")
+    return f'<img class="plot" alt="{_e(alt)}" src="data:image/png;base64,{b64}">'
+
+
+def _section(key: str, title: str, body: str) -> str:
+    return f'<section class="part" id="{key}"><h2>{_e(title)}</h2>{body}</section>'
+
+
+_UNIT = {"ohm": "Ω", "F": "F", "V": "V", "A": "A", "K": "K", "": ""}
+_RUNIT = {
+    "voltage": "V",
+    "current": "A",
+    "resistance": "Ω",
+    "capacitance": "F",
+    "input_resistance": "Ω",
+    "output_resistance": "Ω",
+    "gain": "",
+    "temperature": "K",
+}
+
+
+def _board_section(d: ReportData) -> str:
+    b = d.board
+    rows = []
+    for r in b.resistors.values():
+        rows.append(
+            [
+                _e(r.ref),
+                "resistor",
+                f"{_e(r.nodes[0])} – {_e(r.nodes[1])}",
+                _num(r.ohms, "Ω"),
+                f"±{100 * r.tolerance:g}%",
+                _num(r.rating_w, "W") if r.rating_w else "–",
+            ]
+        )
+    for c in b.capacitors.values():
+        rows.append(
+            [
+                _e(c.ref),
+                "capacitor",
+                f"{_e(c.nodes[0])} – {_e(c.nodes[1])}",
+                _num(c.farads, "F"),
+                f"±{100 * c.tolerance:g}%",
+                "–",
+            ]
+        )
+    for s in b.supplies.values():
+        rows.append(
+            [
+                _e(s.ref),
+                "supply",
+                f"{_e(s.node)} – gnd",
+                _num(s.volts, "V"),
+                f"±{100 * s.tolerance:g}%",
+                "–",
+            ]
+        )
+    for q in b.transistors.values():
+        rows.append(
+            [
+                _e(q.ref),
+                f"{q.polarity} transistor",
+                f"c {_e(q.c)}, b {_e(q.b)}, e {_e(q.e)}",
+                _e(q.device),
+                "–",
+                "–",
+            ]
+        )
+    spec = "".join(
+        f"<li>{_e(k)}: {_num(t.value)} ±{100 * t.tolerance:g}%</li>"
+        for k, t in b.spec.targets.items()
+    )
+    if b.spec.min_vce is not None:
+        spec += f"<li>min |VCE|: {_num(b.spec.min_vce, 'V')}</li>"
+    text = _e(b.source_text or "")
+    return (
+        _table(["ref", "kind", "nodes", "value", "tolerance", "rating"], rows)
+        + (f"<p>Spec:</p><ul>{spec}</ul>" if spec else "")
+        + _img(d.plots.get("board"), "operating point")
+        + f"<details><summary>board file</summary><pre>{text}</pre></details>"
+    )
+
+
+def _readings_section(d: ReportData) -> str:
+    rows = []
+    fits = {(r["quantity"], r["at"]): r for r in (d.fit or {}).get("readings", [])}
+    for r in d.readings:
+        unit = _RUNIT.get(r.quantity, "")
+        value = f"{r.value - 273.15:.2f} °C" if r.quantity == "temperature" else _num(r.value, unit)
+        u = standard_uncertainty(r)
+        f = fits.get((r.quantity, r.at))
+        z = "–" if f is None else f"{f['normalized_residual']:+.2f}"
+        if f is not None and f.get("suspect"):
+            z = f'<span class="bad">{z} suspect</span>'
+        rows.append(
+            [
+                _e(r.quantity),
+                _e(r.at or "–"),
+                value,
+                _num(u, "K" if r.quantity == "temperature" else unit),
+                "given" if r.uncertainty is not None else "default",
+                _e(r.instrument or "–"),
+                _e(r.note or ""),
+                z,
+            ]
+        )
+    return _table(
+        ["quantity", "at", "value", "u (1σ)", "u from", "instrument", "note", "z"], rows
+    ) + _img(d.plots.get("readings"), "readings against the fitted board")
+
+
+def _fit_section(d: ReportData) -> str:
+    f = d.fit or {}
+    rows = []
+    for key, p in f.get("parameters", {}).items():
+        unit = _UNIT.get(p["unit"], p["unit"])
+        inside = p.get("in_tolerance")
+        status = (
+            "–"
+            if inside is None
+            else ('<span class="ok">in</span>' if inside else '<span class="bad">OUT</span>')
+        )
+        if key == "temperature":
+            val, sd = f"{p['value'] - 273.15:.1f} °C", f"{p['stderr']:.2g} K"
+            nom = f"{p['nominal'] - 273.15:.1f} °C"
+        else:
+            val, sd, nom = (
+                _num(p["value"], unit),
+                _num(p["stderr"], unit, 2),
+                _num(p["nominal"], unit),
+            )
+        rows.append([_e(key), nom, val, sd, status, _e(p["informed_by"])])
+    verdict = f.get("verdict", "")
+    cls = "ok" if verdict == "consistent" else "bad"
+    head = (
+        f'<p class="verdict">χ² = {f.get("chi_square", 0):.2f} for {f.get("dof", 0)} degrees of '
+        f'freedom, p = {f.get("p_value", 0):.3g}: <span class="{cls}">{_e(verdict)}</span></p>'
+    )
+    nxt = ""
+    if d.next_readings:
+        nrows = [
+            [_e(s["quantity"]), _e(s["at"] or "–"), f"{100 * s['expected_reduction']:.1f}%"]
+            for s in d.next_readings
+        ]
+        nxt = "<p>Next most useful readings:</p>" + _table(
+            ["quantity", "at", "expected reduction"], nrows
+        )
+    return (
+        head
+        + _table(["parameter", "nominal", "fitted", "±1σ", "in tolerance", "informed by"], rows)
+        + _img(d.plots.get("fit"), "fit")
+        + nxt
+    )
+
+
+def _budget_section(d: ReportData) -> str:
+    if not d.budget:
+        return "<p>The board has no [spec] with a signal set-up: no miss budget.</p>"
+    rows = []
+    for name, q in d.budget.items():
+        rows.append(
+            [
+                _e(name),
+                _num(q["target"]),
+                _num(q["fitted"]),
+                _num(q["total"]),
+                _num(q["design"]),
+                *(f"{_num(q[g])} ±{q['stderr'][g]:.2g}" for g in ("parts", "devices", "bench")),
+            ]
+        )
+    return (
+        "<p>Shapley shares over the orders of substitution (design = the drawn board under "
+        "the exact model against the target).</p>"
+        + _table(
+            ["quantity", "target", "fitted", "miss", "design", "parts", "devices", "bench"], rows
+        )
+        + _img(d.plots.get("budget"), "miss budget")
+    )
+
+
+def _diagnosis_section(d: ReportData) -> str:
+    diag = d.diagnosis or {}
+    rows = []
+    for h in diag.get("hypotheses", [])[:10]:
+        rows.append(
+            [
+                _e(h["ref"] or "–"),
+                _e(h["fault"]),
+                _num(h.get("value")),
+                f"{100 * (h['probability'] or 0):.1f}%",
+                f"{h['chi_square']:.2f}",
+                _e(h.get("check") or ""),
+            ]
+        )
+    summary = f"<p>{_e(diag.get('summary', ''))}</p>"
+    return (
+        summary
+        + _table(["part", "fault", "value", "probability", "χ²", "check with a meter"], rows)
+        + _img(d.plots.get("diagnosis"), "fault probabilities")
+    )
+
+
+def _trim_section(d: ReportData) -> str:
+    t = d.trim
+    if t is None:
+        return "<p>The board has no [spec]: nothing to trim towards.</p>"
+    rows = []
+    for o in t.get("options", [])[:10]:
+        change = (
+            "; ".join(
+                f"{c['ref']} {'replace with' if c['action'] == 'replace' else 'add in parallel'} "
+                f"{format_si(c['ohms'], 'Ω', digits=3)} ({c['series']})"
+                for c in o["changes"]
+            )
+            or "no change"
+        )
+        pred = ", ".join(f"{k} {v:.4g}" for k, v in o["predicted"].items())
+        y = o.get("yield")
+        rows.append(
+            [
+                _e(change),
+                _e(pred),
+                f"{100 * (o.get('margin') or 0):+.1f}%",
+                '<span class="ok">yes</span>' if o["meets_spec"] else '<span class="bad">no</span>',
+                "–" if y is None else f"{100 * y:.1f}%",
+            ]
+        )
+    return (
+        f"<p>Search: {_e(t.get('search'))}, {t.get('evaluated')} boards evaluated. Power off "
+        "before any rework; check the new part's rating.</p>"
+        + _table(["change", "predicted", "margin", "meets spec", "yield"], rows)
+        + _img(d.plots.get("trim"), "before and after the best option")
+    )
+
+
+def _lot_section(d: ReportData) -> str:
+    lot = d.lot
+    s = lot["summary"]
+    beta, is_ = s["beta"], s["IS"]
+    rows = [
+        [
+            "beta",
+            _num(beta["mean"]),
+            _num(beta["sd"]),
+            _num(beta["p05"]),
+            _num(beta["p50"]),
+            _num(beta["p95"]),
+        ],
+        ["IS (geometric)", _num(is_["geo_mean"], "A"), f"{is_['log10_sd']:.3g} dec", "", "", ""],
+    ]
+    out = ", ".join(lot.get("outliers", [])) or "none"
+    return (
+        _table(["quantity", "mean", "sd", "p05", "p50", "p95"], rows)
+        + f"<p>Outliers: {_e(out)}; {len(lot.get('devices', {}))} devices.</p>"
+        + _img(d.plots.get("lot"), "lot")
+    )
+
+
+def _provenance_section(d: ReportData) -> str:
+    rows = [["tool", f"reconcile {_e(__version__)}"], ["created", _e(d.created)]]
+    rows += [[_e(k), f"<code>{_e(v)}</code>"] for k, v in d.hashes.items()]
+    if d.session:
+        rows += [[_e(k), _e(v)] for k, v in d.session.items() if not isinstance(v, list | dict)]
+    return _table(["item", "value"], rows)
+
+
+def render_html(d: ReportData) -> str:
+    """The whole page as one HTML string (no external resources)."""
+    parts = [
+        ("board", "The board", _board_section(d)),
+        ("readings", "The readings", _readings_section(d)),
+        ("fit", "What was built (the fit)", _fit_section(d)),
+        ("budget", "Where the spec miss comes from", _budget_section(d)),
+        ("diagnosis", "What is wrong with it", _diagnosis_section(d)),
+        ("trim", "The least rework", _trim_section(d)),
+    ]
+    if d.lot is not None:
+        parts.append(("lot", "The transistor lot", _lot_section(d)))
+    parts.append(("provenance", "Provenance", _provenance_section(d)))
+    body = "".join(_section(k, t, b) for k, t, b in parts)
+    return (
+        "<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
+        f"<title>reconcile report: {_e(d.title)}</title><style>{STYLE}</style>"
+        f"<script>{CHECK_SCRIPT}</script></head><body>"
+        f"<h1>{_e(d.title)}</h1><p class='dim'>reconcile {_e(__version__)} · {_e(d.created)}</p>"
+        f"<div class='caution'><strong>Bench safety.</strong> {_e(CAUTIONS)}</div>"
+        f"{body}</body></html>"
+    )
+
+
+def write_report(d: ReportData, path: Path) -> Path:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(render_html(d), encoding="utf-8")
+    return path

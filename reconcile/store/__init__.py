@@ -1,0 +1,1 @@
+"""The append-only session store and the session commands over it."""

@@ -1,0 +1,1 @@
+"""The least rework that restores the spec: candidates, search, yield."""

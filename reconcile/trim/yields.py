@@ -1,0 +1,142 @@
+"""How likely a reworked board is to meet spec: Monte Carlo over what is still unknown.
+
+Two things are uncertain after a rework (JCGM 101:2008 style propagation by sampling):
+
+* the built board: draws of every fitted parameter from the linearised posterior, a
+  multivariate normal in the internal coordinates of :mod:`reconcile.priors`, clipped to
+  the hard bounds (in design mode the "posterior" is the prior: the parts' tolerances);
+* each new part: uniform within ±its tolerance around its standard value (a tolerance is
+  a limit with no distribution stated: rectangular, JCGM 100:2008 4.3.7).
+
+The same posterior draws serve every option and the unchanged board (common random
+numbers, so that the differences between options are not sampling noise), and all of
+them are solved in one engine call. A sample meets spec when it has a DC solution, every
+transistor is forward-active with |VCE| >= ``min_vce``, no resistor (nor either half of a
+parallel pair) exceeds its rating, and every [spec] entry is within its limits.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from reconcile.engine import Parameters, solve_batch
+from reconcile.trim.candidates import Singles
+from reconcile.trim.search import Context, changed_resistors, first_order_state, score_solution
+
+PERCENTILES = (5.0, 50.0, 95.0)
+
+
+@dataclass(frozen=True)
+class YieldEstimate:
+    """Monte Carlo result for one option: the fraction meeting spec, the spread of each
+    reported quantity and the draws themselves (for plots)."""
+
+    fraction: float
+    samples: int
+    spread: dict[str, dict[str, float]]
+    draws: dict[str, np.ndarray]
+
+    @property
+    def stderr(self) -> float:
+        """Binomial standard error of the fraction."""
+        p = self.fraction
+        return float(np.sqrt(p * (1.0 - p) / max(self.samples, 1)))
+
+
+def posterior_draws(ctx: Context, samples: int, rng: np.random.Generator) -> np.ndarray:
+    """(samples, P) internal vectors from the posterior, clipped to the bounds.
+
+    Drawn through the eigen-decomposition of the symmetrised covariance with negative
+    eigenvalues (round-off of a nearly singular fit) set to zero.
+    """
+    cov = 0.5 * (ctx.covariance + ctx.covariance.T)
+    w, v = np.linalg.eigh(cov)
+    factor = v * np.sqrt(np.clip(w, 0.0, None))
+    draws = ctx.x + rng.standard_normal((samples, ctx.x.size)) @ factor.T
+    return np.clip(draws, ctx.space.lower, ctx.space.upper)
+
+
+def yields(
+    ctx: Context,
+    singles: Singles,
+    combos: np.ndarray,
+    samples: int,
+    rng: np.random.Generator,
+    option_v: np.ndarray | None = None,
+) -> list[YieldEstimate]:
+    """Yield of each candidate in ``combos`` (rows of single-change indices, -1 padded;
+    an all -1 row is the board unchanged), in one engine call of rows × samples boards.
+
+    ``option_v`` (rows, n + 1), the DC node voltages of each candidate as predicted, seeds
+    Newton for its draws at a first-order step from there (default: the built board).
+    """
+    n_opt = combos.shape[0]
+    x_draws = posterior_draws(ctx, samples, rng)
+    draws = ctx.space.to_parameters(x_draws)
+    built = draws.resistor_ohms
+    rows = np.repeat(combos, samples, axis=0)
+    base_r = np.tile(built, (n_opt, 1))
+    # The new parts: their standard values moved within ±tolerance, one draw per board.
+    jitter = (
+        rng.uniform(-1.0, 1.0, size=rows.shape) * singles.tolerance[np.where(rows >= 0, rows, 0)]
+    )
+    moved = _with_new_values(singles, rows, jitter)
+    r, share = changed_resistors(ctx, moved, _flat_index(rows), base_r)
+    params = Parameters.concatenate([draws] * n_opt).with_values(resistor_ohms=r)
+    if option_v is None:
+        option_v = np.repeat(ctx.base.state.v, n_opt, axis=0)
+    r_mean, _ = changed_resistors(
+        ctx, singles, combos, np.repeat(ctx.built_ohms[None, :], n_opt, axis=0)
+    )
+    seed = first_order_state(
+        ctx,
+        np.repeat(option_v, samples, axis=0),
+        np.tile(x_draws - ctx.x, (n_opt, 1)),
+        np.log(r) - np.repeat(np.log(r_mean), samples, axis=0),
+    )
+    sol = solve_batch(ctx.circuit, params, seed)
+    scores = score_solution(ctx, moved, _flat_index(rows), sol, share)
+    ok = scores.meets
+    out = []
+    for o in range(n_opt):
+        sl = slice(o * samples, (o + 1) * samples)
+        q = scores.q[sl]
+        spread, kept = {}, {}
+        for i, name in enumerate(ctx.quantities):
+            values = q[:, i]
+            finite = values[np.isfinite(values)]
+            kept[name] = values
+            if finite.size:
+                p05, p50, p95 = np.percentile(finite, PERCENTILES)
+                spread[name] = {
+                    "mean": float(np.mean(finite)),
+                    "sd": float(np.std(finite, ddof=1)) if finite.size > 1 else 0.0,
+                    "p05": float(p05),
+                    "p50": float(p50),
+                    "p95": float(p95),
+                }
+        out.append(YieldEstimate(float(np.mean(ok[sl])), samples, spread, kept))
+    return out
+
+
+def _with_new_values(singles: Singles, rows: np.ndarray, jitter: np.ndarray) -> Singles:
+    """A single-change table with one entry per (board, slot): the drawn new value."""
+    flat = rows.ravel()
+    safe = np.where(flat >= 0, flat, 0)
+    return Singles(
+        column=singles.column[safe],
+        action=singles.action[safe],
+        new_ohms=singles.new_ohms[safe] * (1.0 + jitter.ravel()),
+        combined_ohms=singles.combined_ohms[safe],
+        tolerance=singles.tolerance[safe],
+        series=singles.series,
+        refs=singles.refs,
+    )
+
+
+def _flat_index(rows: np.ndarray) -> np.ndarray:
+    """Rows re-pointed at the per-(board, slot) table of :func:`_with_new_values`."""
+    idx = np.arange(rows.size, dtype=np.intp).reshape(rows.shape)
+    return np.where(rows >= 0, idx, -1)
