@@ -1,0 +1,71 @@
+"""The memory budget every batched call works within, and the chunks that keep it.
+
+A batched call (the engine, a Monte Carlo, a batch of hypothesis fits) states how many
+bytes one row of its work needs; :func:`rows_per_chunk` turns the budget into a chunk
+size and :func:`chunks` walks the rows in slices of that size. The budget is process-wide
+and set once by the CLI (``--memory``); library users can set it with :func:`set_budget`
+or for a block with :func:`budget`.
+
+The default, 512 MiB, leaves room on a small machine for the interpreter and the
+libraries (about 150–250 MiB) beside one batch.
+"""
+
+from __future__ import annotations
+
+import contextlib
+from collections.abc import Iterator
+
+from reconcile.errors import InputError
+
+MIB = 1024 * 1024
+DEFAULT_BUDGET_BYTES = 512 * MIB
+"""Default working-memory budget for one batched call, bytes."""
+MIN_BUDGET_BYTES = 16 * MIB
+"""Smallest budget accepted: below this the fixed overheads dominate."""
+
+_budget = {"bytes": DEFAULT_BUDGET_BYTES}
+
+
+def budget_bytes() -> int:
+    """The budget now in force, bytes."""
+    return _budget["bytes"]
+
+
+def set_budget(nbytes: int) -> None:
+    """Set the process-wide budget (bytes); refuses values under :data:`MIN_BUDGET_BYTES`."""
+    nbytes = int(nbytes)
+    if nbytes < MIN_BUDGET_BYTES:
+        raise InputError(
+            f"a memory budget of {nbytes / MIB:.3g} MiB is too small: give at least "
+            f"{MIN_BUDGET_BYTES // MIB} MiB", key="--memory")
+    _budget["bytes"] = nbytes
+
+
+@contextlib.contextmanager
+def budget(nbytes: int) -> Iterator[None]:
+    """Use ``nbytes`` as the budget inside a ``with`` block."""
+    old = _budget["bytes"]
+    set_budget(nbytes)
+    try:
+        yield
+    finally:
+        _budget["bytes"] = old
+
+
+def rows_per_chunk(bytes_per_row: float, *, share: float = 1.0, at_least: int = 1) -> int:
+    """How many rows of ``bytes_per_row`` fit in ``share`` of the budget (at least ``at_least``).
+
+    ``bytes_per_row`` is the peak working memory of one row (sample, board, hypothesis),
+    temporaries included; a caller that holds results across chunks passes a ``share``
+    under 1 to leave room for them.
+    """
+    if not bytes_per_row > 0:
+        return max(at_least, 1)
+    return max(int(budget_bytes() * share // bytes_per_row), at_least, 1)
+
+
+def chunks(n_rows: int, rows: int) -> Iterator[slice]:
+    """Slices ``[0, rows)``, ``[rows, 2*rows)`` … covering ``n_rows`` rows."""
+    rows = max(int(rows), 1)
+    for start in range(0, n_rows, rows):
+        yield slice(start, min(start + rows, n_rows))
