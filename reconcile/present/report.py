@@ -1,6 +1,6 @@
 """The bench story in one self-contained HTML page.
 
-:func:`collect_report` runs the analyses (fit, miss budget, next readings, diagnosis,
+:func:`collect_report` runs the analyses (fit, error budget, next readings, diagnosis,
 trim, and a lot when given) and draws their figures; :func:`render_html` turns the
 result into one HTML file with every plot embedded as a PNG data URI, so the page opens
 anywhere with no network. Code here computes or renders; it never prints.
@@ -18,7 +18,7 @@ from pathlib import Path
 from reconcile import __version__
 from reconcile.model.board import Board
 from reconcile.data.readings import Reading, readings_to_csv, standard_uncertainty
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 CAUTIONS = (
     "Bench work can hurt people. Follow your local lab rules and qualified practice: "
@@ -85,7 +85,7 @@ def collect_report(
     from reconcile.pipeline.analyses import run_fit
     from reconcile.diagnosis.diagnose import diagnose
     from reconcile.present.plots_fit import panel_png
-    from reconcile.present.plots_report import hypotheses_png, miss_budget_png, operating_point_png
+    from reconcile.present.plots_report import hypotheses_png, error_budget_png, operating_point_png
     from reconcile.present.plots_trim import plot_trim
     from reconcile.engine.solution import solve
     from reconcile.trim.rework import trim
@@ -110,7 +110,7 @@ def collect_report(
     data.plots["readings"] = panel_png(outcome.fit, "readings")
     data.plots["fit"] = panel_png(outcome.fit, "parameters")
     if data.budget:
-        data.plots["budget"] = miss_budget_png(data.budget)
+        data.plots["budget"] = error_budget_png(data.budget)
     diag = diagnosis if diagnosis is not None else diagnose(board, readings)
     data.diagnosis = diag.to_dict()
     data.plots["diagnosis"] = hypotheses_png(data.diagnosis["hypotheses"])
@@ -175,7 +175,7 @@ def _num(x, unit: str = "", digits: int = 4) -> str:
     if isinstance(x, bool):
         return "yes" if x else "no"
     if isinstance(x, int | float):
-        return _e(format_si(float(x), unit, digits=digits)) if unit else _e(f"{x:.{digits}g}")
+        return _e(numbers.si(float(x), unit, digits))
     return _e(x)
 
 
@@ -311,15 +311,12 @@ def _fit_section(d: ReportData) -> str:
             else ('<span class="ok">in</span>' if inside else '<span class="bad">OUT</span>')
         )
         if key == "temperature":
-            val, sd = f"{p['value'] - 273.15:.1f} °C", f"{p['stderr']:.2g} K"
-            nom = f"{p['nominal'] - 273.15:.1f} °C"
+            val = _e(numbers.temperature(p["value"], p["stderr"]))
+            nom = _e(numbers.temperature(p["nominal"]))
         else:
-            val, sd, nom = (
-                _num(p["value"], unit),
-                _num(p["stderr"], unit, 2),
-                _num(p["nominal"], unit),
-            )
-        rows.append([_e(key), nom, val, sd, status, _e(p["informed_by"])])
+            val = _e(numbers.with_u(p["value"], p["stderr"], unit))
+            nom = _num(p["nominal"], unit)
+        rows.append([_e(key), nom, val, status, _e(p["informed_by"])])
     verdict = f.get("verdict", "")
     cls = "ok" if verdict == "consistent" else "bad"
     head = (
@@ -337,7 +334,7 @@ def _fit_section(d: ReportData) -> str:
         )
     return (
         head
-        + _table(["parameter", "nominal", "fitted", "±1σ", "in tolerance", "informed by"], rows)
+        + _table(["parameter", "nominal", "fitted ± 1σ", "in tolerance", "informed by"], rows)
         + _img(d.plots.get("fit"), "fit")
         + nxt
     )
@@ -345,26 +342,32 @@ def _fit_section(d: ReportData) -> str:
 
 def _budget_section(d: ReportData) -> str:
     if not d.budget:
-        return "<p>The board has no [spec] with a signal set-up: no miss budget.</p>"
+        return "<p>The board has no [spec] with a signal set-up: no error budget.</p>"
     rows = []
     for name, q in d.budget.items():
+        unit = "Ω" if name.endswith("resistance") else ""
+        target = q["target"]
         rows.append(
             [
                 _e(name),
-                _num(q["target"]),
-                _num(q["fitted"]),
-                _num(q["total"]),
-                _num(q["design"]),
-                *(f"{_num(q[g])} ±{q['stderr'][g]:.2g}" for g in ("parts", "devices", "bench")),
+                _num(target, unit),
+                _num(q["fitted"], unit),
+                _e(numbers.signed(q["total"], unit, scale=target)),
+                _e(numbers.signed(q["design"], unit, scale=target)),
+                *(
+                    _e(numbers.with_u(q[g], q["stderr"][g], unit, sign=True, scale=target))
+                    for g in ("parts", "devices", "bench")
+                ),
             ]
         )
     return (
         "<p>Shapley shares over the orders of substitution (design = the drawn board under "
-        "the exact model against the target).</p>"
+        "the exact model against the target); each share with its standard uncertainty "
+        "(GUM 7.2.6 rounding).</p>"
         + _table(
-            ["quantity", "target", "fitted", "miss", "design", "parts", "devices", "bench"], rows
+            ["quantity", "target", "fitted", "error", "design", "parts", "devices", "bench"], rows
         )
-        + _img(d.plots.get("budget"), "miss budget")
+        + _img(d.plots.get("budget"), "error budget")
     )
 
 
@@ -399,12 +402,15 @@ def _trim_section(d: ReportData) -> str:
         change = (
             "; ".join(
                 f"{c['ref']} {'replace with' if c['action'] == 'replace' else 'add in parallel'} "
-                f"{format_si(c['ohms'], 'Ω', digits=3)} ({c['series']})"
+                f"{numbers.si(c['ohms'], 'Ω', 3)} ({c['series']})"
                 for c in o["changes"]
             )
             or "no change"
         )
-        pred = ", ".join(f"{k} {v:.4g}" for k, v in o["predicted"].items())
+        pred = ", ".join(
+            f"{k} {numbers.si(v, 'Ω' if k.endswith('resistance') else '')}"
+            for k, v in o["predicted"].items()
+        )
         y = o.get("yield")
         rows.append(
             [
