@@ -205,7 +205,7 @@ def capture(
 
     from reconcile.model.board_loader import load_board
     from reconcile.errors import InputError
-    from reconcile.store.database import open_store
+    from reconcile.store.repository import open_store
 
     design = load_board(board)
     supplies = parse_supply_options(supply or [], design)

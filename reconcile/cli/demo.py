@@ -90,7 +90,7 @@ class _Story:
 
     def run(self) -> dict:
         from reconcile.model.board_loader import load_board
-        from reconcile.store.database import open_store
+        from reconcile.store.repository import open_store
 
         design = load_board(self.data / DESIGN_BOARD)
         truth = load_board(self.data / HIDDEN_TRUTH)
