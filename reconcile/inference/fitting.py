@@ -133,10 +133,6 @@ class FitResult:
         with np.errstate(invalid="ignore", divide="ignore"):
             return self.covariance / np.outer(sd, sd)
 
-    def fitted_board_parameters(self):
-        """Engine parameters of the fitted board (one sample, no probes)."""
-        return self.space.to_parameters(self.x[None, :], self.model.base)
-
     def predicted_solution(self):
         """The solve block of the fitted board."""
         from reconcile.engine import solve_batch
