@@ -192,7 +192,11 @@ class AnalysisInputs:
             raise InputError(f"{command} needs a READINGS file (or --session ID)")
         from reconcile.data.readings import load_readings
 
-        return cls(b, load_readings(readings_path, b), None, None, None)
+        notices: list[str] = []
+        readings = load_readings(readings_path, b, notices=notices)
+        for notice in notices:  # stderr: --json keeps stdout to one object
+            typer.echo(f"note: {notice}", err=True)
+        return cls(b, readings, None, None, None)
 
     def record(self, kind: str, result: dict) -> dict | None:
         if self.session is None:

@@ -44,14 +44,23 @@ CAUTIONS = (
 
 
 def sample_data_dir() -> Path:
-    """The bundled sample_data folder (the working directory's, else the source tree's)."""
-    here = Path(__file__).resolve().parent
-    for candidate in (Path.cwd() / "sample_data", here.parent / "sample_data"):
-        if (candidate / DESIGN_BOARD).is_file():
-            return candidate
+    """The installed sample data (package ``reconcile.sample_data``, the repository's
+    top-level ``sample_data/`` folder), found through :mod:`importlib.resources` so the
+    demo runs from a wheel in any folder."""
+    from importlib.resources import files
+
     from reconcile.errors import InputError
 
-    raise InputError("the bundled sample_data folder was not found (run from the repository)")
+    try:
+        folder = Path(str(files("reconcile.sample_data")))
+    except ModuleNotFoundError:
+        folder = None
+    if folder is None or not (folder / DESIGN_BOARD).is_file():
+        raise InputError(
+            "the sample data (package reconcile.sample_data) is not installed; "
+            "reinstall the package: pip install ."
+        )
+    return folder
 
 
 def run_demo(*, json_output: bool = False, out_dir: Path | None = None) -> dict:

@@ -35,6 +35,7 @@ import re
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
 
+from reconcile.data import csv_dialect
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.text_files import read_text
@@ -57,6 +58,8 @@ __all__ = [
 #: Columns in the order they are written; ``device`` only when a reading has one.
 COLUMNS = ("quantity", "at", "value", "unit", "uncertainty", "instrument", "note", "device")
 _REQUIRED_COLUMNS = ("quantity", "value")
+#: columns that hold numbers (a decimal comma is read in a semicolon export)
+_NUMBER_COLUMNS = ("value", "uncertainty")
 
 #: quantity -> (value kind for :func:`reconcile.values.parse_value`, what ``at`` names)
 QUANTITIES: dict[str, tuple[str, str]] = {
@@ -228,7 +231,9 @@ def standard_uncertainty(reading: Reading) -> float:
 
 
 # ----------------------------------------------------------------------- parsing
-def load_readings(path: str | os.PathLike[str], board: Board | None = None) -> list[Reading]:
+def load_readings(
+    path: str | os.PathLike[str], board: Board | None = None, *, notices: list[str] | None = None
+) -> list[Reading]:
     """Read a readings CSV file.
 
     Parameters
@@ -238,6 +243,9 @@ def load_readings(path: str | os.PathLike[str], board: Board | None = None) -> l
     board
         When given, every ``at`` is checked against it (nodes and refs must exist,
         small-signal readings need its ``[signal]`` table).
+    notices
+        When given, what the loader noticed about the file is appended here for the
+        caller to show (a semicolon, decimal-comma spreadsheet export).
 
     Returns
     -------
@@ -252,14 +260,22 @@ def load_readings(path: str | os.PathLike[str], board: Board | None = None) -> l
         The header or some rows are wrong; every problem is listed with its line.
     """
     name, text = read_text(path, "readings file")
-    return readings_from_text(text, path=name, board=board)
+    return readings_from_text(text, path=name, board=board, notices=notices)
 
 
 def readings_from_text(
-    text: str, path: str = "<text>", board: Board | None = None
+    text: str,
+    path: str = "<text>",
+    board: Board | None = None,
+    *,
+    notices: list[str] | None = None,
 ) -> list[Reading]:
     """Parse readings CSV text; see :func:`load_readings`."""
-    rows = _csv_rows(text.removeprefix("\ufeff"))
+    text = text.removeprefix("\ufeff")
+    dialect = _dialect(text, path)
+    if notices is not None and dialect.notice:
+        notices.append(f"{path}: {dialect.notice}")
+    rows = _csv_rows(text, dialect.delimiter)
     header = next(rows, None)
     if header is None:
         raise InputErrors([InputError(
@@ -279,6 +295,16 @@ def readings_from_text(
         raw = tuple(
             cells[index[c]] if c in index and index[c] < len(cells) else "" for c in COLUMNS
         )
+        if dialect.decimal_comma:
+            try:
+                raw = tuple(
+                    dialect.number(cell, path=path, line=line, column=c)
+                    if c in _NUMBER_COLUMNS else cell
+                    for c, cell in zip(COLUMNS, raw, strict=True)
+                )
+            except InputError as err:
+                errors.append(err)
+                continue
         problems: list[str] = []
         reading = _reading_from_cells(raw, line, board, problems)
         errors.extend(InputError(p, path=path, line=line) for p in problems)
@@ -289,7 +315,16 @@ def readings_from_text(
     return readings
 
 
-def _csv_rows(text: str) -> Iterator[tuple[int, list[str]]]:
+def _dialect(text: str, path: str) -> csv_dialect.Dialect:
+    """The separator and decimal mark, decided by the header line."""
+    for number, line in enumerate(text.splitlines(), start=1):
+        stripped = line.strip()
+        if stripped and not stripped.startswith("#"):
+            return csv_dialect.detect(line, COLUMNS, path=path, line=number)
+    return csv_dialect.COMMA
+
+
+def _csv_rows(text: str, delimiter: str = ",") -> Iterator[tuple[int, list[str]]]:
     """(line number, cells) for every row that is not a comment or blank."""
     start: list[int | None] = [None]
 
@@ -302,7 +337,7 @@ def _csv_rows(text: str) -> Iterator[tuple[int, list[str]]]:
                 start[0] = number
             yield line
 
-    for cells in csv.reader(lines()):
+    for cells in csv.reader(lines(), delimiter=delimiter):
         number, start[0] = start[0], None
         if any(c.strip() for c in cells):
             yield number or 0, cells
@@ -317,6 +352,8 @@ def _suggest(word: str, choices: Iterable[str]) -> str:
 
 def _header_index(cells: list[str], line: int, path: str) -> dict[str, int]:
     names = [c.strip().lower() for c in cells]
+    while names and not names[-1]:  # trailing empty columns a spreadsheet adds
+        names.pop()
     errors: list[InputError] = []
     if not set(names) & set(COLUMNS):
         raise InputErrors([InputError(

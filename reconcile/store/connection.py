@@ -85,6 +85,7 @@ def _url_engine(text: str, busy_s: float, connect_s: float) -> tuple[Engine, str
                 "use postgresql:// or postgresql+psycopg://", key="store")
         url = url.set(drivername="postgresql+psycopg")
         label = url.render_as_string(hide_password=True)
+        _require_psycopg(label)
         engine = sa.create_engine(
             url,
             # libpq counts whole seconds and reads anything under 2 as 2
@@ -96,6 +97,17 @@ def _url_engine(text: str, busy_s: float, connect_s: float) -> tuple[Engine, str
     raise InputError(
         f"store URL {url.render_as_string(hide_password=True)!r}: unsupported database "
         f"{backend!r}; give a file path, sqlite:///PATH or postgresql://...", key="store")
+
+
+def _require_psycopg(label: str) -> None:
+    """psycopg is the optional extra ``[postgres]``: say so in one line when it is absent."""
+    import importlib.util
+
+    if importlib.util.find_spec("psycopg") is None:
+        raise StoreError(
+            f"store {label}: a PostgreSQL store needs the psycopg driver, which is not "
+            "installed; install it with: pip install 'bench-reconcile[postgres]'"
+        )
 
 
 def _sqlite_engine(path: Path, busy_s: float) -> Engine:
