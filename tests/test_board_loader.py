@@ -45,7 +45,7 @@ ohms = "4k7"
 trim = false
 
 [resistors.RE]
-nodes = ["e", 0]
+nodes = ["e", "gnd"]
 ohms = "1k"
 
 [capacitors.C1]
@@ -99,7 +99,7 @@ nodes = ["top", "mid"]
 ohms = "1k"
 
 [resistors.RB]
-nodes = ["mid", "0"]
+nodes = ["mid", "gnd"]
 ohms = 1000
 
 [capacitors.CB]
@@ -193,8 +193,8 @@ def test_defaults_of_a_divider_without_transistor_or_signal() -> None:
 def test_inline_and_dotted_forms_and_integer_nodes() -> None:
     text = _edit(
         DIVIDER,
-        ('[resistors.RB]\nnodes = ["mid", "0"]\nohms = 1000\n',
-         '[resistors]\nRB = { nodes = ["mid", 0], ohms = "1k" }\nRD.nodes = ["mid", 7]\n'
+        ('[resistors.RB]\nnodes = ["mid", "gnd"]\nohms = 1000\n',
+         '[resistors]\nRB = { nodes = ["mid", "gnd"], ohms = "1k" }\nRD.nodes = ["mid", 7]\n'
          'RD.ohms = "2k2"\nRF = { nodes = [7, "gnd"], ohms = "470R" }\n'),
     )
     board = board_from_text(text)
@@ -294,8 +294,12 @@ CASES = [
      "supplies.VCC.tolerance", 'tolerance = "-2%"', "out of range"),
     ("one-node", [('nodes = ["vcc", "b"]', 'nodes = ["b", "b"]')], "",
      "resistors.R1.nodes", 'nodes = ["b", "b"]', "a part on one node only"),
-    ("one-node-via-0", [('nodes = ["e", 0]', 'nodes = ["gnd", 0]')], "",
-     "resistors.RE.nodes", 'nodes = ["gnd", 0]', "a part on one node only"),
+    ("node-0", [('nodes = ["e", "gnd"]', 'nodes = ["e", 0]')], "",
+     "resistors.RE.nodes", 'nodes = ["e", 0]', 'write "gnd"'),
+    ("node-0-text", [('nodes = ["e", "gnd"]', 'nodes = ["e", "0"]')], "",
+     "resistors.RE.nodes", 'nodes = ["e", "0"]', 'write "gnd"'),
+    ("meg", [('ohms = "1k"', 'ohms = "1meg"')], "",
+     "resistors.RE.ohms", 'ohms = "1meg"', "write M"),
     ("nodes-not-list", [('nodes = ["vcc", "b"]', 'nodes = "b"')], "",
      "resistors.R1.nodes", 'nodes = "b"', "list of two node names"),
     ("nodes-three", [('nodes = ["vcc", "b"]', 'nodes = ["vcc", "b", "c"]')], "",
@@ -341,8 +345,8 @@ CASES = [
      "signal.input", 'input = "inn"', "unknown node 'inn' (did you mean 'in'?)"),
     ("signal-on-supply", [('output = "out"', 'output = "vcc"')], "",
      "signal.output", 'output = "vcc"', "node of supply VCC"),
-    ("signal-on-gnd", [('input = "in"', 'input = "0"')], "",
-     "signal.input", 'input = "0"', "signal.input is gnd"),
+    ("signal-on-gnd", [('input = "in"', 'input = "gnd"')], "",
+     "signal.input", 'input = "gnd"', "signal.input is gnd"),
     ("signal-same-node", [('output = "out"', 'output = "in"')], "",
      "signal.output", 'output = "in"', "the same node"),
     ("signal-missing-output", [('output = "out"\n', '')], "",
@@ -447,3 +451,12 @@ def test_signal_nodes_may_connect_through_capacitors_only() -> None:
     board = board_from_text(BASE)
     assert board.capacitors["C1"].nodes[0] == board.signal.input
     assert board.capacitors["C2"].nodes[1] == board.signal.output
+
+
+def test_iec_60062_tolerance_letter_in_a_board() -> None:
+    # IEC 60062: F is ±1 %, J ±5 %, as the letter printed on a part or a parts list
+    samples = Path(__file__).resolve().parent.parent / "sample_data"
+    text = (samples / "line_receiver_cb.toml").read_text(encoding="utf-8")
+    text = text.replace('tolerance = "1%"', 'tolerance = "F"', 1)
+    board = board_from_text(text)
+    assert next(iter(board.resistors.values())).tolerance == pytest.approx(0.01)

@@ -163,7 +163,7 @@ def test_units_prefixes_and_uncertainty_forms() -> None:
         "current,RE,0.54m,A,2u\n"  # a value string stands for itself
         "resistance,R1,4k7,,1%\n"  # percent of the reading; IEC 60062 code
         "capacitance,C1,9.8,uF,\n"
-        "voltage,0/b,-1.6,V,\n"  # 0 is gnd
+        "voltage,gnd/b,-1.6,V,\n"  # ground is gnd (node 0 is refused, contract v2 §6.1)
         "temperature,,300,K,0.5 K\n"
         "temperature,,25,°C,1\n"
         "output_resistance,,1.5k,ohm,\n"

@@ -91,3 +91,9 @@ def test_unreadable_spreadsheet_exports_are_refused_with_use_commas(text, words)
     assert "bench.csv:" in message and "use commas" in message
     for w in words:
         assert w in message
+
+
+def test_node_0_in_a_reading_is_refused_with_the_hint_gnd():
+    # contract version 2, section 6.1: ground is gnd, node 0 is refused with that hint
+    with pytest.raises(InputErrors, match="write gnd"):
+        readings_from_text("quantity,at,value,unit\nvoltage,b/0,1.2,V\n", path="r.csv")

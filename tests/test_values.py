@@ -57,7 +57,7 @@ def test_iec_60062_rkm_codes(text: str, kind: str, expected: float) -> None:
     [
         ("f", sc.femto), ("p", sc.pico), ("n", sc.nano), ("u", sc.micro),
         ("\u00b5", sc.micro), ("\u03bc", sc.micro), ("m", sc.milli), ("k", sc.kilo),
-        ("K", sc.kilo), ("M", sc.mega), ("G", sc.giga), ("meg", sc.mega), ("MEG", sc.mega),
+        ("K", sc.kilo), ("M", sc.mega), ("G", sc.giga),
     ],
 )
 def test_si_prefixes(prefix: str, factor: float) -> None:
@@ -282,3 +282,27 @@ def test_parsing_is_fast() -> None:
         parse_value(text, kind)
     per_value_s = (time.perf_counter() - start) / len(texts)
     assert per_value_s < 50e-6
+
+
+@pytest.mark.parametrize("text", ["1meg", "2.2MEG", "4.7 Meg", "1megohm"])
+def test_meg_is_refused_with_the_hint_to_write_m(text: str) -> None:
+    # contract version 2, section 6.1: 'meg' is removed; write M
+    with pytest.raises(InputError, match="write M"):
+        parse_value(text, "ohms")
+
+
+# IEC 60062:2016, the letter code for resistance and capacitance tolerances (symmetric
+# codes, from memory of the standard's table): F ±1 %, G ±2 %, J ±5 %, K ±10 %, M ±20 %.
+@pytest.mark.parametrize(
+    ("letter", "fraction"),
+    [("B", 0.001), ("C", 0.0025), ("D", 0.005), ("F", 0.01), ("G", 0.02), ("J", 0.05),
+     ("K", 0.10), ("M", 0.20)],
+)
+def test_iec_60062_tolerance_letters(letter: str, fraction: float) -> None:
+    assert parse_value(letter, "tolerance") == pytest.approx(fraction, rel=1e-12)
+    assert parse_value(f"±{letter}", "tolerance") == pytest.approx(fraction, rel=1e-12)
+
+
+def test_lowercase_tolerance_letter_is_refused_with_the_capital() -> None:
+    with pytest.raises(InputError, match="'J'"):
+        parse_value("j", "tolerance")

@@ -16,7 +16,7 @@ One row per reading::
 - ``at``: a node, or ``a/b`` for V(a) − V(b) (voltage); a supply ref or a resistor ref
   (current); a resistor ref (resistance, measured out of circuit); a capacitor ref
   (capacitance); blank for gain, input_resistance, output_resistance and temperature.
-  ``0`` is ``gnd``.
+  Ground is ``gnd``; ``0`` is refused with that hint.
 
 Header names are case-insensitive; only ``quantity`` and ``value`` are required.
 Lines starting with ``#`` and blank lines are skipped; a UTF-8 byte-order mark is
@@ -512,7 +512,9 @@ def _voltage_at(text: str, board: Board | None, problems: list[str]) -> str | No
     if len(ends) > 2 or not all(ends):
         problems.append(f"voltage at {text!r}: write a node, or a/b for V(a) - V(b)")
         return None
-    ends = [GND if e == "0" else e for e in ends]
+    if "0" in ends:
+        problems.append(f"voltage at {text!r}: node '0' is not ground here; write gnd")
+        return None
     if len(ends) == 2 and ends[0] == ends[1]:
         problems.append(f"voltage at {text!r}: both ends are the same node")
         return None

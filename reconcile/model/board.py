@@ -5,7 +5,7 @@ file (TOML, see the contract in the README) and never changes afterwards; varian
 board (a fault, a rework option) are new boards made with :meth:`Board.replace_part` or
 :func:`dataclasses.replace`.
 
-Node names are strings; ``"gnd"`` is the 0 V reference (the loader maps ``"0"`` to it).
+Node names are strings; ``"gnd"`` is the 0 V reference (the loader refuses ``"0"``).
 """
 
 from __future__ import annotations

@@ -8,7 +8,8 @@ Rules beyond the value strings of :mod:`reconcile.values`:
 
 - refs (``R1``, ``C1``, ``VCC``, ``Q1``) are unique across the whole board and contain
   no ``.`` or ``/``; node names are strings (an integer is taken as its decimal text),
-  ``"0"`` is ``gnd``, and a node name contains no ``/`` (readings use ``a/b``);
+  ``"0"`` is refused with the hint to write ``gnd`` (contract version 2, §6.1), and a
+  node name contains no ``/`` (readings use ``a/b``);
 - every part joins two different nodes; a transistor's base or collector may not sit on
   its emitter node (collector on base, a diode-connected transistor, is fine);
 - a node needs a DC path to gnd: resistors, supplies (node to gnd) and the terminals of
@@ -196,7 +197,10 @@ class _Checker:
         if "/" in name:
             self.error(key, f"node name {name!r} contains '/', which readings use for a/b")
             return None
-        return GND if name == "0" else name
+        if name == "0":
+            self.error(key, "node \"0\" is not ground here: write \"gnd\" for the 0 V reference")
+            return None
+        return name
 
 
 # ------------------------------------------------------------------------- loader

@@ -4,9 +4,10 @@ Rules (docs/formats.md §1):
 
 - a plain number: ``2.5``, ``-5``, ``1e-15``; ``inf`` / ``infinity`` in any case;
 - an SI prefix, then optionally a unit, with or without spaces: ``27k``, ``27 k``,
-  ``27kohm``, ``27 kΩ``, ``10uF``, ``2.5mA``. Prefixes ``f p n u µ m k K M G`` and
-  ``meg`` (any case, 1e6). Case matters: ``1M`` is 1e6, ``1m`` is 1e-3. ``K`` is kilo
-  everywhere except in a temperature, where it is kelvin;
+  ``27kohm``, ``27 kΩ``, ``10uF``, ``2.5mA``. Prefixes ``f p n u µ m k K M G``.
+  Case matters: ``1M`` is 1e6, ``1m`` is 1e-3. ``K`` is kilo everywhere except in a
+  temperature, where it is kelvin. ``meg`` is refused with the hint to write ``M``
+  (contract version 2, §6.1);
 - an IEC 60062 letter-and-digit (RKM) code, the letter standing for the decimal point:
   ``4k7`` = 4 700, ``470R`` = 470, ``R47`` = 0.47, ``2M2``, ``1u5`` = 1.5e-6, ``4K7``.
   Codes with ``R`` are for resistance only;
@@ -15,8 +16,10 @@ Rules (docs/formats.md §1):
   watts ``W``; hertz ``Hz``; seconds ``s``; plain numbers take no unit;
 - a temperature needs a unit: ``25 C``, ``25C``, ``25 °C``, ``298.15 K``; returned in
   kelvin. No prefixes, no RKM codes;
-- a tolerance is ``5%``, ``0.1 %``, ``50 ppm`` or a bare fraction (``0.05`` is 5 %),
-  returned as a relative fraction; a leading ``±`` is allowed.
+- a tolerance is ``5%``, ``0.1 %``, ``50 ppm``, a bare fraction (``0.05`` is 5 %) or an
+  IEC 60062 tolerance letter (``F`` 1 %, ``G`` 2 %, ``J`` 5 %, ``K`` 10 %, ``M`` 20 %;
+  :data:`TOLERANCE_LETTERS`), returned as a relative fraction; a leading ``±`` is
+  allowed.
 
 Every result is rounded to 12 significant digits, so ``10u`` is ``1e-05`` and not
 ``9.999999999999999e-06``. Errors are :class:`reconcile.errors.InputError` without a
@@ -40,6 +43,7 @@ __all__ = [
     "parse_temperature",
     "parse_tolerance",
     "parse_value",
+    "TOLERANCE_LETTERS",
 ]
 
 #: 0 °C in kelvin; exact by the definition of the Celsius scale (same value as
@@ -95,6 +99,24 @@ KINDS: dict[str, tuple[str, str]] = {
     "plain": ("a plain number", "no unit"),
     "temperature": ("a temperature", "C, °C or K, e.g. 25 C or 298.15 K"),
     "tolerance": ("a tolerance", "%, ppm or a bare fraction, e.g. 5% or 0.05"),
+}
+
+#: IEC 60062 tolerance letters for symmetric tolerances, as relative fractions. (For
+#: capacitors under 10 pF the same B, C, D, F letters also stand for absolute tolerances
+#: in pF; a tolerance field here is always relative.)
+TOLERANCE_LETTERS: dict[str, float] = {
+    "L": 0.0001,
+    "P": 0.0002,
+    "W": 0.0005,
+    "B": 0.001,
+    "C": 0.0025,
+    "D": 0.005,
+    "F": 0.01,
+    "G": 0.02,
+    "J": 0.05,
+    "K": 0.10,
+    "M": 0.20,
+    "N": 0.30,
 }
 
 _SYMBOL = {
@@ -161,7 +183,10 @@ def _split_prefix(text: str, rest: str, kind: str) -> tuple[float, str]:
     if rest == "K" or _unit_kind(rest) is None:
         # not a bare unit: a prefix, possibly followed by a unit
         if rest[:3].lower() == "meg":
-            return 1e6, rest[3:].strip()
+            raise InputError(
+                f"{text!r}: 'meg' is not a prefix here; write M for mega "
+                f"(e.g. {text[: len(text) - len(rest)].strip() or '1'}M; m is milli)"
+            )
         if rest[0] in PREFIXES:
             return PREFIXES[rest[0]], rest[1:].strip()
     return 1.0, rest
@@ -201,6 +226,13 @@ def _parse_tolerance(text: str | int | float) -> float:
     if not isinstance(text, str):
         return _round12(float(text))
     body = text.strip().removeprefix("±")
+    if body in TOLERANCE_LETTERS:
+        return TOLERANCE_LETTERS[body]
+    if len(body) == 1 and body.upper() in TOLERANCE_LETTERS:
+        raise InputError(
+            f"tolerance letter {body!r}: the IEC 60062 letters are capitals; "
+            f"write {body.upper()!r} ({100 * TOLERANCE_LETTERS[body.upper()]:g}%)"
+        )
     m = _NUMBER_RE.match(body)
     if not m or not body:
         raise InputError(f"cannot read {text!r} as a tolerance; write e.g. 5%, 0.1% or 0.05")
