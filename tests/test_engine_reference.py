@@ -40,6 +40,9 @@ def test_thermal_voltage_matches_codata(temperature_k: float) -> None:
     # evaluated in mpmath at 40 digits.
     assert constants.k == 1.380649e-23
     assert constants.e == 1.602176634e-19
+    # the engine's literals are exactly scipy's values (the 2019 SI defining constants)
+    assert devices.BOLTZMANN_J_PER_K == constants.k
+    assert devices.ELEMENTARY_CHARGE_C == constants.e
     vt = float(devices.thermal_voltage(temperature_k))
     assert vt == pytest.approx(constants.k * temperature_k / constants.e, rel=1e-15)
     with mpmath.workdps(MP_DIGITS):

@@ -14,7 +14,9 @@ VT = k·T/q:
 
 Everything here works in the npn frame: a pnp is evaluated with its junction voltages
 negated and its currents negated afterwards (the caller does both, see
-:mod:`reconcile.engine.dc`). Constants are CODATA values from :mod:`scipy.constants`.
+:mod:`reconcile.engine.dc`). The two constants are exact by the 2019 definition of the
+SI (written as literals: importing :mod:`scipy.constants` costs about 0.2 s of every
+command's start-up; a test checks them against it).
 
 The exponential is continued linearly above ``EXP_LIMIT`` (an argument of 80, about
 2 V across a junction at room temperature) so that wild Newton iterates cannot
@@ -26,12 +28,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import constants
 
 T0_K = 298.15
 """Reference temperature of the device tables, in kelvin (25 C)."""
 
-K_OVER_Q = constants.k / constants.e
+BOLTZMANN_J_PER_K = 1.380649e-23
+"""The Boltzmann constant k, exact by the 2019 definition of the SI (SI Brochure, 9th
+edition, 2.2), in J/K."""
+
+ELEMENTARY_CHARGE_C = 1.602176634e-19
+"""The elementary charge e, exact by the 2019 definition of the SI, in C."""
+
+K_OVER_Q = BOLTZMANN_J_PER_K / ELEMENTARY_CHARGE_C
 """Boltzmann constant over the elementary charge, in V/K."""
 
 EXP_LIMIT = 80.0
