@@ -85,8 +85,8 @@ def solve_batch(
     vbe_n, vbc_n = batch.junctions(v)
     jac_ff, rhs = batch.linear_system(all_idx, vbe_n, vbc_n)
     # At the linearisation point the linear model is exact: KCL error = J·v − rhs.
-    kcl_free = np.einsum("nij,nj->ni", jac_ff, v[:, circuit.free]) - rhs
-    leaving_fixed = np.einsum("nij,nj->ni", batch.g_xall, v)  # (N, n_fixed) through branches
+    kcl_free = (jac_ff @ v[:, circuit.free, None])[:, :, 0] - rhs
+    leaving_fixed = batch.current_out_of_fixed(v)  # (N, n_fixed) through branches
 
     q = circuit.transistor_nodes
     pol = circuit.polarity
