@@ -1,4 +1,4 @@
-"""Bench readings: the readings CSV file (the contract's section 3).
+"""Bench readings: the readings CSV file (docs/formats.md §3).
 
 One row per reading::
 

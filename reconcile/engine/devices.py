@@ -1,6 +1,6 @@
 """The transistor equations, as pure numpy functions over a leading sample axis.
 
-The model is fixed by the project's contract (README, "Device model"): the Ebers–Moll
+The model is fixed by the project's contract (docs/formats.md §2.1): the Ebers–Moll
 transport form with a forward Early effect and an emission coefficient, i.e. the
 Gummel–Poon model with no high-injection knee and no leakage terms. For an npn, with
 VT = k·T/q:

@@ -1,4 +1,4 @@
-"""Read a board file (TOML, the contract's section 2) into a frozen :class:`Board`.
+"""Read a board file (TOML, docs/formats.md §2) into a frozen :class:`Board`.
 
 The loader checks the whole file and reports every problem at once, as
 :class:`reconcile.errors.InputErrors`: each problem names the file, the key

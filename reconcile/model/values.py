@@ -1,6 +1,6 @@
 """Value strings: numbers as people write them on schematics, in board and readings files.
 
-Rules (the contract's section 1):
+Rules (docs/formats.md §1):
 
 - a plain number: ``2.5``, ``-5``, ``1e-15``; ``inf`` / ``infinity`` in any case;
 - an SI prefix, then optionally a unit, with or without spaces: ``27k``, ``27 k``,
