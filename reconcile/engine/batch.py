@@ -97,7 +97,13 @@ def solve_batch(
     all_idx = np.arange(params.n_samples)
     v = state.v
     vbe_n, vbc_n = batch.junctions(v)
-    jac_ff, rhs = batch.linear_system(all_idx, vbe_n, vbc_n)
+    if batch.final_system is not None:
+        jac_ff, rhs, valid = batch.final_system
+        redo = np.flatnonzero(~valid)
+        if len(redo):
+            jac_ff[redo], rhs[redo] = batch.linear_system(redo, vbe_n[redo], vbc_n[redo])
+    else:
+        jac_ff, rhs = batch.linear_system(all_idx, vbe_n, vbc_n)
     # At the linearisation point the linear model is exact: KCL error = J·v − rhs.
     kcl_free = (jac_ff @ v[:, circuit.free, None])[:, :, 0] - rhs
     leaving_fixed = batch.current_out_of_fixed(v)  # (N, n_fixed) through branches

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reconcile.engine import devices
+from reconcile.engine import devices, kernel
 from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
 
 V_ABS_TOL = 1e-9
@@ -103,6 +103,10 @@ class _Batch:
     fixed nodes (supplies, then gnd) push into each free node through branches. Every
     stamp is a :class:`_Scatter` built once from the topology.
     """
+
+    final_system = None
+    """(jac, rhs, valid) linearised at the solution, when the compiled kernel made it
+    (``valid``: the samples it solved; the others were solved by the numpy path)."""
 
     def __init__(self, circuit: Circuit, params: Parameters) -> None:
         self.circuit = circuit
@@ -315,16 +319,7 @@ class _Batch:
 
 def _solve(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """Solve a stack of small systems; a singular one gives NaN."""
-    try:
-        return np.linalg.solve(a, b[..., None])[..., 0]
-    except np.linalg.LinAlgError:
-        out = np.full(b.shape, np.nan, dtype=np.result_type(a, b))
-        for i in range(a.shape[0]):
-            try:
-                out[i] = np.linalg.solve(a[i], b[i])
-            except np.linalg.LinAlgError:
-                pass
-        return out
+    return kernel.solve_small(a, b[..., None])[..., 0]
 
 
 def _cold_start(batch: _Batch, idx: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -372,9 +367,19 @@ def solve_dc(
         if shifted:
             seed_is = initial.is_t if initial.is_t.shape[0] == n else initial.is_t[:1]
             vj += is_corrected_shift(batch, seed_is)[:, :, None]
-        v, vj, converged, iters = batch.newton(
-            all_idx, v, vj, max_iter=WARM_ITERATIONS, fresh=shifted
-        )
+        if kernel.use_compiled(n):
+            if not shifted and n_t:
+                vj[:, :, 0], vj[:, :, 1] = batch.junctions(v)
+            v_free, vj, converged, iters, jac, rhs = kernel.newton_dc(
+                batch, v[:, batch.free], vj, WARM_ITERATIONS, V_ABS_TOL, V_REL_TOL
+            )
+            v[:, batch.free] = v_free
+            v[:, batch.fixed] = batch.v_fixed
+            batch.final_system = (jac, rhs, converged.copy())
+        else:
+            v, vj, converged, iters = batch.newton(
+                all_idx, v, vj, max_iter=WARM_ITERATIONS, fresh=shifted
+            )
 
     todo = np.nonzero(~converged)[0]
     if len(todo):
