@@ -458,3 +458,20 @@ def _source_stepping(batch: _Batch, idx: np.ndarray):
             ok[k] = True
             v_out[k], vj_out[k] = v[0], vj[0]
     return ok, v_out, vj_out, total
+
+
+def jacobian_at(circuit: Circuit, params: Parameters, state: DCState) -> np.ndarray:
+    """The Jacobian of the free-node KCL equations at the solved point ``state``.
+
+    d(current leaving each free node)/d(free node voltages), (N, nF, nF): the Newton
+    matrix built by the same stamps as the iterations (floating-node ties included), at
+    the junction voltages of ``state.v`` with no limiting. At a converged point this is
+    the exact Jacobian, which :mod:`reconcile.engine.sensitivity` factorises for the
+    parameter sensitivities (implicit function theorem).
+    """
+    batch = _Batch(circuit, params)
+    idx = np.arange(batch.n)
+    v = np.asarray(state.v, dtype=float)
+    vbe, vbc = batch.junctions(v)
+    a, _ = batch.linear_system(idx, vbe, vbc)
+    return a

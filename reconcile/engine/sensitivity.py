@@ -1,0 +1,256 @@
+"""Analytic DC sensitivities: d(node voltages, supply and resistor currents)/d(parameters).
+
+At a solved operating point the free-node KCL equations F(v, p) = 0 hold, F being the
+current leaving each free node through the branches and into the transistor terminals.
+By the implicit function theorem
+
+    dv_free/dp = −J⁻¹ · (∂F/∂p + ∂F/∂v_fixed · dv_fixed/dp),     J = ∂F/∂v_free,
+
+with J the engine's own Newton matrix at the solution (:func:`reconcile.engine.dc.jacobian_at`),
+so one factorisation per board gives every column. The fixed nodes are the supplies
+(dv/dV_supply = 1 at its own node) and gnd.
+
+∂F/∂p is written out here from the same quantities the engine uses: a branch conductance
+g between nodes a and b adds g·(v_a − v_b) to F_a (−R⁻²·(v_a − v_b) per ohm of a resistor);
+a transistor parameter moves the terminal currents of
+:func:`reconcile.engine.devices.junction_currents` at fixed junction voltages (IS, beta,
+VA, n directly; the junction temperature through IS(T) and n·VT). The device equations
+themselves are not repeated: only their partial derivatives with respect to IS(T), beta,
+VA and n·VT, which the engine's equations do not need.
+
+A supply's current (delivered into the board) is the current leaving its node, so its
+derivative is ∂F_supply/∂v · dv/dp + ∂F_supply/∂p; a resistor's current is
+(v_a − v_b)/R.
+
+Parameter columns are named ``(field, column)`` after :class:`~reconcile.engine.Parameters`
+fields: ``resistor_ohms``, ``capacitor_leak_siemens``, ``supply_volts``, ``IS``,
+``beta``, ``VA``, ``n`` (column = the part's index) and ``temperature`` (column 0).
+Derivatives are per external unit (per ohm, per ampere of IS, per kelvin...).
+
+Rows are processed in chunks under the memory budget (:mod:`reconcile.engine.budget`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from reconcile.engine import devices
+from reconcile.engine.budget import chunks, rows_per_chunk
+from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
+from reconcile.engine.dc import DCState, jacobian_at
+
+FIELDS = ("resistor_ohms", "capacitor_leak_siemens", "supply_volts", "IS", "beta", "VA", "n",
+          "temperature")
+DEVICE_FIELDS = ("IS", "beta", "VA", "n")
+
+
+def all_columns(circuit: Circuit) -> tuple[tuple[str, int], ...]:
+    """Every parameter column the DC solution depends on, in a fixed order."""
+    cols: list[tuple[str, int]] = []
+    cols += [("resistor_ohms", j) for j in range(len(circuit.resistor_refs))]
+    cols += [("capacitor_leak_siemens", j) for j in range(len(circuit.capacitor_refs))]
+    cols += [("supply_volts", j) for j in range(len(circuit.supply_refs))]
+    for name in DEVICE_FIELDS:
+        cols += [(name, j) for j in range(len(circuit.transistor_refs))]
+    if circuit.transistor_refs:
+        cols.append(("temperature", 0))
+    return tuple(cols)
+
+
+@dataclass(frozen=True)
+class DCSensitivity:
+    """Derivatives at the solved point, one row per sample, one column per parameter.
+
+    ``node_v`` (N, n_nodes, P): dV(node)/dp; ``supply_current`` (N, nS, P): d(current
+    delivered into the board)/dp; ``resistor_current`` (N, nR, P): d(current from
+    nodes[0] to nodes[1])/dp. Rows whose solve did not converge are NaN.
+    """
+
+    columns: tuple[tuple[str, int], ...]
+    node_v: np.ndarray
+    supply_current: np.ndarray
+    resistor_current: np.ndarray
+
+
+def _device_partials(circuit: Circuit, params: Parameters, vbe: np.ndarray, vbc: np.ndarray):
+    """Partial derivatives (npn frame) of ic and ib, at fixed junction voltages, with
+    respect to IS (25 C), beta, VA, n and the temperature: dict name -> (dic, dib),
+    each (N, nT)."""
+    t = params.temperature[:, None]
+    vt = devices.thermal_voltage(t)
+    n_vt = params.n * vt
+    is_t = devices.saturation_current(params.IS, t, params.xti, params.bandgap)
+    beta, beta_r, va = params.beta, params.beta_r, params.VA
+    ef, def_ = devices._exp_continued(vbe / n_vt)
+    er, der = devices._exp_continued(vbc / n_vt)
+    i_f, i_r = is_t * (ef - 1.0), is_t * (er - 1.0)
+    inv_va = 1.0 / va
+    q_early = 1.0 - vbc * inv_va
+    # d/d is_t
+    dic_dis = ((ef - 1.0) - (er - 1.0)) * q_early - (er - 1.0) / beta_r
+    dib_dis = (ef - 1.0) / beta + (er - 1.0) / beta_r
+    # d/d n_vt
+    dif_dnvt = -is_t * def_ * vbe / n_vt**2
+    dir_dnvt = -is_t * der * vbc / n_vt**2
+    dic_dnvt = (dif_dnvt - dir_dnvt) * q_early - dir_dnvt / beta_r
+    dib_dnvt = dif_dnvt / beta + dir_dnvt / beta_r
+    # IS(T) = IS·(T/T0)^xti·exp(Eg/(k/q)·(1/T0 − 1/T)); n·VT = n·(k/q)·T
+    dis_dIS = is_t / params.IS
+    dis_dT = is_t * (params.xti / t + params.bandgap / (devices.K_OVER_Q * t**2))
+    dnvt_dT = params.n * devices.K_OVER_Q
+    return {
+        "IS": (dic_dis * dis_dIS, dib_dis * dis_dIS),
+        "beta": (np.zeros_like(i_f), -i_f / beta**2),
+        "VA": ((i_f - i_r) * vbc * inv_va**2, np.zeros_like(i_f)),
+        "n": (dic_dnvt * vt, dib_dnvt * vt),
+        "temperature": (dic_dis * dis_dT + dic_dnvt * dnvt_dT, dib_dis * dis_dT + dib_dnvt * dnvt_dT),
+    }
+
+
+def _bytes_per_row(circuit: Circuit, n_cols: int) -> float:
+    size = circuit.n_nodes + 1
+    n_b = len(circuit.branch_nodes)
+    return 8.0 * (4 * size * size + 4 * size * n_cols + 3 * n_b + 12 * len(circuit.transistor_refs))
+
+
+def dc_sensitivity(
+    circuit: Circuit,
+    params: Parameters,
+    state: DCState,
+    columns: tuple[tuple[str, int], ...] | None = None,
+) -> DCSensitivity:
+    """Analytic DC sensitivities of every sample of ``params`` at ``state`` (the engine's
+    solution of the same batch); ``columns`` defaults to :func:`all_columns`."""
+    cols = all_columns(circuit) if columns is None else tuple(columns)
+    n = params.n_samples
+    p = len(cols)
+    n_nodes = circuit.n_nodes
+    out_v = np.empty((n, n_nodes, p))
+    out_s = np.empty((n, len(circuit.supply_refs), p))
+    out_r = np.empty((n, len(circuit.resistor_refs), p))
+    rows = rows_per_chunk(_bytes_per_row(circuit, p), share=0.5)
+    for sl in chunks(n, rows):
+        sub = params.take(sl)
+        st = DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
+                     iterations=state.iterations[sl])
+        out_v[sl], out_s[sl], out_r[sl] = _chunk(circuit, sub, st, cols)
+    return DCSensitivity(columns=cols, node_v=out_v, supply_current=out_s, resistor_current=out_r)
+
+
+def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
+    n = params.n_samples
+    size = circuit.n_nodes + 1
+    p = len(cols)
+    v = np.array(state.v, dtype=float)
+    v[:, circuit.gnd] = 0.0
+    free = circuit.free
+    fixed = np.concatenate([circuit.supply_nodes, [circuit.gnd]]).astype(np.intp)
+    n_s = len(circuit.supply_refs)
+    branch = circuit.branch_nodes
+    g = np.concatenate(
+        [1.0 / params.resistor_ohms, params.capacitor_leak_siemens, params.probe_siemens], axis=1
+    )
+    n_r, n_c = len(circuit.resistor_refs), len(circuit.capacitor_refs)
+
+    # ∂F/∂p over all nodes (N, size, P) and ∂F/∂v over the fixed nodes' rows and columns.
+    dfdp = np.zeros((n, size, p))
+    dv_fixed = np.zeros((n, size, p))  # dv/dp of fixed nodes (supplies: 1 at their own)
+    col_of = {c: k for k, c in enumerate(cols)}
+    q = circuit.transistor_nodes
+    pol = circuit.polarity
+    vbe = pol * (v[:, q[:, 1]] - v[:, q[:, 2]]) if len(q) else np.zeros((n, 0))
+    vbc = pol * (v[:, q[:, 1]] - v[:, q[:, 0]]) if len(q) else np.zeros((n, 0))
+    partials = _device_partials(circuit, params, vbe, vbc) if len(q) else {}
+    for k, (name, j) in enumerate(cols):
+        if name in ("resistor_ohms", "capacitor_leak_siemens"):
+            b = j if name == "resistor_ohms" else n_r + j
+            a_node, b_node = branch[b]
+            dv_b = v[:, a_node] - v[:, b_node]
+            dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
+            dfdp[:, a_node, k] += dg * dv_b
+            dfdp[:, b_node, k] -= dg * dv_b
+        elif name == "supply_volts":
+            dv_fixed[:, circuit.supply_nodes[j], k] = 1.0
+        elif name == "temperature":
+            dic, dib = partials["temperature"]
+            for t in range(len(q)):
+                _add_terminals(dfdp[:, :, k], q[t], pol[t] * dic[:, t], pol[t] * dib[:, t])
+        elif name in DEVICE_FIELDS:
+            dic, dib = partials[name]
+            _add_terminals(dfdp[:, :, k], q[j], pol[j] * dic[:, j], pol[j] * dib[:, j])
+        else:
+            raise KeyError(f"no DC sensitivity for parameter field {name!r}")
+
+    # ∂F/∂v for the rows of every node (branches, then the transistors' conductances).
+    # Only the free block is solved against; it is the engine's own Newton matrix.
+    j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
+    j_rows = np.zeros((n, size, size))
+    inc = np.zeros((len(branch), size))
+    if len(branch):
+        rb = np.arange(len(branch))
+        inc[rb, branch[:, 0]] += 1.0
+        inc[rb, branch[:, 1]] -= 1.0
+    j_rows += np.einsum("bi,nb,bj->nij", inc, g, inc, optimize=True)
+    if len(q):
+        t_ = params.temperature[:, None]
+        n_vt = params.n * devices.thermal_voltage(t_)
+        is_t = devices.saturation_current(params.IS, t_, params.xti, params.bandgap)
+        js = devices.junction_currents(vbe, vbc, is_t, params.beta, params.beta_r, params.VA, n_vt)
+        for t in range(len(q)):
+            row_c = (-js.dic_dvbc[:, t], js.dic_dvbe[:, t] + js.dic_dvbc[:, t], -js.dic_dvbe[:, t])
+            row_b = (-js.dib_dvbc[:, t], js.dib_dvbe[:, t] + js.dib_dvbc[:, t], -js.dib_dvbe[:, t])
+            row_e = tuple(-(x + y) for x, y in zip(row_c, row_b, strict=True))
+            for kk, row in enumerate((row_c, row_b, row_e)):
+                for jj in range(3):
+                    j_rows[:, q[t, kk], q[t, jj]] += row[jj]
+    if len(circuit.dc_floating):
+        fl = circuit.dc_floating
+        j_rows[:, fl, fl] += FLOAT_SIEMENS
+
+    rhs = dfdp[:, free, :] + np.einsum("nij,njp->nip", j_rows[:, free][:, :, fixed],
+                                       dv_fixed[:, fixed, :])
+    dv = dv_fixed.copy()
+    if len(free):
+        with np.errstate(all="ignore"):
+            try:
+                dv[:, free, :] = -np.linalg.solve(j_free, rhs)
+            except np.linalg.LinAlgError:
+                for i in range(n):
+                    try:
+                        dv[i, free, :] = -np.linalg.solve(j_free[i], rhs[i])
+                    except np.linalg.LinAlgError:
+                        dv[i, free, :] = np.nan
+    dv[:, circuit.gnd, :] = 0.0
+    if len(circuit.dc_floating):
+        dv[:, circuit.dc_floating, :] = 0.0  # no DC voltage to speak of
+
+    sup = circuit.supply_nodes
+    if n_s:
+        d_sup = np.einsum("nij,njp->nip", j_rows[:, sup, :], dv) + dfdp[:, sup, :]
+    else:
+        d_sup = np.zeros((n, 0, p))
+    rn = circuit.resistor_nodes
+    if n_r:
+        d_dv = dv[:, rn[:, 0], :] - dv[:, rn[:, 1], :]
+        d_res = d_dv / params.resistor_ohms[:, :, None]
+        for k, (name, j) in enumerate(cols):
+            if name == "resistor_ohms":
+                d_res[:, j, k] -= (v[:, rn[j, 0]] - v[:, rn[j, 1]]) / params.resistor_ohms[:, j] ** 2
+    else:
+        d_res = np.zeros((n, 0, p))
+    bad = ~np.asarray(state.converged, dtype=bool)
+    out_v = dv[:, :circuit.n_nodes, :]
+    if bad.any():
+        out_v[bad] = np.nan
+        d_sup[bad] = np.nan
+        d_res[bad] = np.nan
+    return out_v, d_sup, d_res
+
+
+def _add_terminals(target: np.ndarray, nodes: np.ndarray, d_ic: np.ndarray, d_ib: np.ndarray):
+    """Add terminal-current derivatives (into c, b; e carries −(c + b)) to ∂F/∂p rows."""
+    target[:, nodes[0]] += d_ic
+    target[:, nodes[1]] += d_ib
+    target[:, nodes[2]] -= d_ic + d_ib
