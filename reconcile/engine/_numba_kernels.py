@@ -97,14 +97,17 @@ def _terminal_voltage(v, vq, row, s, t, k):
 
 
 @numba.njit(**_OPTS)
-def _assemble(s, v, vbe, vbc, g_ff, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, a, b):
+def _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta,
+              beta_r, va, a, b):
     """The Newton system of board ``s`` with every transistor linearised at (vbe, vbc):
-    the same stamp as ``dc._Batch.linear_system``."""
+    the same stamp as ``dc._Batch.linear_system``. ``store_of[i*nF + j]`` is where entry
+    (i, j) is stored in ``g_ff`` (-1: a structural zero)."""
     nf = a.shape[0]
     for i in range(nf):
         b[i, 0] = rhs_fixed[s, i]
         for j in range(nf):
-            a[i, j] = g_ff[s, i * nf + j]
+            k = store_of[i * nf + j]
+            a[i, j] = g_ff[s, k] if k >= 0 else 0.0
     for t in range(q_free.shape[0]):
         ic, ib, c_be, c_bc, b_be, b_bc = junction_point(
             vbe[t], vbc[t], is_t[s, t], beta[s, t], beta_r[s, t], va[s, t], n_vt[s, t]
@@ -133,7 +136,7 @@ def _assemble(s, v, vbe, vbc, g_ff, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta
 
 @numba.njit(**_OPTS)
 def newton_dc(
-    g_ff, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, v_crit,
+    g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, v_crit,
     v0, vj0, max_iter, abs_tol, rel_tol,
     v_out, vj_out, conv_out, iters_out, jac_out, rhs_out,
 ):
@@ -170,7 +173,7 @@ def newton_dc(
                     limited = limited or l1 or l2
             else:
                 limited = True  # the first step is never the last
-            _assemble(s, v, vbe, vbc, g_ff, rhs_fixed, vq, q_free, pol, is_t, n_vt,
+            _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt,
                       beta, beta_r, va, a, b)
             it += 1
             if not _lu_solve(a, b):
@@ -203,7 +206,7 @@ def newton_dc(
             ve = _terminal_voltage(v, vq, q_free[t, 2], s, t, 2)
             vbe[t] = pol[t] * (vb - ve)
             vbc[t] = pol[t] * (vb - vc)
-        _assemble(s, v, vbe, vbc, g_ff, rhs_fixed, vq, q_free, pol, is_t, n_vt,
+        _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt,
                   beta, beta_r, va, a, b)
         for i in range(nf):
             rhs_out[s, i] = b[i, 0]

@@ -25,6 +25,7 @@ import numpy as np
 
 from reconcile.engine import devices, kernel
 from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
+from reconcile.engine.sparse import SPARSE_FROM_NODES, factorisation_for
 
 V_ABS_TOL = 1e-9
 V_REL_TOL = 1e-9
@@ -99,7 +100,9 @@ class _Batch:
     """Everything per sample that Newton iterations need, computed once.
 
     Matrices live in free-node space, flattened row-major: ``g_ff`` (N, nF·nF) holds the
-    branch conductances between free nodes. ``rhs_fixed`` (N, nF) is the current the
+    branch conductances between free nodes (for a board of :data:`SPARSE_FROM_NODES`
+    free nodes or more, only the slots of its fixed-pattern factorisation, see
+    :mod:`reconcile.engine.sparse`). ``rhs_fixed`` (N, nF) is the current the
     fixed nodes (supplies, then gnd) push into each free node through branches. Every
     stamp is a :class:`_Scatter` built once from the topology.
     """
@@ -127,6 +130,17 @@ class _Batch:
         pos_fixed = np.full(size, -1, dtype=np.intp)
         pos_fixed[self.fixed] = np.arange(n_x)
         self.pos_fixed = pos_fixed
+        # Storage of the free-node matrix: dense row-major (N, nF·nF), or for a large
+        # board the slots of its fixed-pattern factorisation (N, slots).
+        self.sparse = factorisation_for(circuit, capacitors=False, n_samples=n)
+        if self.sparse is None:
+            slot_of = np.arange(n_f * n_f, dtype=np.intp)
+        else:
+            slot_of = np.full(n_f * n_f, -1, dtype=np.intp)
+            slot_of[self.sparse.gather] = np.arange(self.sparse.n_slots)
+        self.store_of = slot_of
+        self.n_store = n_f * n_f if self.sparse is None else self.sparse.n_slots
+        self.diag_store = slot_of[np.arange(n_f) * (n_f + 1)]
         ff, fx, out_x = ([], [], []), ([], [], []), ([], [], [])
         for b, (i, j) in enumerate(branch.tolist()):
             for p, sp in ((i, 1.0), (j, -1.0)):
@@ -138,7 +152,7 @@ class _Batch:
                     continue
                 for q, sq in ((i, 1.0), (j, -1.0)):
                     if pos_free[q] >= 0:
-                        ff[0].append(pos_free[p] * n_f + pos_free[q])
+                        ff[0].append(slot_of[pos_free[p] * n_f + pos_free[q]])
                         ff[1].append(b)
                         ff[2].append(sp * sq)
                     else:
@@ -148,11 +162,11 @@ class _Batch:
         self._branch_ff = _Scatter(*ff)
         self._branch_fx = _Scatter(*fx)
         self._branch_out_fixed = _Scatter(*out_x)
-        self.g_ff = np.zeros((n, n_f * n_f))
+        self.g_ff = np.zeros((n, self.n_store))
         self._branch_ff.add_to(self.g_ff, g)
         self.floating_rows = pos_free[circuit.dc_floating]
         if len(self.floating_rows):
-            self.g_ff[:, self.floating_rows * (n_f + 1)] += FLOAT_SIEMENS
+            self.g_ff[:, self.diag_store[self.floating_rows]] += FLOAT_SIEMENS
         self.v_fixed = np.zeros((n, n_x))
         self.v_fixed[:, : params.supply_volts.shape[1]] = params.supply_volts
         # rhs_fixed[p] = -Σ G[p, x]·V[x] over fixed x: one source value per (branch, x).
@@ -187,7 +201,7 @@ class _Batch:
                     if pj < 0:
                         continue
                     for partial, sign in _DEVICE_PATTERN[(k, j)]:
-                        jac[0].append(pk * n_f + pj)
+                        jac[0].append(slot_of[pk * n_f + pj])
                         jac[1].append(tr * 4 + partial)
                         jac[2].append(sign)
         self._device_jac = _Scatter(*jac)
@@ -223,15 +237,38 @@ class _Batch:
     def linear_system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float = 1.0):
         """Free-space matrix (M, nF, nF) and right-hand side (M, nF) of the Newton step,
         every transistor linearised at (vbe, vbc)."""
-        n_f = self.n_free
+        a, rhs = self._system(idx, vbe, vbc, gmin=gmin, scale=scale)
+        return self.dense(a), rhs
+
+    def _system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float = 1.0):
+        """As :meth:`linear_system`, the matrix in storage form (M, n_store)."""
         a = self.g_ff[idx]
         rhs = self.rhs_fixed[idx] * scale if scale != 1.0 else self.rhs_fixed[idx]
         if gmin:
-            a[:, :: n_f + 1] += gmin
+            a[:, self.diag_store] += gmin
         if len(self.circuit.transistor_refs):
             st = self.device_state(idx, vbe, vbc)
             self._stamp_devices(a, rhs, st, vbe, vbc, self.vq_fixed[idx] * scale)
-        return a.reshape(len(idx), n_f, n_f), rhs
+        return a, rhs
+
+    def dense(self, a: np.ndarray) -> np.ndarray:
+        """A matrix in storage form (M, n_store) as (M, nF, nF)."""
+        m, n_f = a.shape[0], self.n_free
+        if self.sparse is None:
+            return a.reshape(m, n_f, n_f)
+        out = np.zeros((m, n_f * n_f))
+        out[:, self.sparse.gather] = a
+        return out.reshape(m, n_f, n_f)
+
+    def solve_stored(self, a: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+        """Solve systems in storage form; a singular one gives NaN."""
+        if self.sparse is None:
+            return _solve(self.dense(a), rhs)
+        x = self.sparse.solve_slots(a, rhs[..., None])[..., 0]
+        bad = np.flatnonzero(~np.isfinite(x).all(axis=1))
+        if len(bad):  # a failed static pivot: dense LAPACK with row exchanges
+            x[bad] = _solve(self.dense(a[bad]), rhs[bad])
+        return x
 
     def _stamp_devices(self, a, rhs, st, vbe, vbc, vq) -> None:
         """Add the linearised transistors: their partials into ``a`` (M, nF·nF) and their
@@ -300,8 +337,8 @@ class _Batch:
                 vbe_l = vbc_l = np.zeros((len(active), 0))
                 limited = np.zeros(len(active), dtype=bool)
             first = False
-            a, rhs = self.linear_system(sub, vbe_l, vbc_l, gmin=gmin, scale=scale)
-            v_free = _solve(a, rhs)
+            a, rhs = self._system(sub, vbe_l, vbc_l, gmin=gmin, scale=scale)
+            v_free = self.solve_stored(a, rhs)
             old = va[:, free]
             ok_num = np.all(np.isfinite(v_free), axis=1)
             small = np.all(np.abs(v_free - old) <= V_ABS_TOL + V_REL_TOL * np.abs(v_free), axis=1)
@@ -318,7 +355,7 @@ class _Batch:
 
 
 def _solve(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Solve a stack of small systems; a singular one gives NaN."""
+    """Solve a stack of small dense systems; a singular one gives NaN."""
     return kernel.solve_small(a, b[..., None])[..., 0]
 
 
@@ -367,7 +404,7 @@ def solve_dc(
         if shifted:
             seed_is = initial.is_t if initial.is_t.shape[0] == n else initial.is_t[:1]
             vj += is_corrected_shift(batch, seed_is)[:, :, None]
-        if kernel.use_compiled(n):
+        if batch.n_free < SPARSE_FROM_NODES and kernel.use_compiled(n):
             if not shifted and n_t:
                 vj[:, :, 0], vj[:, :, 1] = batch.junctions(v)
             v_free, vj, converged, iters, jac, rhs = kernel.newton_dc(

@@ -86,7 +86,7 @@ def newton_dc(batch, v0_free, vj0, max_iter: int, abs_tol: float, rel_tol: float
     jac = np.empty((n, n_f, n_f))
     rhs = np.empty((n, n_f))
     k.newton_dc(
-        batch.g_ff, batch.rhs_fixed, batch.vq_fixed, batch.q_free.astype(np.int64),
+        batch.g_ff, batch.store_of.astype(np.int64), batch.rhs_fixed, batch.vq_fixed, batch.q_free.astype(np.int64),
         np.ascontiguousarray(batch.circuit.polarity, dtype=float),
         batch.is_t, batch.n_vt, _f(batch.beta), _f(batch.beta_r), _f(batch.va), batch.v_crit,
         np.ascontiguousarray(v0_free), np.ascontiguousarray(vj0), int(max_iter),
@@ -99,13 +99,20 @@ def _f(x: np.ndarray) -> np.ndarray:
     return np.ascontiguousarray(x, dtype=float)
 
 
-def solve_small(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Solve a stack of small systems a (M, n, n) x = b (M, n, k); NaN where singular.
+def solve_small(a: np.ndarray, b: np.ndarray, sparse=None) -> np.ndarray:
+    """Solve a stack of systems a (M, n, n) x = b (M, n, k); NaN where singular.
 
-    The compiled LU for large stacks when the kernel is in use, else
-    :func:`numpy.linalg.solve` (one matrix at a time only if the stack has a singular
-    one).
+    With ``sparse`` (a :class:`reconcile.engine.sparse.SparseLU` of the matrices'
+    pattern, given for large boards) the fixed-pattern factorisation; else the compiled
+    LU for large stacks when the kernel is in use, else :func:`numpy.linalg.solve` (one
+    matrix at a time only if the stack has a singular one).
     """
+    if sparse is not None:
+        x = sparse.solve(a, b)
+        bad = np.flatnonzero(~np.isfinite(x).reshape(x.shape[0], -1).all(axis=1))
+        if len(bad):  # a failed static pivot: dense LAPACK with row exchanges
+            x[bad] = solve_small(a[bad], b[bad])
+        return x
     if use_compiled(a.shape[0]):
         out = np.empty(b.shape, dtype=np.result_type(a, b))
         _load().solve_stack(np.ascontiguousarray(a), np.ascontiguousarray(b), out)

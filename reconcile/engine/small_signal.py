@@ -30,6 +30,7 @@ import numpy as np
 
 from reconcile.engine.circuit import Circuit, Parameters
 from reconcile.engine.kernel import solve_small
+from reconcile.engine.sparse import factorisation_for
 
 
 @dataclass(frozen=True)
@@ -72,7 +73,7 @@ def analyse(circuit: Circuit, params: Parameters, jac_ff: np.ndarray) -> SmallSi
     rhs = np.zeros((n, m, 2), dtype=complex)
     rhs[:, i_in, 0] = 1.0
     rhs[:, i_out, 1] = 1.0
-    z = solve_small(y, rhs)
+    z = solve_small(y, rhs, factorisation_for(circuit, capacitors=True, n_samples=n))
     z_ii, z_oi = z[:, i_in, 0], z[:, i_out, 0]
     z_io, z_oo = z[:, i_in, 1], z[:, i_out, 1]
     rl = params.load_ohms
