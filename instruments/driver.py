@@ -164,7 +164,7 @@ class Driver:
     def __enter__(self) -> Self:
         return self
 
-    def __exit__(self, *exc_info: object) -> None:
+    def __exit__(self, *_exc: object) -> None:
         self.close()
 
     def __repr__(self) -> str:

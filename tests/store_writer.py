@@ -17,7 +17,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from store_support import numbered_reading  # noqa: E402
 
-from reconcile.store.database import open_store  # noqa: E402
+from reconcile.store.repository import open_store  # noqa: E402
 
 
 def main(argv: list[str]) -> int:

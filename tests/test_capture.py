@@ -42,7 +42,7 @@ from reconcile.model.board import DeviceParam
 from reconcile.model.board_loader import board_from_text
 from reconcile.errors import InputError
 from reconcile.inference.fitting import fit_board
-from reconcile.store.database import open_store
+from reconcile.store.repository import open_store
 
 HERE = Path(__file__).resolve().parent
 SAMPLES = HERE.parent / "sample_data"

@@ -44,7 +44,7 @@ def test_layer_contracts_hold(tmp_path):
 
 
 @pytest.mark.parametrize(("module", "wrong"), [
-    ("instruments/scpi.py", "import reconcile.store.database"),
+    ("instruments/scpi.py", "import reconcile.store.repository"),
     ("engine/dc.py", "import reconcile.inference.fitting"),
     ("cli/session.py", "import reconcile.cli.app"),
 ])

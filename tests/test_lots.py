@@ -35,7 +35,9 @@ from reconcile.lot.stats import capability, robust_z, vbe_at_current
 from reconcile.lot.characterise import LotOptions, characterise_jig, characterise_sweeps, parse_bins, run_lot
 from reconcile.data.readings import Reading, readings_from_text
 from reconcile.inference.simulate import simulate_readings
-from reconcile.lot.sweeps import extract, simulate_sweeps, sweeps_from_text, sweeps_to_csv
+from reconcile.data.sweep_file import sweeps_from_text, sweeps_to_csv
+from reconcile.lot.extraction import extract
+from reconcile.lot.sweep_simulator import simulate_sweeps
 
 ROOT = Path(__file__).resolve().parents[1]
 JIG = ROOT / "sample_data" / "lot_jig.toml"

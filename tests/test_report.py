@@ -13,7 +13,7 @@ import pytest
 
 from reconcile.model.board_loader import load_board
 from reconcile.data.readings import load_readings
-from reconcile.present.report import collect_report, write_report
+from reconcile.present.report import build_report, write_report
 
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_data"
@@ -30,7 +30,7 @@ def report_file(tmp_path_factory) -> Path:
     readings = load_readings(SAMPLES / "line_receiver_built.csv", board)
     lot = run_lot(SAMPLES / "lot_jig.toml", SAMPLES / "lot_jig_readings.csv")
     lot_png = plot_lot(lot, work / "lot.png").read_bytes()
-    data = collect_report(
+    data = build_report(
         board, readings, lot_result=lot, lot_plot=lot_png, work_dir=work, trim_samples=2000
     )
     return write_report(data, work / "report.html")

@@ -33,11 +33,12 @@ from store_support import (
     run_unprivileged,
 )
 
-from reconcile.store import database as store_module
+from reconcile.store import connection as store_module
 from reconcile.model.board_loader import board_from_text
 from reconcile.errors import InputError, StoreError
 from reconcile.data.readings import readings_from_text
-from reconcile.store.database import SCHEMA_VERSION, inputs_sha256, open_store
+from reconcile.store.repository import inputs_sha256, open_store
+from reconcile.store.schema import SCHEMA_VERSION
 
 TESTS = Path(__file__).resolve().parent
 WRITER = TESTS / "store_writer.py"

@@ -66,7 +66,7 @@ class Bench:
     def __enter__(self) -> Bench:
         return self
 
-    def __exit__(self, *exc_info: object) -> None:
+    def __exit__(self, *_exc: object) -> None:
         self.close()
 
 

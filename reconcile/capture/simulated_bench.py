@@ -156,7 +156,6 @@ class SimulatedBench:
         self._dc_cache: dict[tuple[str, str], float] = {}
         self._ss_cache: dict[tuple[float, float], dict[str, float]] = {}
         self._hand: tuple[str, str] | None = None
-        self._moves = 0
         self._since_move = 0
         self._series_ohm: float | None = None
         self._closed: str | None = None

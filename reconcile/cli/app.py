@@ -409,7 +409,7 @@ def report(
     """Write the bench story as one self-contained HTML page (plots embedded)."""
     import tempfile
 
-    from reconcile.present.report import collect_report, write_report
+    from reconcile.present.report import build_report, write_report
 
     inputs = AnalysisInputs.gather(board, readings, session, store, "report")
     meta = None
@@ -426,7 +426,7 @@ def report(
         with tempfile.TemporaryDirectory() as tmp:
             lot_png = plot_lot(lot_result, Path(tmp) / "lot.png").read_bytes()
     with tempfile.TemporaryDirectory() as tmp:
-        data = collect_report(
+        data = build_report(
             inputs.board,
             inputs.readings,
             session=meta,

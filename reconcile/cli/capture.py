@@ -137,55 +137,78 @@ class _Screen:
                            f"now holds {report.stored_total}")
 
 
+# The command's options, named once (typer reads them from the annotations).
+_BoardArg = Annotated[Path, typer.Argument(help="Board file (TOML) of the session.",
+                                           show_default=False)]
+_SessionOpt = Annotated[str, typer.Option("--session", help="Session id to capture into.",
+                                          show_default=False)]
+_StoreOpt = Annotated[_TextOpt, typer.Option(
+    "--store", help="Store file path or database URL (default: your data folder).")]
+_DmmOpt = Annotated[_FileOpt, typer.Option(
+    "--dmm", help="Instrument file of the DC voltmeter (also the AC one if it has the role).",
+)]
+_SupplyOpt = Annotated[Optional[list[str]], typer.Option(  # noqa: UP045
+    "--supply", help="Instrument file of the bench supply, FILE or REF=FILE (repeatable).",
+)]
+_ScannerOpt = Annotated[_FileOpt, typer.Option(
+    "--scanner", help="Instrument file of a scanner; its [channels] map channels to nodes.",
+)]
+_AcMeterOpt = Annotated[_FileOpt, typer.Option(
+    "--ac-meter", help="Instrument file of the AC voltmeter (default: the DMM).")]
+_GeneratorOpt = Annotated[_FileOpt, typer.Option(
+    "--generator", help="Instrument file of the function generator.")]
+_GainOpt = Annotated[bool, typer.Option(
+    "--gain/--no-gain", help="Also take the small-signal gain.")]
+_SeriesOpt = Annotated[_TextOpt, typer.Option(
+    "--series-resistor",
+    help="Also take the input resistance by the series-resistor method, with this "
+         "resistor (e.g. 75, 1k).")]
+_SeriesTolOpt = Annotated[str, typer.Option(
+    "--series-tolerance", help="Tolerance of the series resistor.")]
+_SignalOpt = Annotated[_TextOpt, typer.Option(
+    "--signal", help="Generator amplitude in V rms (default 10m).")]
+_SettleCountOpt = Annotated[int, typer.Option(
+    "--settle-count", help="Consecutive values that must agree.")]
+_SettleBandOpt = Annotated[_TextOpt, typer.Option(
+    "--settle-band", help="Absolute settle band for voltages (default 0.1m V).")]
+_SettleBandAOpt = Annotated[_TextOpt, typer.Option(
+    "--settle-band-current", help="Absolute settle band for currents (default 1u A).",
+)]
+_MaxSamplesOpt = Annotated[int, typer.Option(
+    "--max-samples", help="Values read at most before a reading is given up.")]
+_IntervalOpt = Annotated[_TextOpt, typer.Option(
+    "--interval", help="Time between values, s (default 0.2 s; 0 with --simulate).",
+)]
+_SimulateOpt = Annotated[_FileOpt, typer.Option(
+    "--simulate",
+    help="Use a simulated bench answering for this hidden board file instead of "
+         "instruments (instrument files then optional).")]
+_SeedOpt = Annotated[int, typer.Option("--seed", help="Noise seed of the simulated bench.")]
+_JsonOpt = Annotated[bool, typer.Option(
+    "--json", help="Print exactly one JSON object on stdout.")]
+
+
 def capture(
-    board: Annotated[Path, typer.Argument(help="Board file (TOML) of the session.",
-                                          show_default=False)],
-    session: Annotated[str, typer.Option("--session", help="Session id to capture into.",
-                                         show_default=False)],
-    store: Annotated[_TextOpt, typer.Option(
-        "--store", help="Store file path or database URL (default: your data folder).")] = None,
-    dmm: Annotated[_FileOpt, typer.Option(
-        "--dmm", help="Instrument file of the DC voltmeter (also the AC one if it has the role).",
-    )] = None,
-    supply: Annotated[Optional[list[str]], typer.Option(  # noqa: UP045
-        "--supply", help="Instrument file of the bench supply, FILE or REF=FILE (repeatable).",
-    )] = None,
-    scanner: Annotated[_FileOpt, typer.Option(
-        "--scanner", help="Instrument file of a scanner; its [channels] map channels to nodes.",
-    )] = None,
-    ac_meter: Annotated[_FileOpt, typer.Option(
-        "--ac-meter", help="Instrument file of the AC voltmeter (default: the DMM).")] = None,
-    generator: Annotated[_FileOpt, typer.Option(
-        "--generator", help="Instrument file of the function generator.")] = None,
-    gain: Annotated[bool, typer.Option(
-        "--gain/--no-gain", help="Also take the small-signal gain.")] = False,
-    series_resistor: Annotated[_TextOpt, typer.Option(
-        "--series-resistor",
-        help="Also take the input resistance by the series-resistor method, with this "
-             "resistor (e.g. 75, 1k).")] = None,
-    series_tolerance: Annotated[str, typer.Option(
-        "--series-tolerance", help="Tolerance of the series resistor.")] = "1%",
-    signal: Annotated[_TextOpt, typer.Option(
-        "--signal", help="Generator amplitude in V rms (default 10m).")] = None,
-    settle_count: Annotated[int, typer.Option(
-        "--settle-count", help="Consecutive values that must agree.")] = 3,
-    settle_band: Annotated[_TextOpt, typer.Option(
-        "--settle-band", help="Absolute settle band for voltages (default 0.1m V).")] = None,
-    settle_band_current: Annotated[_TextOpt, typer.Option(
-        "--settle-band-current", help="Absolute settle band for currents (default 1u A).",
-    )] = None,
-    max_samples: Annotated[int, typer.Option(
-        "--max-samples", help="Values read at most before a reading is given up.")] = 50,
-    interval: Annotated[_TextOpt, typer.Option(
-        "--interval", help="Time between values, s (default 0.2 s; 0 with --simulate).",
-    )] = None,
-    simulate: Annotated[_FileOpt, typer.Option(
-        "--simulate",
-        help="Use a simulated bench answering for this hidden board file instead of "
-             "instruments (instrument files then optional).")] = None,
-    seed: Annotated[int, typer.Option("--seed", help="Noise seed of the simulated bench.")] = 0,
-    json: Annotated[bool, typer.Option(
-        "--json", help="Print exactly one JSON object on stdout.")] = False,
+    board: _BoardArg,
+    session: _SessionOpt,
+    store: _StoreOpt = None,
+    dmm: _DmmOpt = None,
+    supply: _SupplyOpt = None,
+    scanner: _ScannerOpt = None,
+    ac_meter: _AcMeterOpt = None,
+    generator: _GeneratorOpt = None,
+    gain: _GainOpt = False,
+    series_resistor: _SeriesOpt = None,
+    series_tolerance: _SeriesTolOpt = "1%",
+    signal: _SignalOpt = None,
+    settle_count: _SettleCountOpt = 3,
+    settle_band: _SettleBandOpt = None,
+    settle_band_current: _SettleBandAOpt = None,
+    max_samples: _MaxSamplesOpt = 50,
+    interval: _IntervalOpt = None,
+    simulate: _SimulateOpt = None,
+    seed: _SeedOpt = 0,
+    json: _JsonOpt = False,
 ) -> None:
     """Take a session's readings from instruments: probe, settle, store each at once.
 
@@ -194,18 +217,13 @@ def capture(
     it; stores every reading as soon as it settles. Run it again after an interruption:
     readings already in the session are skipped.
     """
-    from reconcile.capture.bench_setup import open_bench, parse_supply_options, simulated_bench
+    from reconcile.capture.bench_setup import parse_supply_options
     from reconcile.capture.run import (
         DEFAULT_SETTLE_BAND_A,
         DEFAULT_SETTLE_BAND_V,
         DEFAULT_SIGNAL_VRMS,
-        Capture,
-        CaptureInterrupted,
     )
-
     from reconcile.model.board_loader import load_board
-    from reconcile.errors import InputError
-    from reconcile.store.database import open_store
 
     design = load_board(board)
     supplies = parse_supply_options(supply or [], design)
@@ -215,18 +233,41 @@ def capture(
     interval_s = _value(interval, "seconds", "--interval", 0.0 if simulate else 0.2)
     r_series = _value(series_resistor, "ohms", "--series-resistor", 0.0) or None
     tolerance = _value(series_tolerance, "tolerance", "--series-tolerance", 0.01)
+    settings = dict(
+        gain=gain, input_resistance=r_series is not None, series_resistor_ohm=r_series,
+        series_resistor_u_ohm=(r_series or 0.0) * tolerance / 3.0**0.5,
+        signal_vrms=signal_vrms, settle_count=settle_count, settle_band_v=band_v,
+        settle_band_a=band_a, max_samples=max_samples, sample_interval_s=interval_s,
+    )
     screen = _Screen(json_output=json)
+    bench, prompt = _bench(simulate, seed, screen, dmm=dmm, supplies=supplies,
+                           scanner=scanner, ac_meter=ac_meter, generator=generator)
+    report = _run_capture(design, store, session, bench, prompt, screen, json, settings)
+    if json:
+        _emit(report.to_dict())
+    else:
+        screen.summary(report)
+
+
+def _bench(simulate: Path | None, seed: int, screen: _Screen, **instruments: Any):
+    """The bench (instruments, or a simulated one for a hidden board) and the prompt."""
+    from reconcile.capture.bench_setup import open_bench, simulated_bench
+    from reconcile.errors import InputError
+    from reconcile.model.board_loader import load_board
 
     if simulate is not None:
-        bench = simulated_bench(load_board(simulate), seed=seed, dmm=dmm, supplies=supplies,
-                                scanner=scanner, ac_meter=ac_meter, generator=generator)
-        prompt = screen.simulated(bench.prompt)
-    else:
-        if dmm is None:
-            raise InputError("capture needs --dmm FILE (or --simulate TRUE_BOARD)", key="--dmm")
-        bench = open_bench(dmm=dmm, supplies=supplies, scanner=scanner, ac_meter=ac_meter,
-                           generator=generator)
-        prompt = screen.ask
+        bench = simulated_bench(load_board(simulate), seed=seed, **instruments)
+        return bench, screen.simulated(bench.prompt)
+    if instruments["dmm"] is None:
+        raise InputError("capture needs --dmm FILE (or --simulate TRUE_BOARD)", key="--dmm")
+    return open_bench(**instruments), screen.ask
+
+
+def _run_capture(design, store, session, bench, prompt, screen, json: bool, settings):
+    """Run the capture into the session; on an interruption say what is stored."""
+    from reconcile.capture.run import Capture, CaptureInterrupted
+    from reconcile.store.repository import open_store
+
     run = None
     try:
         with open_store(store) as db:
@@ -234,16 +275,10 @@ def capture(
                 design, db, session,
                 voltmeter=bench.voltmeter, supply=bench.supplies or None,
                 scanner=bench.scanner, ac_voltmeter=bench.ac_voltmeter,
-                generator=bench.generator, gain=gain,
-                input_resistance=r_series is not None,
-                series_resistor_ohm=r_series,
-                series_resistor_u_ohm=(r_series or 0.0) * tolerance / 3.0**0.5,
-                signal_vrms=signal_vrms, settle_count=settle_count, settle_band_v=band_v,
-                settle_band_a=band_a, max_samples=max_samples, sample_interval_s=interval_s,
-                prompt=prompt, show=screen.show,
+                generator=bench.generator, prompt=prompt, show=screen.show, **settings,
             )
             try:
-                report = run.run()
+                return run.run()
             except CaptureInterrupted as stop:
                 if json:
                     _emit(stop.report.to_dict())
@@ -258,10 +293,6 @@ def capture(
         raise
     finally:
         bench.close()
-    if json:
-        _emit(report.to_dict())
-    else:
-        screen.summary(report)
 
 
 def _emit(obj: object) -> None:

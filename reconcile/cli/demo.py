@@ -90,7 +90,7 @@ class _Story:
 
     def run(self) -> dict:
         from reconcile.model.board_loader import load_board
-        from reconcile.store.database import open_store
+        from reconcile.store.repository import open_store
 
         design = load_board(self.data / DESIGN_BOARD)
         truth = load_board(self.data / HIDDEN_TRUTH)
@@ -268,11 +268,11 @@ class _Story:
     def report(
         self, design, readings, outcome, diag, trim_result, lot, lot_png, store, sid
     ) -> None:
-        from reconcile.present.report import collect_report, write_report
+        from reconcile.present.report import build_report, write_report
 
         self.step("7. The report")
         meta = {k: v for k, v in store.show_session(sid).to_dict().items() if k != "readings"}
-        data = collect_report(
+        data = build_report(
             design,
             readings,
             session=meta,

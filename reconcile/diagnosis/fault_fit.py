@@ -323,6 +323,127 @@ def _seed_starts(group: _Group, seeds: list[np.ndarray]) -> tuple[np.ndarray, np
     return np.array(starts), np.array(start_owner)
 
 
+@dataclass
+class _LMState:
+    """The batched Levenberg–Marquardt state, one row per start (updated in place)."""
+
+    x: np.ndarray
+    f: np.ndarray
+    cost: np.ndarray
+    jac: np.ndarray
+    lam: np.ndarray
+    nu: np.ndarray
+    active: np.ndarray
+    converged: np.ndarray
+    abandoned: np.ndarray
+    iterations: np.ndarray
+    last_decrement: np.ndarray
+
+
+def _lm_start(group: _Group, x0: np.ndarray) -> _LMState:
+    h = x0.shape[0]
+    owner = np.arange(h)
+    x = np.clip(x0, group.lower, group.upper)
+    f, _ = group.evaluate(x, owner, record=True)
+    return _LMState(
+        x=x, f=f, cost=group.cost(x, f, owner), jac=group.jacobian(x, f, owner),
+        lam=np.full(h, LAMBDA_START), nu=np.full(h, 2.0), active=np.ones(h, dtype=bool),
+        converged=np.zeros(h, dtype=bool), abandoned=np.zeros(h, dtype=bool),
+        iterations=np.zeros(h, dtype=np.int64), last_decrement=np.full(h, np.inf),
+    )
+
+
+def _normal_equations(group: _Group, st: _LMState, idx: np.ndarray):
+    """Gauss–Newton matrix, gradient and damped matrix of rows ``idx`` (priors included;
+    fixed parameters take no step)."""
+    p = st.x.shape[1]
+    eye = np.eye(p)
+    free = group.free[idx]
+    jw = st.jac[idx] / group.uncertainty[None, :, None]
+    r = group.weighted(st.f[idx])
+    inv_var = np.where(free, 1.0 / group.sd[idx] ** 2, 0.0)
+    a = np.einsum("mri,mrj->mij", jw, jw) + inv_var[:, :, None] * eye
+    grad = np.einsum("mri,mr->mi", jw, r) + inv_var * (st.x[idx] - group.mu[idx])
+    diag = np.einsum("mii->mi", a)
+    damp = a + (st.lam[idx][:, None] * np.where(free, diag, 0.0))[:, :, None] * eye
+    damp = damp + np.where(free, 0.0, 1.0)[:, :, None] * eye  # fixed: δ = 0
+    grad = np.where(free, grad, 0.0)
+    return free, a, grad, damp
+
+
+def _newton_decrement(group: _Group, x: np.ndarray, free, a, grad) -> np.ndarray:
+    """gᵀA⁻¹g: the χ² a full Gauss–Newton step would still gain. A parameter held at a
+    bound by its gradient takes no part in it."""
+    eye = np.eye(x.shape[1])
+    span = group.upper - group.lower
+    pinned = ((x - group.lower <= 1e-9 * span) & (grad > 0)) | (
+        (group.upper - x <= 1e-9 * span) & (grad < 0)
+    )
+    moving = free & ~pinned
+    g_m = np.where(moving, grad, 0.0)
+    undamped = np.where(moving[:, :, None] & moving[:, None, :], a, 0.0)
+    undamped = undamped + np.where(moving, 0.0, 1.0)[:, :, None] * eye
+    try:
+        newton = np.linalg.solve(undamped, g_m[..., None])[..., 0]
+        return np.einsum("mi,mi->m", g_m, newton)
+    except np.linalg.LinAlgError:
+        return np.full(len(x), np.inf)
+
+
+def _lm_step(group: _Group, st: _LMState, idx: np.ndarray, a, grad, damp):
+    """One damped step of rows ``idx``: accept or reject, update the damping; returns
+    (accepted, gain small enough to stop)."""
+    try:
+        step = -np.linalg.solve(damp, grad[..., None])[..., 0]
+    except np.linalg.LinAlgError:
+        step = -np.einsum("mij,mj->mi", np.linalg.pinv(damp), grad)
+    trial = np.clip(st.x[idx] + step, group.lower, group.upper)
+    step = trial - st.x[idx]
+    predicted = -(2.0 * np.einsum("mi,mi->m", grad, step)
+                  + np.einsum("mi,mij,mj->m", step, a, step))
+    ft, _ = group.evaluate(trial, idx, record=True)
+    ct = group.cost(trial, ft, idx)
+    st.iterations[idx] += 1
+    ok = np.isfinite(ct) & (ct < st.cost[idx])
+    gain = np.where(ok, st.cost[idx] - ct, 0.0)
+    # Damping update of Nielsen (1999), as in Madsen, Nielsen & Tingleff, "Methods
+    # for non-linear least squares problems" (2004), eq. 3.16 (from memory).
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rho = np.where(predicted > 0, gain / predicted, 0.0)
+    acc = idx[ok]
+    st.x[acc], st.f[acc], st.cost[acc] = trial[ok], ft[ok], ct[ok]
+    shrink = np.maximum(1.0 / LAMBDA_DOWN, 1.0 - (2.0 * rho[ok] - 1.0) ** 3)
+    st.lam[acc] = np.maximum(st.lam[acc] * shrink, 1e-12)
+    st.nu[acc] = 2.0
+    rej = idx[~ok]
+    st.lam[rej] *= st.nu[rej]
+    st.nu[rej] *= 2.0
+    small = ok & (gain <= COST_ABS_TOL + COST_REL_TOL * ct)
+    stuck = ~ok & (st.lam[idx] > LAMBDA_MAX)
+    done = idx[small | stuck]
+    st.converged[done] = True
+    st.active[done] = False
+    return ok, small
+
+
+def _prune_starts(st: _LMState, start_owner: np.ndarray) -> None:
+    """Keep the :data:`KEEP_STARTS` best starts of each hypothesis; abandon the rest."""
+    for o in np.unique(start_owner):
+        rows = np.nonzero(start_owner == o)[0]
+        if len(rows) > KEEP_STARTS:
+            drop = rows[np.argsort(st.cost[rows])[KEEP_STARTS:]]
+            st.abandoned[drop] = True
+            st.active[drop] = False
+            st.converged[drop] = False
+
+
+def _abandon_hopeless(st: _LMState, reference: float) -> None:
+    best = min(reference, float(np.min(st.cost)))
+    hopeless = st.active & (st.cost > best + ABANDON_MARGIN) & (st.iterations >= ABANDON_AFTER)
+    st.abandoned |= hopeless
+    st.active &= ~hopeless
+
+
 def _lm(
     group: _Group,
     x0: np.ndarray,
@@ -335,109 +456,35 @@ def _lm(
     best χ² known from outside the group (the ``none`` fit); ``start_owner`` says which
     rows are starts of the same hypothesis (pruned to :data:`KEEP_STARTS`, the others
     reported as abandoned)."""
-    h, p = x0.shape
+    h = x0.shape[0]
     start_owner = np.arange(h) if start_owner is None else start_owner
     pruned = False
-    owner = np.arange(h)
-    x = np.clip(x0, group.lower, group.upper)
-    f, _ = group.evaluate(x, owner, record=True)
-    cost = group.cost(x, f, owner)
-    jac = group.jacobian(x, f, owner)
-    lam = np.full(h, LAMBDA_START)
-    nu = np.full(h, 2.0)
-    active = np.ones(h, dtype=bool)
-    converged = np.zeros(h, dtype=bool)
-    abandoned = np.zeros(h, dtype=bool)
-    iterations = np.zeros(h, dtype=np.int64)
-    last_decrement = np.full(h, np.inf)
-    w = group.uncertainty
-    eye = np.eye(p)
+    st = _lm_start(group, x0)
     for _ in range(max_iterations):
-        idx = np.nonzero(active)[0]
+        idx = np.nonzero(st.active)[0]
         if not len(idx):
             break
-        free = group.free[idx]
-        jw = jac[idx] / w[None, :, None]
-        r = group.weighted(f[idx])
-        inv_var = np.where(free, 1.0 / group.sd[idx] ** 2, 0.0)
-        a = np.einsum("mri,mrj->mij", jw, jw) + inv_var[:, :, None] * eye
-        grad = np.einsum("mri,mr->mi", jw, r) + inv_var * (x[idx] - group.mu[idx])
-        diag = np.einsum("mii->mi", a)
-        damp = a + (lam[idx][:, None] * np.where(free, diag, 0.0))[:, :, None] * eye
-        damp = damp + np.where(free, 0.0, 1.0)[:, :, None] * eye  # fixed: δ = 0
-        grad = np.where(free, grad, 0.0)
-        # Newton decrement gᵀA⁻¹g: the χ² a full Gauss–Newton step would still gain.
-        # A parameter held at a bound by its gradient takes no part in it.
-        span = group.upper - group.lower
-        pinned = ((x[idx] - group.lower <= 1e-9 * span) & (grad > 0)) | (
-            (group.upper - x[idx] <= 1e-9 * span) & (grad < 0)
-        )
-        moving = free & ~pinned
-        g_m = np.where(moving, grad, 0.0)
-        undamped = np.where(moving[:, :, None] & moving[:, None, :], a, 0.0)
-        undamped = undamped + np.where(moving, 0.0, 1.0)[:, :, None] * eye
-        try:
-            newton = np.linalg.solve(undamped, g_m[..., None])[..., 0]
-            decrement = np.einsum("mi,mi->m", g_m, newton)
-        except np.linalg.LinAlgError:
-            decrement = np.full(len(idx), np.inf)
-        last_decrement[idx] = decrement
+        free, a, grad, damp = _normal_equations(group, st, idx)
+        decrement = _newton_decrement(group, st.x[idx], free, a, grad)
+        st.last_decrement[idx] = decrement
         at_min = decrement <= DECREMENT_TOL
-        converged[idx[at_min]] = True
-        active[idx[at_min]] = False
+        st.converged[idx[at_min]] = True
+        st.active[idx[at_min]] = False
         keep = ~at_min
-        idx, free, grad, damp = idx[keep], free[keep], grad[keep], damp[keep]
+        idx, grad, damp, a = idx[keep], grad[keep], damp[keep], a[keep]
         if not len(idx):
             break
-        try:
-            step = -np.linalg.solve(damp, grad[..., None])[..., 0]
-        except np.linalg.LinAlgError:
-            step = -np.einsum("mij,mj->mi", np.linalg.pinv(damp), grad)
-        trial = np.clip(x[idx] + step, group.lower, group.upper)
-        step = trial - x[idx]
-        a_keep = a[keep]
-        predicted = -(2.0 * np.einsum("mi,mi->m", grad, step)
-                      + np.einsum("mi,mij,mj->m", step, a_keep, step))
-        ft, _ = group.evaluate(trial, idx, record=True)
-        ct = group.cost(trial, ft, idx)
-        iterations[idx] += 1
-        ok = np.isfinite(ct) & (ct < cost[idx])
-        gain = np.where(ok, cost[idx] - ct, 0.0)
-        # Damping update of Nielsen (1999), as in Madsen, Nielsen & Tingleff, "Methods
-        # for non-linear least squares problems" (2004), eq. 3.16 (from memory).
-        with np.errstate(divide="ignore", invalid="ignore"):
-            rho = np.where(predicted > 0, gain / predicted, 0.0)
-        acc = idx[ok]
-        x[acc], f[acc], cost[acc] = trial[ok], ft[ok], ct[ok]
-        shrink = np.maximum(1.0 / LAMBDA_DOWN, 1.0 - (2.0 * rho[ok] - 1.0) ** 3)
-        lam[acc] = np.maximum(lam[acc] * shrink, 1e-12)
-        nu[acc] = 2.0
-        rej = idx[~ok]
-        lam[rej] *= nu[rej]
-        nu[rej] *= 2.0
-        small = ok & (gain <= COST_ABS_TOL + COST_REL_TOL * ct)
-        stuck = ~ok & (lam[idx] > LAMBDA_MAX)
-        done = idx[small | stuck]
-        converged[done] = True
-        active[done] = False
-        if not pruned and iterations[idx].max() >= PRUNE_AFTER:
+        ok, small = _lm_step(group, st, idx, a, grad, damp)
+        if not pruned and st.iterations[idx].max() >= PRUNE_AFTER:
             pruned = True
-            for o in np.unique(start_owner):
-                rows = np.nonzero(start_owner == o)[0]
-                if len(rows) > KEEP_STARTS:
-                    drop = rows[np.argsort(cost[rows])[KEEP_STARTS:]]
-                    abandoned[drop] = True
-                    active[drop] = False
-                    converged[drop] = False
-        if iterations[idx].max() >= ABANDON_AFTER:
-            best = min(reference, float(np.min(cost)))
-            hopeless = active & (cost > best + ABANDON_MARGIN) & (iterations >= ABANDON_AFTER)
-            abandoned |= hopeless
-            active &= ~hopeless
-        refresh = idx[ok & ~small & active[idx]]
+            _prune_starts(st, start_owner)
+        if st.iterations[idx].max() >= ABANDON_AFTER:
+            _abandon_hopeless(st, reference)
+        refresh = idx[ok & ~small & st.active[idx]]
         if len(refresh):
-            jac[refresh] = group.jacobian(x[refresh], f[refresh], refresh)
-    return x, f, jac, cost, converged, abandoned, iterations, last_decrement
+            st.jac[refresh] = group.jacobian(st.x[refresh], st.f[refresh], refresh)
+    return (st.x, st.f, st.jac, st.cost, st.converged, st.abandoned, st.iterations,
+            st.last_decrement)
 
 
 def fit_faults(

@@ -133,10 +133,6 @@ class FitResult:
         with np.errstate(invalid="ignore", divide="ignore"):
             return self.covariance / np.outer(sd, sd)
 
-    def fitted_board_parameters(self):
-        """Engine parameters of the fitted board (one sample, no probes)."""
-        return self.space.to_parameters(self.x[None, :], self.model.base)
-
     def predicted_solution(self):
         """The solve block of the fitted board."""
         from reconcile.engine import solve_batch
@@ -193,7 +189,6 @@ def fit_board(
     space
         A prepared parameter space (diagnosis passes modified priors).
     """
-    import lmfit
     from scipy import stats
 
     obs = observations_from(readings)
@@ -210,6 +205,46 @@ def fit_board(
     lo, hi = space.lower, space.upper
     x0 = np.clip(mu if start is None else np.asarray(start, float), lo + 1e-12, hi - 1e-12)
 
+    x, result, evaluations = _minimise(model, x0)
+    pred0, cov = _posterior(model, x)
+    post_sd = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    z = (pred0 - meas) / unc
+    chi_data = float(np.nansum(z**2))
+    chi_prior = float(np.sum(((x - mu) / sd) ** 2))
+    chi2 = chi_data + chi_prior
+    dof = len(obs)
+    p_value = float(stats.chi2.sf(chi2, dof)) if dof > 0 else 1.0
+    estimates = _estimates(space, x, post_sd)
+    fits = [
+        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), ob.uncertainty, float(z[k]))
+        for k, ob in enumerate(obs)
+    ]
+    converged = bool(result.success) and bool(np.all(np.isfinite(pred0)))
+    return FitResult(
+        board=board,
+        model=model,
+        x=x,
+        covariance=cov,
+        parameters=estimates,
+        readings=fits,
+        chi_square=chi2,
+        dof=dof,
+        p_value=p_value if math.isfinite(p_value) else 0.0,
+        success=converged,
+        evaluations=evaluations,
+        message=str(result.message),
+    )
+
+
+def _minimise(model: MeasurementModel, x0: np.ndarray):
+    """The MAP point by lmfit's least_squares from ``x0``: (x, lmfit result, model
+    evaluations)."""
+    import lmfit
+
+    space = model.space
+    meas, unc = model.measured, model.uncertainty
+    mu, sd = space.prior_mean, space.prior_sd
+    lo, hi = space.lower, space.upper
     params = lmfit.Parameters()
     names = [f"p{j}" for j in range(space.size)]
     for j, name in enumerate(names):
@@ -239,21 +274,24 @@ def fit_board(
     result = minimizer.minimize(
         method="least_squares", jac=jacobian, x_scale="jac", ftol=1e-10, xtol=1e-10, gtol=1e-10
     )
-    x = vector(result.params)
+    return vector(result.params), result, counter["n"]
+
+
+def _posterior(model: MeasurementModel, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Predicted readings at ``x`` and the linearised posterior covariance there."""
+    unc, sd = model.uncertainty, model.space.prior_sd
     pred0, jac = model.jacobian(x)
     j_w = np.concatenate([np.where(np.isfinite(jac), jac, 0.0) / unc[:, None], np.diag(1.0 / sd)])
     try:
         cov = np.linalg.inv(j_w.T @ j_w)
     except np.linalg.LinAlgError:
         cov = np.linalg.pinv(j_w.T @ j_w)
-    post_sd = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    z = (pred0 - meas) / unc
-    chi_data = float(np.nansum(z**2))
-    chi_prior = float(np.sum(((x - mu) / sd) ** 2))
-    chi2 = chi_data + chi_prior
-    dof = len(obs)
-    p_value = float(stats.chi2.sf(chi2, dof)) if dof > 0 else 1.0
+    return pred0, cov
 
+
+def _estimates(space: ParameterSpace, x: np.ndarray, post_sd: np.ndarray) -> dict[str, Estimate]:
+    """Each parameter's estimate in its own unit, with what informed it."""
+    sd, lo, hi = space.prior_sd, space.lower, space.upper
     estimates: dict[str, Estimate] = {}
     span = hi - lo
     for j, fp in enumerate(space.parameters):
@@ -273,22 +311,4 @@ def fit_board(
             tolerance_high=fp.tolerance_high,
             at_bound=at_bound,
         )
-    fits = [
-        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), ob.uncertainty, float(z[k]))
-        for k, ob in enumerate(obs)
-    ]
-    converged = bool(result.success) and bool(np.all(np.isfinite(pred0)))
-    return FitResult(
-        board=board,
-        model=model,
-        x=x,
-        covariance=cov,
-        parameters=estimates,
-        readings=fits,
-        chi_square=chi2,
-        dof=dof,
-        p_value=p_value if math.isfinite(p_value) else 0.0,
-        success=converged,
-        evaluations=counter["n"],
-        message=str(result.message),
-    )
+    return estimates

@@ -223,123 +223,138 @@ def build_space(
         c = board.capacitors[ref]
         add(_passive(ref, "capacitor", col, c.farads, c.tolerance, "F"))
     for col, ref in enumerate(circuit.supply_refs):
-        s = board.supplies[ref]
-        sd = max(s.tolerance / math.sqrt(3.0), SUPPLY_FLOOR) * abs(s.volts)
-        half = 0.5 * abs(s.volts)
-        add(
-            FreeParameter(
-                ref,
-                "supply",
-                ref,
-                col,
-                "linear",
-                s.volts,
-                sd,
-                s.volts - half,
-                s.volts + half,
-                s.volts,
-                "V",
-                s.volts - s.tolerance * abs(s.volts),
-                s.volts + s.tolerance * abs(s.volts),
-            )
-        )
+        add(_supply_parameter(ref, col, board.supplies[ref]))
     for col, ref in enumerate(circuit.transistor_refs):
-        d = board.device_of(ref)
-        is_sd = _range_sd(d.IS.value, d.IS.low, d.IS.high, math.log10) or DEFAULT_LOG10_IS_SD
-        lo = (d.IS.low or d.IS.value / 10) / 100
-        hi = (d.IS.high or d.IS.value * 10) * 100
-        add(
-            FreeParameter(
-                f"{ref}.IS",
-                "IS",
-                ref,
-                col,
-                "log10",
-                math.log10(d.IS.value),
-                is_sd,
-                math.log10(lo),
-                math.log10(hi),
-                d.IS.value,
-                "A",
-                d.IS.low,
-                d.IS.high,
-            )
+        for fp in _transistor_parameters(ref, col, board.device_of(ref)):
+            add(fp)
+    if circuit.transistor_refs:
+        add(_temperature_parameter(board, ambient_k, ambient_sd_k))
+    return ParameterSpace(circuit=circuit, parameters=tuple(out))
+
+
+def _supply_parameter(ref: str, col: int, s) -> FreeParameter:
+    """A supply's voltage: linear, sd from its tolerance (uniform) or the floor."""
+    sd = max(s.tolerance / math.sqrt(3.0), SUPPLY_FLOOR) * abs(s.volts)
+    half = 0.5 * abs(s.volts)
+    return FreeParameter(
+        ref,
+        "supply",
+        ref,
+        col,
+        "linear",
+        s.volts,
+        sd,
+        s.volts - half,
+        s.volts + half,
+        s.volts,
+        "V",
+        s.volts - s.tolerance * abs(s.volts),
+        s.volts + s.tolerance * abs(s.volts),
+    )
+
+
+def _transistor_parameters(ref: str, col: int, d) -> list[FreeParameter]:
+    """A transistor's IS and beta, and VA and n where the board gives them a range."""
+    out: list[FreeParameter] = []
+    add = out.append
+    is_sd = _range_sd(d.IS.value, d.IS.low, d.IS.high, math.log10) or DEFAULT_LOG10_IS_SD
+    lo = (d.IS.low or d.IS.value / 10) / 100
+    hi = (d.IS.high or d.IS.value * 10) * 100
+    add(
+        FreeParameter(
+            f"{ref}.IS",
+            "IS",
+            ref,
+            col,
+            "log10",
+            math.log10(d.IS.value),
+            is_sd,
+            math.log10(lo),
+            math.log10(hi),
+            d.IS.value,
+            "A",
+            d.IS.low,
+            d.IS.high,
         )
-        b_sd = _range_sd(d.beta.value, d.beta.low, d.beta.high, math.log) or DEFAULT_LN_BETA_SD
+    )
+    b_sd = _range_sd(d.beta.value, d.beta.low, d.beta.high, math.log) or DEFAULT_LN_BETA_SD
+    add(
+        FreeParameter(
+            f"{ref}.beta",
+            "beta",
+            ref,
+            col,
+            "log",
+            math.log(d.beta.value),
+            b_sd,
+            0.0,
+            math.log(1e5),
+            d.beta.value,
+            "",
+            d.beta.low,
+            d.beta.high,
+        )
+    )
+    if d.VA.has_range and math.isfinite(d.VA.value):
+        va_sd = _range_sd(d.VA.value, d.VA.low, d.VA.high, math.log)
         add(
             FreeParameter(
-                f"{ref}.beta",
-                "beta",
+                f"{ref}.VA",
+                "VA",
                 ref,
                 col,
                 "log",
-                math.log(d.beta.value),
-                b_sd,
-                0.0,
-                math.log(1e5),
-                d.beta.value,
-                "",
-                d.beta.low,
-                d.beta.high,
+                math.log(d.VA.value),
+                va_sd,
+                math.log(d.VA.low / 10),
+                math.log(d.VA.high * 10),
+                d.VA.value,
+                "V",
+                d.VA.low,
+                d.VA.high,
             )
         )
-        if d.VA.has_range and math.isfinite(d.VA.value):
-            va_sd = _range_sd(d.VA.value, d.VA.low, d.VA.high, math.log)
-            add(
-                FreeParameter(
-                    f"{ref}.VA",
-                    "VA",
-                    ref,
-                    col,
-                    "log",
-                    math.log(d.VA.value),
-                    va_sd,
-                    math.log(d.VA.low / 10),
-                    math.log(d.VA.high * 10),
-                    d.VA.value,
-                    "V",
-                    d.VA.low,
-                    d.VA.high,
-                )
-            )
-        if d.n.has_range:
-            n_sd = _range_sd(d.n.value, d.n.low, d.n.high, float)
-            add(
-                FreeParameter(
-                    f"{ref}.n",
-                    "n",
-                    ref,
-                    col,
-                    "linear",
-                    d.n.value,
-                    n_sd,
-                    0.5,
-                    3.0,
-                    d.n.value,
-                    "",
-                    d.n.low,
-                    d.n.high,
-                )
-            )
-    t0 = board.temperature if ambient_k is None else ambient_k
-    t_sd = TEMPERATURE_SD_K if ambient_sd_k is None else math.hypot(TEMPERATURE_SD_K, ambient_sd_k)
-    if circuit.transistor_refs:
+    if d.n.has_range:
+        n_sd = _range_sd(d.n.value, d.n.low, d.n.high, float)
         add(
             FreeParameter(
-                "temperature",
-                "temperature",
-                "",
-                0,
+                f"{ref}.n",
+                "n",
+                ref,
+                col,
                 "linear",
-                t0,
-                t_sd,
-                213.15,
-                473.15,
-                board.temperature,
-                "K",
+                d.n.value,
+                n_sd,
+                0.5,
+                3.0,
+                d.n.value,
+                "",
+                d.n.low,
+                d.n.high,
             )
         )
-    return ParameterSpace(circuit=circuit, parameters=tuple(out))
+    return out
+
+
+def _temperature_parameter(
+    board: Board, ambient_k: float | None, ambient_sd_k: float | None
+) -> FreeParameter:
+    """The junction temperature, centred on the ambient reading when there is one."""
+    t0 = board.temperature if ambient_k is None else ambient_k
+    t_sd = TEMPERATURE_SD_K if ambient_sd_k is None else math.hypot(TEMPERATURE_SD_K, ambient_sd_k)
+    return FreeParameter(
+        "temperature",
+        "temperature",
+        "",
+        0,
+        "linear",
+        t0,
+        t_sd,
+        213.15,
+        473.15,
+        board.temperature,
+        "K",
+    )
 
 
 def prior_draws(space: ParameterSpace, n: int, rng: np.random.Generator) -> np.ndarray:

@@ -4,7 +4,7 @@ Two inputs (:func:`run_lot` tells them apart by the readings file's header):
 
 - a jig board file and a readings file with a ``device`` column: every device is fitted
   in the jig, all in one batched fit (:mod:`reconcile.jig_fit`, :func:`characterise_jig`);
-- a sweep file (``device,vbe,ic,ib,...``, :mod:`reconcile.sweeps`): IS and n from
+- a sweep file (``device,vbe,ic,ib,...``, :mod:`reconcile.data.sweep_file`): IS and n from
   ln IC against VBE, beta from IC/IB (:func:`characterise_sweeps`). A jig board given
   with a sweep file lends its socket's device table (VA for the Early correction, the
   temperature exponent and bandgap for referring IS to 25 C) and its temperature.
@@ -44,7 +44,8 @@ from reconcile.lot import stats as lot_stats
 from reconcile.model.board import Board
 from reconcile.errors import InputError, InputErrors
 from reconcile.data.readings import Reading
-from reconcile.lot.sweeps import SweepExtraction, SweepSet
+from reconcile.data.sweep_file import SweepSet
+from reconcile.lot.extraction import SweepExtraction
 from reconcile.model.text_files import read_text
 
 __all__ = [
@@ -386,12 +387,12 @@ def characterise_sweeps(
     xti: float = 3.0,
     bandgap_ev: float = 1.11,
 ) -> LotResult:
-    """Characterise a lot from its sweeps (see :mod:`reconcile.sweeps`), then the lot.
+    """Characterise a lot from its sweeps (see :mod:`reconcile.data.sweep_file`), then the lot.
 
     ``va_v`` (V) divides out the Early factor where points carry ``vce``; ``xti`` and
     ``bandgap_ev`` refer IS to 25 C.
     """
-    from reconcile.lot.sweeps import extract
+    from reconcile.lot.extraction import extract
 
     o = options or LotOptions()
     ex = extract(sweeps, va_v=va_v, xti=xti, bandgap_ev=bandgap_ev)
@@ -467,7 +468,7 @@ def run_lot(
     """
     from reconcile.model.board_loader import load_board
     from reconcile.data.readings import load_readings
-    from reconcile.lot.sweeps import is_sweep_text, sweeps_from_text
+    from reconcile.data.sweep_file import is_sweep_text, sweeps_from_text
 
     options = LotOptions(
         bins=parse_bins(bins), vbe_limit_v=float(vbe_limit), beta_ratio=float(beta_ratio),

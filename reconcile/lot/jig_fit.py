@@ -226,12 +226,45 @@ def fit_jig(
     space = model.space
     inv_u = np.where(np.isfinite(unc), 1.0 / np.where(np.isfinite(unc), unc, 1.0), 0.0)
     target = np.where(np.isfinite(meas), meas, 0.0)
-    mu, sd, lo, hi = space.prior_mean, space.prior_sd, space.lower, space.upper
-    n_dev, n_par = meas.shape[0], space.size
+    mu, lo, hi = space.prior_mean, space.lower, space.upper
+    n_dev = meas.shape[0]
     calls = [0]
+    evaluate = _weighted_model(model, inv_u, target, calls)
+    x = np.clip(np.repeat(mu[None, :], n_dev, axis=0), lo, hi)
+    x, f, r, jw, cost, converged, iterations = _levenberg_marquardt(
+        evaluate, x, lo, hi, max_iterations)
+
+    a = np.einsum("mkp,mkq->mpq", jw, jw)
+    try:
+        cov = np.linalg.inv(a)
+    except np.linalg.LinAlgError:
+        cov = np.linalg.pinv(a)
+    n_obs = np.isfinite(meas).sum(axis=1)
+    chi = np.where(np.isfinite(cost), cost, np.nan)
+    from scipy.special import chdtrc  # chi-square upper tail
+
+    p_value = np.where(n_obs > 0, chdtrc(np.maximum(n_obs, 1), chi), 1.0)
+    span = hi - lo
+    at_bound = np.any((x - lo < 1e-6 * span) | (hi - x < 1e-6 * span), axis=1)
+    predicted = np.where(np.isfinite(meas), f, np.nan)
+    return JigFit(
+        board=jig, socket=ref, devices=tuple(per_device), space=space,
+        keys=tuple(space.keys), observations=tuple((q, at) for q, at, _ in obs_keys),
+        x=x, covariance=cov, measured=meas, predicted=predicted, uncertainty=unc,
+        chi_square=chi, dof=n_obs, p_value=p_value, converged=converged & np.isfinite(cost),
+        at_bound=at_bound, iterations=iterations, engine_calls=calls[0],
+        temperature_k=float(jig.temperature),
+    )
+
+
+def _weighted_model(model: MeasurementModel, inv_u: np.ndarray, target: np.ndarray, calls):
+    """``evaluate(rows, x)``: predicted readings (M, R), weighted residual (M, R+P),
+    weighted forward-difference Jacobian (M, R+P, P) and cost (M,) of devices ``rows``
+    at internal vectors ``x`` (M, P); ``calls[0]`` counts engine calls."""
+    space = model.space
+    mu, sd, n_par = space.prior_mean, space.prior_sd, space.size
 
     def evaluate(rows: np.ndarray, x: np.ndarray):
-        """Weighted residual (M, R+P), weighted Jacobian (M, R+P, P), cost (M,)."""
         m = x.shape[0]
         xs = np.repeat(x[:, None, :], n_par + 1, axis=1)
         xs[:, 1:, :] += FD_STEP * np.eye(n_par)[None, :, :]
@@ -251,7 +284,13 @@ def fit_jig(
         r = np.where(np.isfinite(r), r, 0.0)
         return f0, r, jw, cost
 
-    x = np.clip(np.repeat(mu[None, :], n_dev, axis=0), lo, hi)
+    return evaluate
+
+
+def _levenberg_marquardt(evaluate, x: np.ndarray, lo, hi, max_iterations: int):
+    """Batched Levenberg–Marquardt over devices from ``x`` (D, P), bounds by clipping:
+    (x, predicted, residual, Jacobian, cost, converged, iterations)."""
+    n_dev, n_par = x.shape
     all_rows = np.arange(n_dev)
     f, r, jw, cost = evaluate(all_rows, x)
     lam = np.full(n_dev, LAMBDA_START)
@@ -284,25 +323,4 @@ def fit_jig(
         done = small | stuck
         converged[idx[done]] = True
         active[idx[done]] = False
-
-    a = np.einsum("mkp,mkq->mpq", jw, jw)
-    try:
-        cov = np.linalg.inv(a)
-    except np.linalg.LinAlgError:
-        cov = np.linalg.pinv(a)
-    n_obs = np.isfinite(meas).sum(axis=1)
-    chi = np.where(np.isfinite(cost), cost, np.nan)
-    from scipy.special import chdtrc  # chi-square upper tail
-
-    p_value = np.where(n_obs > 0, chdtrc(np.maximum(n_obs, 1), chi), 1.0)
-    span = hi - lo
-    at_bound = np.any((x - lo < 1e-6 * span) | (hi - x < 1e-6 * span), axis=1)
-    predicted = np.where(np.isfinite(meas), f, np.nan)
-    return JigFit(
-        board=jig, socket=ref, devices=tuple(per_device), space=space,
-        keys=tuple(space.keys), observations=tuple((q, at) for q, at, _ in obs_keys),
-        x=x, covariance=cov, measured=meas, predicted=predicted, uncertainty=unc,
-        chi_square=chi, dof=n_obs, p_value=p_value, converged=converged & np.isfinite(cost),
-        at_bound=at_bound, iterations=iterations, engine_calls=calls[0],
-        temperature_k=float(jig.temperature),
-    )
+    return x, f, r, jw, cost, converged, iterations

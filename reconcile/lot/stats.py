@@ -1,7 +1,7 @@
 """Statistics of a characterised lot: summary, outliers, bins, matching, capability.
 
 Every function here takes per-device arrays (the fits are made elsewhere:
-:mod:`reconcile.jig_fit`, :mod:`reconcile.sweeps`) and returns plain values.
+:mod:`reconcile.jig_fit`, :mod:`reconcile.data.sweep_file`) and returns plain values.
 
 Rules, with their sources:
 

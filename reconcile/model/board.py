@@ -176,15 +176,6 @@ class Board:
         seen.pop(GND, None)
         return list(seen)
 
-    @property
-    def part_refs(self) -> list[str]:
-        return [
-            *self.supplies,
-            *self.resistors,
-            *self.capacitors,
-            *self.transistors,
-        ]
-
     def device_of(self, transistor_ref: str) -> Device:
         return self.devices[self.transistors[transistor_ref].device]
 

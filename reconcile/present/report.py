@@ -1,24 +1,25 @@
 """The bench story in one self-contained HTML page.
 
-:func:`collect_report` runs the analyses (fit, miss budget, next readings, diagnosis,
-trim, and a lot when given) and draws their figures; :func:`render_html` turns the
-result into one HTML file with every plot embedded as a PNG data URI, so the page opens
-anywhere with no network. Code here computes or renders; it never prints.
+:func:`build_report` collects the analyses (:func:`reconcile.pipeline.report.collect_report`)
+and draws their figures (:func:`draw_figures`); :func:`render_html` turns the result into
+one HTML file with every plot embedded as a PNG data URI, so the page opens anywhere
+with no network. Code here renders; it never prints.
 """
 
 from __future__ import annotations
 
 import base64
-import hashlib
 import html
-from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from pathlib import Path
 
 from reconcile import __version__
+from reconcile.data.readings import standard_uncertainty
 from reconcile.model.board import Board
-from reconcile.data.readings import Reading, readings_to_csv, standard_uncertainty
 from reconcile.model.values import format_si
+from reconcile.pipeline.report import SECTIONS, ReportData, collect_report
+
+__all__ = ["CAUTIONS", "SECTIONS", "ReportData", "build_report", "draw_figures",
+           "render_html", "write_report"]
 
 CAUTIONS = (
     "Bench work can hurt people. Follow your local lab rules and qualified practice: "
@@ -30,31 +31,6 @@ CAUTIONS = (
     "a safety assessment."
 )
 
-SECTIONS = ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot", "provenance")
-
-
-@dataclass
-class ReportData:
-    """Everything the page shows: result dictionaries (their ``to_dict()``) and PNGs."""
-
-    board: Board
-    readings: list[Reading]
-    title: str
-    session: dict | None = None
-    fit: dict | None = None
-    budget: dict | None = None
-    next_readings: list[dict] = field(default_factory=list)
-    diagnosis: dict | None = None
-    trim: dict | None = None
-    lot: dict | None = None
-    plots: dict[str, bytes] = field(default_factory=dict)
-    hashes: dict[str, str] = field(default_factory=dict)
-    created: str = ""
-
-
-def _sha(text: str) -> str:
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
-
 
 def _png_file(path: Path) -> bytes:
     data = path.read_bytes()
@@ -62,75 +38,33 @@ def _png_file(path: Path) -> bytes:
     return data
 
 
-def collect_report(
-    board: Board,
-    readings: list[Reading],
-    *,
-    session: dict | None = None,
-    lot_result=None,
-    lot_plot: bytes | None = None,
-    work_dir: Path,
-    trim_samples: int = 10_000,
-    seed: int = 0,
-    outcome=None,
-    diagnosis=None,
-    trim_result=None,
-) -> ReportData:
-    """Run every analysis on (board, readings) and draw the figures.
-
-    ``outcome`` (:class:`reconcile.analysis.FitOutcome`), ``diagnosis`` and
-    ``trim_result`` may be passed in when they were computed already."""
-    import numpy as np
-
-    from reconcile.pipeline.analyses import run_fit
-    from reconcile.diagnosis.diagnose import diagnose
+def draw_figures(data: ReportData, work_dir: Path) -> None:
+    """Draw every figure of the page into ``data.plots`` (PNG bytes)."""
     from reconcile.present.plots_fit import panel_png
     from reconcile.present.plots_report import hypotheses_png, miss_budget_png, operating_point_png
     from reconcile.present.plots_trim import plot_trim
-    from reconcile.engine.solution import solve
-    from reconcile.trim.rework import trim
 
     work_dir.mkdir(parents=True, exist_ok=True)
-    data = ReportData(
-        board=board,
-        readings=list(readings),
-        title=board.title or (board.source_path or "board"),
-        session=session,
-        created=datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S UTC"),
-    )
-    design = solve(board)
-    if outcome is None:
-        outcome = run_fit(board, readings)
-    data.fit = outcome.fit.to_dict()
-    data.budget = outcome.budget.to_dict() if outcome.budget is not None else None
-    data.next_readings = [s.to_dict() for s in outcome.suggestions]
     data.plots["board"] = operating_point_png(
-        design.nodes, data.fit["predicted"]["nodes"], readings
+        data.design.nodes, data.fit["predicted"]["nodes"], data.readings
     )
-    data.plots["readings"] = panel_png(outcome.fit, "readings")
-    data.plots["fit"] = panel_png(outcome.fit, "parameters")
+    data.plots["readings"] = panel_png(data.outcome.fit, "readings")
+    data.plots["fit"] = panel_png(data.outcome.fit, "parameters")
     if data.budget:
         data.plots["budget"] = miss_budget_png(data.budget)
-    diag = diagnosis if diagnosis is not None else diagnose(board, readings)
-    data.diagnosis = diag.to_dict()
     data.plots["diagnosis"] = hypotheses_png(data.diagnosis["hypotheses"])
-    if board.spec.targets:
-        result = trim_result
-        if result is None:
-            result = trim(board, outcome.fit, samples=trim_samples, rng=np.random.default_rng(seed))
-        data.trim = result.to_dict()
+    if data.trim_result is not None:
         try:
-            data.plots["trim"] = _png_file(plot_trim(result, work_dir / "trim.png"))
+            data.plots["trim"] = _png_file(plot_trim(data.trim_result, work_dir / "trim.png"))
         except Exception:  # no option or no draws: the table says why
             pass
-    if lot_result is not None:
-        data.lot = lot_result.to_dict()
-        if lot_plot is not None:
-            data.plots["lot"] = lot_plot
-    data.hashes = {
-        "board_sha256": _sha(board.source_text or ""),
-        "readings_sha256": _sha(readings_to_csv(readings)),
-    }
+
+
+def build_report(board: Board, readings, *, work_dir: Path, **analyses) -> ReportData:
+    """:func:`~reconcile.pipeline.report.collect_report` (keyword arguments passed on),
+    then :func:`draw_figures`."""
+    data = collect_report(board, readings, **analyses)
+    draw_figures(data, work_dir)
     return data
 
 

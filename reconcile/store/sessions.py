@@ -16,14 +16,14 @@ from typing import TYPE_CHECKING, Any, TypeAlias
 if TYPE_CHECKING:
     from reconcile.model.board import Board
     from reconcile.data.readings import Reading
-    from reconcile.store.database import Store
+    from reconcile.store.repository import Store
 
 StoreLocation: TypeAlias = "str | os.PathLike[str] | None"
 """``None`` (the default store), an SQLite file path, or a database URL."""
 
 
 def _open(store: StoreLocation) -> Store:
-    from reconcile.store.database import open_store
+    from reconcile.store.repository import open_store
 
     return open_store(store)
 

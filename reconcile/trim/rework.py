@@ -275,26 +275,9 @@ def trim(
         The board has no spec to trim to, a setting is out of range, or every part is
         marked ``trim = false``.
     """
-    if not board.spec.targets and board.spec.min_vce is None:
-        raise InputError("the board has no [spec] to trim to", path=board.source_path, key="spec")
-    if board.spec.targets and not (board.signal.input and board.signal.output):
-        raise InputError(
-            "[spec] targets need a [signal] set-up (input and output)",
-            path=board.source_path,
-            key="signal",
-        )
-    for name, value, least in (
-        ("max_changes", max_changes, 1),
-        ("top", top, 1),
-        ("samples", samples, 0),
-        ("variants_per_rework", variants_per_rework, 1),
-        ("pair_budget", pair_budget, 1),
-        ("beam", beam, 1),
-    ):
-        if not isinstance(value, int | np.integer) or value < least:
-            raise InputError(f"{name} must be an integer >= {least}, got {value!r}")
-    if not (k_sigma >= 0 and merit_band > 0):
-        raise InputError("k_sigma must be >= 0 and merit_band > 0")
+    _check_settings(board, max_changes=max_changes, top=top, samples=samples,
+                    variants_per_rework=variants_per_rework, pair_budget=pair_budget,
+                    beam=beam, k_sigma=k_sigma, merit_band=merit_band)
     cost_of = _validate_costs(costs)
     rng = (
         rng
@@ -334,12 +317,7 @@ def trim(
         _option(ctx, singles, scores, int(i), float(cost[i]), est)
         for i, est in zip(chosen, estimates[1:], strict=True)
     )
-    spec = {
-        name: {"target": t.value, "low": t.low, "high": t.high}
-        for name, t in board.spec.targets.items()
-    }
-    if board.spec.min_vce is not None:
-        spec["min_vce"] = {"value": board.spec.min_vce}
+    spec = _spec_dict(board)
     return TrimResult(
         baseline=baseline,
         options=options,
@@ -354,6 +332,44 @@ def trim(
         searched_changes=searched,
     )
 
+
+
+def _check_settings(
+    board: Board, *, max_changes, top, samples, variants_per_rework, pair_budget, beam,
+    k_sigma, merit_band,
+) -> None:
+    """Refuse a board with nothing to trim to and settings out of range."""
+    if not board.spec.targets and board.spec.min_vce is None:
+        raise InputError("the board has no [spec] to trim to", path=board.source_path, key="spec")
+    if board.spec.targets and not (board.signal.input and board.signal.output):
+        raise InputError(
+            "[spec] targets need a [signal] set-up (input and output)",
+            path=board.source_path,
+            key="signal",
+        )
+    for name, value, least in (
+        ("max_changes", max_changes, 1),
+        ("top", top, 1),
+        ("samples", samples, 0),
+        ("variants_per_rework", variants_per_rework, 1),
+        ("pair_budget", pair_budget, 1),
+        ("beam", beam, 1),
+    ):
+        if not isinstance(value, int | np.integer) or value < least:
+            raise InputError(f"{name} must be an integer >= {least}, got {value!r}")
+    if not (k_sigma >= 0 and merit_band > 0):
+        raise InputError("k_sigma must be >= 0 and merit_band > 0")
+
+
+def _spec_dict(board: Board) -> dict:
+    """The spec the options are scored against, as the JSON shows it."""
+    spec = {
+        name: {"target": t.value, "low": t.low, "high": t.high}
+        for name, t in board.spec.targets.items()
+    }
+    if board.spec.min_vce is not None:
+        spec["min_vce"] = {"value": board.spec.min_vce}
+    return spec
 
 def _search(
     ctx: Context,

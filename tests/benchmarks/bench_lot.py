@@ -9,8 +9,8 @@ Figures (one core's worth of work; numpy may use more threads for the batched li
 algebra, which here is tiny):
 
 - ``sweep``: D invented devices (default 10 000) of 10 points each, made with
-  :func:`reconcile.sweeps.simulate_sweeps` (not timed). Timed, median of 3 after one
-  warm-up: ``extract_s`` (:func:`reconcile.sweeps.extract`, the fits alone),
+  :func:`reconcile.lot.sweep_simulator.simulate_sweeps` (not timed). Timed, median of 3 after one
+  warm-up: ``extract_s`` (:func:`reconcile.lot.extraction.extract`, the fits alone),
   ``characterise_s`` (:func:`reconcile.lots.characterise_sweeps`: fits, summary,
   outliers, matching, device table) and ``parse_and_characterise_s`` (the same from the
   sweep file's text). Two per-device loops, each timed on a subset of
@@ -55,7 +55,7 @@ def _median_time(fn, repeats: int = 3) -> float:
 
 
 def _sweep_lot(n_devices: int, seed: int = 4242):
-    from reconcile.lot.sweeps import simulate_sweeps
+    from reconcile.lot.sweep_simulator import simulate_sweeps
 
     rng = np.random.default_rng(seed)
     names = [f"D{i:05d}" for i in range(n_devices)]
@@ -86,7 +86,8 @@ def _polyfit_loop(sw, idx) -> None:
 
 def bench_sweeps(n_devices: int = 10_000) -> dict:
     from reconcile.lot.characterise import characterise_sweeps
-    from reconcile.lot.sweeps import extract, sweeps_from_text, sweeps_to_csv
+    from reconcile.data.sweep_file import sweeps_from_text, sweeps_to_csv
+    from reconcile.lot.extraction import extract
 
     sw = _sweep_lot(n_devices)
     text = sweeps_to_csv(sw)

@@ -18,7 +18,7 @@ from typing import Any
 
 from reconcile.model.board_loader import board_from_text
 from reconcile.data.readings import Reading
-from reconcile.store.database import open_store
+from reconcile.store.repository import open_store
 
 BOARD_TOML = """\
 title = "Benchmark stage (invented)"

@@ -1,15 +1,9 @@
 """The session store: board snapshots, the readings taken on them, and the analyses made.
 
-This is the only module that imports SQLAlchemy (Core, no ORM). A store is an SQLite
-file (the default, in the user's data folder) or a PostgreSQL database reached by URL;
-both hold the same tables and behave the same.
-
-Measurement data is append-only. A reading is never updated or deleted: a correction is
-a new row whose ``supersedes`` names the row it replaces (it takes that row's place in
-the session's order), and a retraction is a row of kind ``retraction`` that supersedes a
-reading without replacing it. The *current* readings of a session are the rows of kind
-``reading`` that nothing supersedes, ordered by the id of the first row of their chain.
-Ending a session is an event row too.
+:class:`Store` reads and writes sessions over a :class:`~reconcile.store.connection.Database`;
+:func:`open_store` opens one. The *current* readings of a session are the rows of kind
+``reading`` that nothing supersedes, ordered by the id of the first row of their chain
+(see :mod:`reconcile.store.schema` for the append-only rules).
 
 Each reading is committed in its own transaction as it is stored, so a writer killed
 half-way loses at most the reading in flight. Order comes from an autoincrement id, so
@@ -17,170 +11,50 @@ any number of processes may add readings to one session at the same time.
 
 Session ids read ``S-`` and eight base32 characters (RFC 4648 alphabet, 40 random bits
 from :mod:`secrets`), for example ``S-K7QX2MZA``; they are matched case-insensitively.
-Timestamps are UTC ISO-8601 strings with milliseconds (``2025-01-31T14:05:09.123Z``).
+
+The store package is the only one importing SQLAlchemy (Core, no ORM).
 """
 
 from __future__ import annotations
 
 import base64
-import contextlib
 import hashlib
 import json
 import math
 import os
 import secrets
-from collections.abc import Callable, Iterable, Iterator, Sequence
+from collections.abc import Iterable
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
-from pathlib import Path
+from datetime import datetime
 from typing import Any
 
 import sqlalchemy as sa
-from sqlalchemy import event
-from sqlalchemy.engine import Connection, Engine
+from sqlalchemy.engine import Connection
 
 from reconcile import __version__
-from reconcile.model.board import Board
-from reconcile.errors import InputError, StoreError
 from reconcile.data.digest import inputs_sha256  # noqa: F401 - re-exported
 from reconcile.data.readings import Reading
-
-SCHEMA_VERSION = 1
-"""The newest schema this code knows; ``MIGRATIONS[i]`` brings a store to version i+1."""
-
-ANALYSIS_KINDS = ("fit", "diagnose", "trim", "lot", "capture", "report")
-"""Kinds of analysis a session may record."""
-
-DEFAULT_FILE_NAME = "sessions.sqlite"
-STORE_ENV = "RECONCILE_STORE"
-"""Environment variable naming the store used when none is given."""
-
-CONNECT_TIMEOUT_S = 5.0
-BUSY_TIMEOUT_S = 5.0
-
-_READING = "reading"
-_RETRACTION = "retraction"
-_ENDED = "ended"
-_OUR_TABLES = ("schema_version", "boards", "sessions", "session_events", "readings", "analyses")
-
-
-# ---------------------------------------------------------------------------- schema
-def _define_v1(md: sa.MetaData) -> None:
-    """Tables of schema version 1 (frozen: a later version adds a migration)."""
-    text, integer, real = sa.Text, sa.Integer, sa.Float(precision=53)
-    sa.Table(
-        "schema_version", md,
-        sa.Column("version", integer, primary_key=True, autoincrement=False),
-        sa.Column("applied", text, nullable=False),
-        sa.Column("tool_version", text, nullable=False),
-    )
-    sa.Table(
-        "boards", md,
-        sa.Column("id", integer, primary_key=True, autoincrement=True),
-        sa.Column("sha256", sa.String(64), nullable=False, unique=True),
-        sa.Column("title", text, nullable=False),
-        sa.Column("source_text", text, nullable=False),
-        sa.Column("created", text, nullable=False),
-        sqlite_autoincrement=True,
-    )
-    sa.Table(
-        "sessions", md,
-        sa.Column("id", sa.String(16), primary_key=True),
-        sa.Column("board_id", integer, sa.ForeignKey("boards.id"), nullable=False),
-        sa.Column("board_path", text, nullable=False),
-        sa.Column("serial", text, nullable=False),
-        sa.Column("operator", text, nullable=False),
-        sa.Column("notes", text, nullable=False),
-        sa.Column("started", text, nullable=False),
-        sa.Column("tool_version", text, nullable=False),
-    )
-    sa.Table(
-        "session_events", md,
-        sa.Column("id", integer, primary_key=True, autoincrement=True),
-        sa.Column("session_id", sa.String(16), sa.ForeignKey("sessions.id"), nullable=False),
-        sa.Column("kind", text, nullable=False),
-        sa.Column("at", text, nullable=False),
-        sa.Column("note", text, nullable=False),
-        sa.Index("ix_session_events_session", "session_id"),
-        sqlite_autoincrement=True,
-    )
-    sa.Table(
-        "readings", md,
-        sa.Column("id", integer, primary_key=True, autoincrement=True),
-        sa.Column("session_id", sa.String(16), sa.ForeignKey("sessions.id"), nullable=False),
-        sa.Column("kind", text, nullable=False),
-        sa.Column("quantity", text, nullable=False),
-        sa.Column("at", text, nullable=False),
-        sa.Column("value", real, nullable=True),
-        sa.Column("unit", text, nullable=False),
-        sa.Column("uncertainty", real, nullable=True),
-        sa.Column("instrument", text, nullable=False),
-        sa.Column("note", text, nullable=False),
-        sa.Column("device", text, nullable=False),
-        sa.Column("raw", text, nullable=False),
-        sa.Column("source", text, nullable=False),
-        sa.Column("source_line", integer, nullable=True),
-        sa.Column("taken_at", text, nullable=False),
-        sa.Column("stored", text, nullable=False),
-        sa.Column("supersedes", integer, sa.ForeignKey("readings.id"), nullable=True, unique=True),
-        sa.CheckConstraint(
-            "(kind = 'reading' AND value IS NOT NULL) OR kind = 'retraction'",
-            name="ck_readings_kind",
-        ),
-        sa.Index("ix_readings_session", "session_id", "id"),
-        sqlite_autoincrement=True,
-    )
-    sa.Table(
-        "analyses", md,
-        sa.Column("id", integer, primary_key=True, autoincrement=True),
-        sa.Column("session_id", sa.String(16), sa.ForeignKey("sessions.id"), nullable=False),
-        sa.Column("kind", text, nullable=False),
-        sa.Column("result", text, nullable=False),
-        sa.Column("tool_version", text, nullable=False),
-        sa.Column("inputs_sha256", sa.String(64), nullable=False),
-        sa.Column("created", text, nullable=False),
-        sa.Index("ix_analyses_session", "session_id"),
-        sqlite_autoincrement=True,
-    )
-
-
-_APPEND_ONLY_TABLES = ("boards", "sessions", "session_events", "readings", "analyses")
-
-
-def _forbid_changes(conn: Connection, tables: Sequence[str]) -> None:
-    """Triggers that make ``tables`` append-only: any UPDATE or DELETE is refused."""
-    if conn.dialect.name == "sqlite":
-        for table in tables:
-            for verb in ("UPDATE", "DELETE"):
-                conn.exec_driver_sql(
-                    f"CREATE TRIGGER {table}_no_{verb.lower()} BEFORE {verb} ON {table} "
-                    f"BEGIN SELECT RAISE(ABORT, '{table} are append-only'); END")
-        return
-    conn.exec_driver_sql(
-        "CREATE OR REPLACE FUNCTION reconcile_append_only() RETURNS trigger AS $$ "
-        "BEGIN RAISE EXCEPTION '%% are append-only', TG_TABLE_NAME; END $$ LANGUAGE plpgsql")
-    for table in tables:
-        conn.exec_driver_sql(
-            f"CREATE TRIGGER {table}_append_only BEFORE UPDATE OR DELETE ON {table} "
-            "FOR EACH ROW EXECUTE FUNCTION reconcile_append_only()")
-
-
-def _migrate_to_1(conn: Connection) -> None:
-    md = sa.MetaData()
-    _define_v1(md)
-    md.create_all(conn)
-    _forbid_changes(conn, _APPEND_ONLY_TABLES)
-
-
-MIGRATIONS: tuple[Callable[[Connection], None], ...] = (_migrate_to_1,)
-"""Schema migrations in order; each runs inside the one transaction that upgrades."""
-
-_MD = sa.MetaData()
-_define_v1(_MD)  # the tables queried by this code: the newest version's
-T_VERSION, T_BOARDS, T_SESSIONS, T_EVENTS, T_READINGS, T_ANALYSES = (
-    _MD.tables[name] for name in _OUR_TABLES
+from reconcile.errors import InputError, StoreError
+from reconcile.model.board import Board
+from reconcile.store.connection import (
+    BUSY_TIMEOUT_S,
+    CONNECT_TIMEOUT_S,
+    Database,
+    open_engine,
 )
-
+from reconcile.store.schema import (
+    _ENDED,
+    _READING,
+    _RETRACTION,
+    ANALYSIS_KINDS,
+    T_ANALYSES,
+    T_BOARDS,
+    T_EVENTS,
+    T_READINGS,
+    T_SESSIONS,
+    _iso,
+    utc_now,
+)
 
 # Statements used on every reading, built once (building them costs more than running them).
 _ENDED_AT = (
@@ -197,17 +71,6 @@ _INSERT_READING = T_READINGS.insert()
 
 
 # ---------------------------------------------------------------------------- values
-def utc_now() -> str:
-    """The current time as a UTC ISO-8601 string with milliseconds."""
-    return _iso(datetime.now(UTC))
-
-
-def _iso(moment: datetime) -> str:
-    if moment.tzinfo is None:
-        raise InputError(f"time {moment.isoformat()} has no time zone; give it in UTC")
-    return moment.astimezone(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
-
-
 def new_session_id() -> str:
     """A fresh session id: ``S-`` and 8 base32 characters (40 random bits)."""
     return "S-" + base64.b32encode(secrets.token_bytes(5)).decode("ascii")
@@ -310,17 +173,6 @@ class SessionView:
         }
 
 
-# ---------------------------------------------------------------------------- opening
-def default_store_path() -> Path:
-    """``$RECONCILE_STORE`` if set, else ``sessions.sqlite`` in the user's data folder."""
-    env = os.environ.get(STORE_ENV)
-    if env:
-        return Path(env).expanduser()
-    import platformdirs
-
-    return Path(platformdirs.user_data_dir("reconcile")) / DEFAULT_FILE_NAME
-
-
 def open_store(
     location: str | os.PathLike[str] | None = None,
     *,
@@ -349,20 +201,8 @@ def open_store(
         The store cannot be reached, read or written, is not a reconcile store, or has a
         newer schema than this code knows.
     """
-    if location is None:
-        path = default_store_path()
-        try:
-            path.parent.mkdir(parents=True, exist_ok=True)
-        except OSError as exc:
-            raise StoreError(f"cannot create the store folder {path.parent}: {exc}") from exc
-        engine, label = _sqlite_engine(path, busy_timeout_s), str(path)
-    else:
-        text = os.fspath(location)
-        if "://" in text:
-            engine, label = _url_engine(text, busy_timeout_s, connect_timeout_s)
-        else:
-            path = Path(text).expanduser()
-            engine, label = _sqlite_engine(path, busy_timeout_s), str(path)
+    engine, label = open_engine(location, busy_timeout_s=busy_timeout_s,
+                                connect_timeout_s=connect_timeout_s)
     store = Store(engine, label, busy_timeout_s=busy_timeout_s)
     try:
         store._prepare_schema()
@@ -372,188 +212,9 @@ def open_store(
     return store
 
 
-def _url_engine(text: str, busy_s: float, connect_s: float) -> tuple[Engine, str]:
-    try:
-        url = sa.engine.make_url(text)
-    except sa.exc.ArgumentError as exc:
-        raise InputError(f"store URL {text!r} cannot be read: {exc}", key="store") from exc
-    backend = url.get_backend_name()
-    if backend == "sqlite":
-        if not url.database or url.database == ":memory:":
-            raise InputError("an in-memory store keeps nothing: give a file", key="store")
-        return _sqlite_engine(Path(url.database).expanduser(), busy_s), url.database
-    if backend in ("postgresql", "postgres"):
-        if url.drivername.partition("+")[2] not in ("", "psycopg"):
-            raise InputError(
-                f"store URL driver {url.drivername!r} is not supported: "
-                "use postgresql:// or postgresql+psycopg://", key="store")
-        url = url.set(drivername="postgresql+psycopg")
-        label = url.render_as_string(hide_password=True)
-        engine = sa.create_engine(
-            url,
-            # libpq counts whole seconds and reads anything under 2 as 2
-            connect_args={"connect_timeout": max(2, math.ceil(connect_s)),
-                          "application_name": "reconcile"},
-            pool_pre_ping=False,
-        )
-        return engine, label
-    raise InputError(
-        f"store URL {url.render_as_string(hide_password=True)!r}: unsupported database "
-        f"{backend!r}; give a file path, sqlite:///PATH or postgresql://...", key="store")
-
-
-def _sqlite_engine(path: Path, busy_s: float) -> Engine:
-    if path.is_dir():
-        raise StoreError(f"store {path} is a folder; give a file name such as {DEFAULT_FILE_NAME}")
-    if not path.parent.is_dir():
-        raise StoreError(f"cannot open store {path}: folder {path.parent} does not exist")
-    engine = sa.create_engine(
-        sa.URL.create("sqlite", database=str(path)), connect_args={"timeout": busy_s})
-    busy_ms = max(0, round(busy_s * 1000))
-
-    @event.listens_for(engine, "connect")
-    def _on_connect(dbapi_conn: Any, _record: Any) -> None:
-        # Let SQLAlchemy's "begin" hook issue BEGIN (sqlite3's own handling is off), so
-        # the pragmas below run outside any transaction: WAL cannot be entered in one.
-        dbapi_conn.isolation_level = None
-        cur = dbapi_conn.cursor()
-        try:
-            cur.execute(f"PRAGMA busy_timeout={busy_ms}")
-            cur.execute("PRAGMA foreign_keys=ON")
-            cur.execute("PRAGMA journal_mode=WAL")
-            cur.execute("PRAGMA synchronous=NORMAL")
-        finally:
-            cur.close()
-
-    @event.listens_for(engine, "begin")
-    def _on_begin(conn: Connection) -> None:
-        # A writer takes the write lock up front (IMMEDIATE): a deferred transaction that
-        # reads first and writes later fails at once in WAL mode when another process
-        # committed in between, instead of waiting out busy_timeout.
-        writing = conn.get_execution_options().get("reconcile_write", False)
-        conn.exec_driver_sql("BEGIN IMMEDIATE" if writing else "BEGIN")
-
-    return engine
-
-
-# ---------------------------------------------------------------------------- errors
-def _one_line(exc: BaseException) -> str:
-    return " ".join(str(exc).split())
-
-
-class Store:
+class Store(Database):
     """An open session store. Make one with :func:`open_store`; close it (or use it as a
     context manager) when done."""
-
-    def __init__(self, engine: Engine, location: str, *, busy_timeout_s: float) -> None:
-        self._engine = engine
-        self._busy_timeout_s = busy_timeout_s
-        self.location = location
-        self.is_sqlite = engine.dialect.name == "sqlite"
-
-    # ------------------------------------------------------------ plumbing
-    def close(self) -> None:
-        """Release every connection."""
-        self._engine.dispose()
-
-    def __enter__(self) -> Store:
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self.close()
-
-    def _store_error(self, exc: sa.exc.DBAPIError) -> StoreError:
-        detail = _one_line(exc.orig if exc.orig is not None else exc)
-        low = detail.lower()
-        where = f"store {self.location}"
-        if self.is_sqlite:
-            if "locked" in low or "busy" in low:
-                return StoreError(
-                    f"{where} is locked by another process (waited {self._busy_timeout_s:g} s); "
-                    "try again when it has finished")
-            if "readonly" in low or "read-only" in low:
-                return StoreError(f"{where} is read-only ({self._access_hint()}): {detail}")
-            if "unable to open" in low:
-                return StoreError(f"cannot open {where} ({self._access_hint()}): {detail}")
-            if "not a database" in low or "malformed" in low:
-                return StoreError(f"{where} is not a readable SQLite store: {detail}")
-            return StoreError(f"{where}: {detail}")
-        if isinstance(exc, sa.exc.OperationalError) and (
-            "connection" in low or "connect" in low or "timeout" in low
-        ):
-            return StoreError(f"cannot reach {where}: {detail}")
-        return StoreError(f"{where}: {detail}")
-
-    def _access_hint(self) -> str:
-        path = Path(self.location)
-        if path.exists() and not os.access(path, os.W_OK):
-            return "the file is not writable"
-        if not os.access(path.parent, os.W_OK):
-            return f"folder {path.parent} is not writable"
-        return "check the file and folder permissions"
-
-    @contextlib.contextmanager
-    def _translated(self) -> Iterator[None]:
-        try:
-            yield
-        except sa.exc.DBAPIError as exc:
-            raise self._store_error(exc) from exc
-
-    @contextlib.contextmanager
-    def _write(self) -> Iterator[Connection]:
-        """A connection inside one committed-on-success write transaction."""
-        with self._translated(), self._engine.connect() as conn:
-            conn.execution_options(reconcile_write=True)
-            with conn.begin():
-                yield conn
-
-    @contextlib.contextmanager
-    def _read(self) -> Iterator[Connection]:
-        """A connection inside one read transaction (a consistent snapshot)."""
-        with self._translated(), self._engine.connect() as conn:
-            if not self.is_sqlite:
-                conn.execution_options(isolation_level="REPEATABLE READ")
-            with conn.begin():
-                yield conn
-
-    # ------------------------------------------------------------ schema
-    def schema_version(self) -> int:
-        """The schema version the store holds (0 for an empty store)."""
-        with self._read() as conn:
-            return self._version(conn)
-
-    def _version(self, conn: Connection) -> int:
-        names = set(sa.inspect(conn).get_table_names())
-        if "schema_version" not in names:
-            ours = names & set(_OUR_TABLES)
-            if ours or (self.is_sqlite and names):
-                raise StoreError(
-                    f"store {self.location} is not a reconcile store (it has tables "
-                    f"{', '.join(sorted(names))} but no schema_version)")
-            return 0
-        return int(conn.execute(sa.select(sa.func.max(T_VERSION.c.version))).scalar() or 0)
-
-    def _refuse_newer(self, version: int) -> None:
-        if version > SCHEMA_VERSION:
-            raise StoreError(
-                f"store {self.location} has schema version {version}, this reconcile knows "
-                f"up to {SCHEMA_VERSION}: upgrade reconcile")
-
-    def _prepare_schema(self) -> None:
-        with self._read() as conn:
-            version = self._version(conn)
-        self._refuse_newer(version)
-        if version == SCHEMA_VERSION:
-            return
-        with self._write() as conn:
-            if not self.is_sqlite:  # one upgrader at a time; SQLite's IMMEDIATE does this
-                conn.execute(sa.text("SELECT pg_advisory_xact_lock(7261657)"))
-            version = self._version(conn)
-            self._refuse_newer(version)
-            for number in range(version + 1, SCHEMA_VERSION + 1):
-                MIGRATIONS[number - 1](conn)
-                conn.execute(T_VERSION.insert().values(
-                    version=number, applied=utc_now(), tool_version=__version__))
 
     # ------------------------------------------------------------ sessions
     def create_session(

@@ -1,0 +1,261 @@
+"""Scoring single-fault hypotheses: Laplace evidence, prior weights, probabilities.
+
+The method is described in :mod:`reconcile.diagnosis.diagnose`: score(H) = χ²_min +
+ln det Σ_prior − ln det Σ_post, ln P(H | D) = −score/2 + ln w(kind) − normalisation. This
+module turns the batched fits of :mod:`reconcile.diagnosis.fault_fit` into ranked
+:class:`Hypothesis` objects; the meter check of each comes from
+:mod:`reconcile.diagnosis.checks`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from reconcile.diagnosis.checks import check
+from reconcile.diagnosis.fault_fit import FaultFit
+from reconcile.diagnosis.faults import Fault
+from reconcile.inference.fitting import P_CONSISTENT
+from reconcile.model.board import Board
+from reconcile.model.eseries import decade_slips, is_standard, nearest, series_for_tolerance
+
+OFF_TOLERANCE_KINDS = ("resistor", "capacitor", "supply", "IS", "beta")
+_STATUS_NOTES = {
+    "approximate": "fit stopped at its iteration limit within about one unit of χ² of its "
+    "minimum: its probability may be a little low",
+    "abandoned": "fit stopped early: its χ² stayed far above the best hypothesis's "
+    "(odds below exp(-5000)); the χ² shown is an upper bound",
+    "iteration-limit": "fit stopped at its iteration limit before its minimum: the χ² shown "
+    "is an upper bound and its probability a lower bound",
+    "no-operating-point": "the engine found no operating point at the fit: probability set to 0",
+}
+_SERIES_FALLBACK = ("E24", "E12", "E6", "E48", "E96", "E192")
+
+
+
+@dataclass(frozen=True)
+class Hypothesis:
+    """One single-fault explanation, fitted and scored.
+
+    ``value`` is the fitted resistance of a ``wrong-value`` hypothesis (ohm), else None;
+    ``score`` = ``chi_square`` + ``complexity`` (see the module docstring);
+    ``fitted`` holds the small-signal quantities of the fitted board, each transistor's
+    region and the other parameters it needs outside their tolerance. For a wrong value,
+    ``nearest`` is the standard value of ``series`` nearest the fit and
+    ``slip_decades`` k ≠ 0 when that is the drawn value × 10**k (``decade_slip``).
+    """
+
+    ref: str | None
+    fault: str
+    value: float | None
+    chi_square: float
+    probability: float
+    description: str
+    prior_weight: float
+    complexity: float
+    score: float
+    dof: int
+    p_value: float
+    converged: bool
+    stderr: float | None
+    nominal: float | None
+    nearest: float | None
+    series: str | None
+    decade_slip: bool
+    slip_decades: int
+    fitted: dict
+    check: str
+    same_as: tuple[str, ...]
+    aliases: tuple[str, ...]
+    note: str
+    fit: FaultFit = field(repr=False, compare=False)
+
+    @property
+    def label(self) -> str:
+        return self.fault if not self.ref else f"{self.ref} {self.fault}"
+
+    @property
+    def consistent(self) -> bool:
+        """p ≥ 0.01 (for a fit stopped early its χ² is an upper bound, so this holds
+        at its minimum too)."""
+        return bool(self.fit.status != "no-operating-point" and self.p_value >= P_CONSISTENT)
+
+    def to_dict(self) -> dict:
+        return {
+            "ref": self.ref,
+            "fault": self.fault,
+            "value": self.value,
+            "chi_square": self.chi_square,
+            "probability": self.probability,
+            "description": self.description,
+            "prior_weight": self.prior_weight,
+            "complexity": self.complexity,
+            "score": self.score,
+            "dof": self.dof,
+            "p_value": self.p_value,
+            "consistent": self.consistent,
+            "converged": self.converged,
+            "status": self.fit.status,
+            "iterations": self.fit.iterations,
+            "stderr": self.stderr,
+            "nominal": self.nominal,
+            "nearest": self.nearest,
+            "series": self.series,
+            "decade_slip": self.decade_slip,
+            "slip_decades": self.slip_decades,
+            "fitted": self.fitted,
+            "check": self.check,
+            "same_as": list(self.same_as),
+            "aliases": list(self.aliases),
+            "note": self.note,
+        }
+
+
+def _complexity(fit: FaultFit) -> float:
+    """ln det Σ_prior − ln det Σ_post over the free parameters (≥ 0 up to rounding)."""
+    sd = fit.prior_sd[fit.free]
+    sign, logdet = np.linalg.slogdet(fit.covariance)
+    if sign <= 0 or not math.isfinite(logdet):
+        return math.inf
+    return max(float(np.sum(np.log(sd**2)) - logdet), 0.0)
+
+
+def _weight(fault: Fault, weights: dict[str, float]) -> float:
+    w = weights[fault.kind]
+    for alias in fault.aliases:
+        w += weights[alias]
+    return w
+
+
+def score_hypotheses(board, fits, none_fit, weights, n_obs) -> list[Hypothesis]:
+    from scipy.special import chdtrc
+
+    scores, logpost, notes = [], [], []
+    for ft in fits:
+        cplx = _complexity(ft)
+        score = ft.chi_square + cplx
+        w = _weight(ft.fault, weights)
+        note = _STATUS_NOTES.get(ft.status, "")
+        if ft.status != "no-operating-point" and not math.isfinite(score):
+            note = "no usable posterior covariance: probability set to 0"
+        ok = ft.status != "no-operating-point" and math.isfinite(score)
+        scores.append((cplx, score))
+        logpost.append(-0.5 * score + math.log(w) if ok else -math.inf)
+        notes.append(note)
+    lp = np.array(logpost)
+    finite = np.isfinite(lp)
+    prob = np.zeros(len(fits))
+    if finite.any():
+        top = lp[finite].max()
+        e = np.where(finite, np.exp(lp - top), 0.0)
+        prob = e / e.sum()
+    same = _same_node_shorts(board)
+    hyps = []
+    for ft, (cplx, score), p, note in zip(fits, scores, prob, notes, strict=True):
+        f = ft.fault
+        h_value = h_stderr = h_nearest = None
+        series = None
+        slip_k = 0
+        nominal = _nominal(board, f.ref)
+        if f.kind == "wrong-value":
+            h_value, h_stderr = ft.value(f.ref), ft.stderr(f.ref)
+            series = _series_of(board, f.ref)
+            h_nearest = nearest(h_value, series)
+            slip_k = _slip_decades(nominal, h_nearest, series)
+        hyps.append(
+            Hypothesis(
+                ref=f.ref or None,
+                fault=f.kind,
+                value=h_value,
+                chi_square=ft.chi_square,
+                probability=float(p),
+                description=f.description,
+                prior_weight=_weight(f, weights),
+                complexity=cplx,
+                score=score,
+                dof=n_obs,
+                p_value=float(chdtrc(n_obs, ft.chi_square)) if math.isfinite(score) else 0.0,
+                converged=ft.converged,
+                stderr=h_stderr,
+                nominal=nominal,
+                nearest=h_nearest,
+                series=series,
+                decade_slip=bool(slip_k),
+                slip_decades=slip_k,
+                fitted=_fitted(ft),
+                check=check(board, ft, none_fit, h_value, h_nearest, series, slip_k),
+                same_as=tuple(same.get((f.ref, f.kind), ())),
+                aliases=f.aliases,
+                note=note,
+                fit=ft,
+            )
+        )
+    hyps.sort(key=lambda h: (-h.probability, h.score if math.isfinite(h.score) else math.inf))
+    return hyps
+
+
+def _nominal(board: Board, ref: str) -> float | None:
+    if ref in board.resistors:
+        return board.resistors[ref].ohms
+    if ref in board.capacitors:
+        return board.capacitors[ref].farads
+    return None
+
+
+def _series_of(board: Board, ref: str) -> str:
+    """The E-series the part's value comes from: the one its tolerance suggests when it
+    holds the drawn value, else the first common series that does."""
+    r = board.resistors[ref]
+    first = series_for_tolerance(r.tolerance)
+    for name in (first, *_SERIES_FALLBACK):
+        if is_standard(r.ohms, name):
+            return name
+    return first
+
+
+def _slip_decades(nominal: float | None, value: float, series: str) -> int:
+    """k when ``value`` (a standard value) is the drawn value times 10**k, k ≠ 0 (a
+    decade slip: the right digits, the wrong multiplier; ±1 through
+    :func:`reconcile.eseries.decade_slips`), else 0."""
+    if nominal is None or not is_standard(nominal, series):
+        return 0
+    if any(math.isclose(value, s, rel_tol=1e-6) for s in decade_slips(nominal, series)):
+        return 1 if value > nominal else -1
+    k = round(math.log10(value / nominal))
+    return k if k and math.isclose(value, nominal * 10.0**k, rel_tol=1e-6) else 0
+
+
+def _same_node_shorts(board: Board) -> dict[tuple[str, str], list[str]]:
+    """Shorts of parts between the same two nodes: electrically one hypothesis for
+    every in-circuit reading."""
+    by_pair: dict[frozenset, list[str]] = {}
+    for ref, r in board.resistors.items():
+        by_pair.setdefault(frozenset(r.nodes), []).append(ref)
+    for ref, c in board.capacitors.items():
+        by_pair.setdefault(frozenset(c.nodes), []).append(ref)
+    out: dict[tuple[str, str], list[str]] = {}
+    for refs in by_pair.values():
+        if len(refs) > 1:
+            for ref in refs:
+                out[(ref, "short")] = [f"{o} short" for o in refs if o != ref]
+    return out
+
+
+def _fitted(ft: FaultFit) -> dict:
+    """What the fitted board looks like: small signal, regions, parts pulled off."""
+    out: dict = {k: v for k, v in ft.small_signal.items()}
+    out["regions"] = dict(ft.regions)
+    off = {}
+    for j, fp in enumerate(ft.space.parameters):
+        if not ft.free[j] or fp.key == ft.fault.ref or fp.kind not in OFF_TOLERANCE_KINDS:
+            continue
+        if fp.tolerance_low is None or fp.tolerance_high is None:
+            continue
+        value = float(fp.to_external(ft.x[j]))
+        if not fp.tolerance_low <= value <= fp.tolerance_high:
+            off[fp.key] = value
+    out["off_tolerance"] = off
+    return out
+
