@@ -54,6 +54,15 @@ def saturation_current(
     return is_25c * ratio**xti * np.exp((bandgap_ev / K_OVER_Q) * (1.0 / T0_K - 1.0 / t))
 
 
+def _exp_continued(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """exp(x) and its derivative, continued linearly above EXP_LIMIT (as inside
+    :func:`junction_point`, for callers that need the exponential alone)."""
+    clipped = np.minimum(x, EXP_LIMIT)
+    e = np.exp(clipped)
+    over = x - clipped
+    return e * (1.0 + over), e
+
+
 @dataclass(frozen=True)
 class JunctionState:
     """Terminal currents (npn frame) and their partial derivatives at (vbe, vbc).
