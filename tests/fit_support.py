@@ -3,7 +3,7 @@ tolerances, the truth as an internal parameter vector, and linear propagation of
 fit's covariance to a spec quantity.
 
 Imported by ``test_fit_recovery.py``, ``test_fit_gum.py``, ``test_fit_meter_loading.py``,
-``test_miss_budget.py`` and ``test_next_reading.py``.
+``test_error_budget.py`` and ``test_next_reading.py``.
 """
 
 from __future__ import annotations

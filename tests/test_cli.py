@@ -60,6 +60,9 @@ def test_fit_json_contract_keys():
         "uncertainty",
         "normalized_residual",
     }
+    # "error budget" is the trade's name; the version-1 key stays readable for one version
+    assert data["error_budget"] and data["miss_budget"] == data["error_budget"]
+    assert {"target", "fitted", "total", "design", "parts"} <= set(data["error_budget"]["gain"])
 
 
 def test_bad_board_is_one_line_exit_2(tmp_path):

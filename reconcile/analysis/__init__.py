@@ -1,1 +1,1 @@
-"""What a fit means: the miss budget and the next most useful reading."""
+"""What a fit means: the error budget and the next most useful reading."""

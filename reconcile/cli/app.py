@@ -154,7 +154,7 @@ def fit(
     session: SessionOpt = None,
     store: StoreOpt = None,
 ) -> None:
-    """Fit the built board to its readings: values, uncertainties, miss budget, next reading."""
+    """Fit the built board to its readings: values, uncertainties, error budget, next reading."""
     from reconcile.pipeline.analyses import run_fit
 
     inputs = AnalysisInputs.gather(board, readings, session, store, "fit")

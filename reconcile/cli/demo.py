@@ -8,7 +8,7 @@ of about 9.2 and 85 ohm. The demo
 2. opens a session for LR-0042 and captures its readings from a simulated bench (a
    scanner routes the meter; the bench answers for a hidden board,
    ``sample_data/line_receiver_lr0042_truth.toml``, plus noise);
-3. fits the built board to the readings (what was built, miss budget, next readings);
+3. fits the built board to the readings (what was built, error budget, next readings);
 4. asks which single fault explains them, takes the reading the diagnosis suggests
    (on the simulated bench) and asks again;
 5. proposes the least rework and its yield, and checks it against the hidden board;

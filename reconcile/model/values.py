@@ -339,5 +339,9 @@ def format_si(value: float, unit: str = "", digits: int = 6) -> str:
         scale *= 1e3
         prefix = next(p for s, p in _FORMAT_PREFIXES if s == scale)
         mantissa = float(f"{rounded / scale:.{digits}g}")
-    text = f"{mantissa:.{digits}g}"
+    # fixed decimals, not %g: 580 to 2 digits is "580", never "5.8e+02"
+    decimals = max(0, digits - 1 - math.floor(math.log10(abs(mantissa)))) if mantissa else 0
+    text = f"{mantissa:.{decimals}f}"
+    if "." in text:
+        text = text.rstrip("0").rstrip(".")
     return f"{text} {prefix}{symbol}".strip()

@@ -1,6 +1,6 @@
 """What the HTML report shows, collected: every analysis run on (board, readings).
 
-:func:`collect_report` runs the fit, miss budget, next readings, diagnosis, trim and
+:func:`collect_report` runs the fit, error budget, next readings, diagnosis, trim and
 (when given) a lot, and keeps their results; :mod:`reconcile.present.report` draws the
 figures and renders the page. Code here computes; it never prints or draws.
 """

@@ -1,4 +1,4 @@
-"""Figures for the report that no single command draws: the operating point, the miss
+"""Figures for the report that no single command draws: the operating point, the error
 budget and the fault probabilities. Each returns PNG bytes (matplotlib, Agg backend)."""
 
 from __future__ import annotations
@@ -85,9 +85,9 @@ def operating_point_png(
     return _png(fig)
 
 
-def miss_budget_png(budget: dict) -> bytes:
+def error_budget_png(budget: dict) -> bytes:
     """One horizontal stacked bar per spec quantity: design, parts, devices, bench,
-    as a percentage of the target, with the total miss marked."""
+    as a percentage of the target, with the total error marked."""
     plt = _pyplot()
     names = list(budget)
     fig, ax = plt.subplots(figsize=(8, 1.2 + 1.1 * len(names)))
@@ -123,12 +123,12 @@ def miss_budget_png(budget: dict) -> bytes:
             "k|",
             markersize=24,
             mew=2,
-            label="total miss" if i == 0 else None,
+            label="total error" if i == 0 else None,
         )
     ax.axvline(0.0, color="black", lw=0.8)
     ax.set_yticks(range(len(names)), names)
-    ax.set_xlabel("share of the miss [% of target]")
-    ax.set_title("Miss budget (Shapley shares add up to the total)")
+    ax.set_xlabel("share of the error [% of target]")
+    ax.set_title("Error budget (Shapley shares add up to the total)")
     ax.legend(fontsize=8, ncol=5, loc="upper center", bbox_to_anchor=(0.5, -0.35))
     return _png(fig)
 

@@ -8,7 +8,7 @@ import numpy as np
 
 from reconcile.errors import ReconcileError
 from reconcile.trim.rework import TrimResult
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 COLOUR_BEFORE = "#9a8f86"
 COLOUR_AFTER = "#2a7f62"
@@ -36,7 +36,7 @@ def plot_trim(result: TrimResult, path: str | Path, *, bins: int = 60) -> Path:
     shown = [q for q in QUANTITIES if q[0] in result.baseline.draws]
     fig, axes = plt.subplots(1, len(shown), figsize=(5.5 * len(shown), 4.2), squeeze=False)
     label_after = "after: " + "; ".join(
-        f"{c.ref} {'→' if c.action == 'replace' else '∥'} {format_si(c.ohms, 'Ω', digits=3)}"
+        f"{c.ref} {'→' if c.action == 'replace' else '∥'} {numbers.si(c.ohms, 'Ω', 3)}"
         for c in best.changes
     )
     for ax, (name, label, unit) in zip(axes[0], shown, strict=True):

@@ -9,7 +9,7 @@ from rich.table import Table
 
 from reconcile.diagnosis.diagnose import Diagnosis, Hypothesis, NextReading
 from reconcile.inference.simulate import UNITS
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 STYLE_OK = "green"
 STYLE_BAD = "bold red"
@@ -31,7 +31,7 @@ def _unit(quantity: str) -> str:
 def _value(x: float | None, unit: str) -> str:
     if x is None or not math.isfinite(x):
         return "-"
-    return format_si(x, unit, digits=3)
+    return numbers.si(x, unit, 3)
 
 
 def _probability(p: float) -> str:
@@ -62,7 +62,18 @@ def _fault_value(h: Hypothesis) -> str:
     return text
 
 
-def _fitted_board(h: Hypothesis) -> str:
+def _parameter_unit(board, key: str) -> str:
+    """The unit of a parameter key (``RC``, ``VCC``, ``Q1.IS``, ``Q1.beta``)."""
+    if key in board.resistors:
+        return "Ω"
+    if key in board.capacitors:
+        return "F"
+    if key in board.supplies:
+        return "V"
+    return {"IS": "A", "VA": "V"}.get(key.rpartition(".")[2], "")
+
+
+def _fitted_board(h: Hypothesis, board) -> str:
     f = h.fitted
     parts = [
         f"{short} {_value(f[key], _unit(key))}"
@@ -72,7 +83,10 @@ def _fitted_board(h: Hypothesis) -> str:
     parts += [f"{ref} {region}" for ref, region in f.get("regions", {}).items()]
     off = list(f.get("off_tolerance", {}).items())
     if off:
-        shown = ", ".join(f"{k} = {v:.3g}" for k, v in off[:OFF_TOLERANCE_SHOWN])
+        shown = ", ".join(
+            f"{k} = {numbers.si(v, _parameter_unit(board, k), 3)}"
+            for k, v in off[:OFF_TOLERANCE_SHOWN]
+        )
         extra = len(off) - OFF_TOLERANCE_SHOWN
         more = f" and {extra} more" if extra > 0 else ""
         parts.append(f"needs {shown}{more} outside tolerance")
@@ -90,10 +104,11 @@ def hypothesis_table(diag: Diagnosis, rows: int = 10) -> Table:
     t.add_column("the fitted board then has")
     for i, h in enumerate(diag.hypotheses[:rows], start=1):
         style = "" if h.converged else STYLE_DIM
-        chi = f"{h.chi_square:.3g}" if h.converged else f"≥{h.chi_square:.3g}"
+        chi = numbers.plain(h.chi_square, 3)
+        chi = chi if h.converged else f"≥{chi}"
         t.add_row(
             str(i), _label(h), _probability(h.probability), chi, _fault_value(h),
-            _fitted_board(h), style=style,
+            _fitted_board(h, diag.board), style=style,
         )
     more = len(diag.hypotheses) - rows
     if more > 0:

@@ -1,4 +1,4 @@
-"""Rich tables for a fit, its miss budget and the suggested next readings."""
+"""Rich tables for a fit, its error budget and the suggested next readings."""
 
 from __future__ import annotations
 
@@ -6,9 +6,9 @@ from rich.console import Console
 from rich.table import Table
 
 from reconcile.inference.fitting import FitResult
-from reconcile.analysis.miss_budget import GROUPS, MissBudget
+from reconcile.analysis.error_budget import GROUPS, ErrorBudget
 from reconcile.analysis.next_reading import Suggestion
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 OK, BAD, WARN, DIM = "green", "bold red", "yellow", "dim"
 
@@ -25,27 +25,22 @@ _READING_UNIT = {
 
 
 def _fmt(value: float, unit: str) -> str:
-    sym = _UNIT_SYMBOL.get(unit, unit)
     if unit == "K":
-        return f"{value - 273.15:.1f} °C"
-    if unit == "A" and abs(value) < 1e-9:
-        return f"{value:.3g} A"
-    if not sym:
-        return f"{value:.4g}"
-    return format_si(value, sym, digits=4)
+        return numbers.temperature(value)
+    return numbers.si(value, _UNIT_SYMBOL.get(unit, unit))
+
+
+def _fmt_u(value: float, u: float, unit: str) -> str:
+    if unit == "K":
+        return numbers.temperature(value, u)
+    return numbers.with_u(value, u, _UNIT_SYMBOL.get(unit, unit))
 
 
 def parameters_table(fit: FitResult) -> Table:
     t = Table(title="What was built (fitted parameters)", title_justify="left")
-    for col in ("parameter", "nominal", "fitted", "±1σ", "tolerance", "in band", "from"):
+    for col in ("parameter", "nominal", "fitted ± 1σ", "tolerance", "in band", "from"):
         t.add_column(col, justify="left" if col in ("parameter", "status", "from") else "right")
     for key, e in fit.parameters.items():
-        if e.unit == "K":
-            sd = f"{e.stderr:.2g} K"
-        elif e.unit == "A":
-            sd = f"{100 * e.stderr / e.value:.0f}%"
-        else:
-            sd = _fmt(e.stderr, e.unit)
         band = "-"
         if e.tolerance_low is not None and e.tolerance_high is not None and e.nominal:
             lo = 100 * (e.tolerance_low / e.nominal - 1)
@@ -64,8 +59,7 @@ def parameters_table(fit: FitResult) -> Table:
         t.add_row(
             key.replace("temperature", "T junction"),
             _fmt(e.nominal, e.unit),
-            _fmt(e.value, e.unit),
-            sd,
+            _fmt_u(e.value, e.stderr, e.unit),
             band,
             status,
             src,
@@ -75,7 +69,7 @@ def parameters_table(fit: FitResult) -> Table:
 
 def readings_table(fit: FitResult) -> Table:
     t = Table(title="Readings: measured against the fitted board", title_justify="left")
-    for col in ("reading", "measured", "predicted", "u", "z"):
+    for col in ("reading", "measured ± u", "predicted", "z"):
         t.add_column(col, justify="left" if col == "reading" else "right")
     for r in fit.readings:
         unit = _READING_UNIT.get(r.quantity, "")
@@ -86,7 +80,10 @@ def readings_table(fit: FitResult) -> Table:
         elif abs(r.normalized_residual) > 2:
             z = f"[{WARN}]{z}[/]"
         t.add_row(
-            label, _fmt(r.measured, unit), _fmt(r.predicted, unit), _fmt(r.uncertainty, unit), z
+            label,
+            _fmt_u(r.measured, r.uncertainty, unit),
+            _fmt(r.predicted, unit),
+            z,
         )
     return t
 
@@ -105,21 +102,34 @@ def verdict_line(fit: FitResult) -> str:
     )
 
 
-def budget_table(budget: MissBudget) -> Table:
+def budget_table(budget: ErrorBudget) -> Table:
     t = Table(
-        title="Miss budget: where the difference from the spec comes from", title_justify="left"
+        title="Error budget: where the difference from the spec comes from", title_justify="left"
     )
-    for col in ("quantity", "target", "fitted", "miss", "design", *GROUPS):
+    for col in ("quantity", "target", "fitted", "error", "design", *GROUPS):
         t.add_column(col, justify="left" if col == "quantity" else "right")
     for name, q in budget.quantities.items():
         unit = "Ω" if name.endswith("resistance") else ""
-
-        def f(x: float, unit: str = unit) -> str:
-            return f"{x:+.3g}{(' ' + unit) if unit else ''}"
-
-        shares = [f"{f(q.shares[g])} ±{q.share_stderr[g]:.2g}" for g in GROUPS]
-        t.add_row(name, f"{q.target:.4g}", f"{q.fitted:.4g}", f(q.total), f(q.design), *shares)
+        scale = q.target
+        shares = [
+            numbers.with_u(
+                q.shares[g], q.share_stderr[g], unit, sign=True, scale=scale, compact=True
+            )
+            for g in GROUPS
+        ]
+        t.add_row(
+            name,
+            numbers.si(q.target, unit),
+            numbers.si(q.fitted, unit),
+            numbers.signed(q.total, unit, scale=scale),
+            numbers.signed(q.design, unit, scale=scale),
+            *shares,
+        )
     return t
+
+
+def _unit_of(quantity: str) -> str:
+    return "Ω" if quantity.endswith("resistance") else _READING_UNIT.get(quantity, "")
 
 
 def next_table(suggestions: list[Suggestion]) -> Table:
@@ -129,14 +139,17 @@ def next_table(suggestions: list[Suggestion]) -> Table:
             col, justify="left" if col in ("reading", "uncertainty after (before)") else "right"
         )
     for i, s in enumerate(suggestions, 1):
-        detail = ", ".join(f"{k}: ±{s.after[k]:.3g} ({s.before[k]:.3g})" for k in list(s.after)[:3])
+        detail = ", ".join(
+            f"{k}: ±{numbers.si(s.after[k], _unit_of(k), 2)} ({numbers.si(s.before[k], _unit_of(k), 2)})"
+            for k in list(s.after)[:3]
+        )
         t.add_row(str(i), s.label, f"{100 * s.score:.1f}%", detail)
     return t
 
 
 def print_fit(
     fit: FitResult,
-    budget: MissBudget | None,
+    budget: ErrorBudget | None,
     suggestions: list[Suggestion],
     console: Console | None = None,
 ) -> None:

@@ -8,7 +8,7 @@ from rich.console import Console
 from rich.table import Table
 
 from reconcile.lot.characterise import LotResult
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 OK, BAD, WARN, DIM = "green", "bold red", "yellow", "dim"
 MAX_DEVICE_ROWS = 60
@@ -18,7 +18,7 @@ MAX_PAIR_ROWS = 40
 def _fmt(x: float | None, unit: str = "", digits: int = 4) -> str:
     if x is None or not math.isfinite(x):
         return "-"
-    return format_si(x, unit, digits=digits) if unit else f"{x:.{digits}g}"
+    return numbers.si(x, unit, digits)
 
 
 def _rel(stderr: float, value: float) -> str:
@@ -33,7 +33,7 @@ def devices_table(result: LotResult, limit: int = MAX_DEVICE_ROWS) -> Table:
     if len(items) > limit:
         items = sorted(items, key=lambda d: not d.flags)[:limit]
     t = Table(title=f"Devices ({len(result.devices)}; IS at 25 C, VBE at "
-                    f"{format_si(result.options.current_a, 'A')})", title_justify="left")
+                    f"{numbers.si(result.options.current_a, 'A')})", title_justify="left")
     for col in ("device", "beta", "±1σ", "IS", "±1σ", "n", "VBE", "bin", "flags"):
         t.add_column(col, justify="left" if col in ("device", "bin", "flags") else "right")
     for d in items:
@@ -78,8 +78,8 @@ def bins_table(result: LotResult) -> Table:
 def pairs_table(result: LotResult, limit: int = MAX_PAIR_ROWS) -> Table:
     o = result.options
     t = Table(
-        title=f"Matched sets (|ΔVBE| ≤ {format_si(o.vbe_limit_v, 'V')} at "
-              f"{format_si(o.current_a, 'A')}, beta ratio ≤ {o.beta_ratio:g})",
+        title=f"Matched sets (|ΔVBE| ≤ {numbers.si(o.vbe_limit_v, 'V')} at "
+              f"{numbers.si(o.current_a, 'A')}, beta ratio ≤ {o.beta_ratio:g})",
         title_justify="left",
     )
     for col in ("devices", "ΔVBE", "±1σ", "beta ratio"):

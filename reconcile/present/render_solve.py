@@ -6,7 +6,7 @@ from rich.console import Console, Group
 from rich.table import Table
 
 from reconcile.engine.solution import BoardSolution
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 STYLE_OK = "green"
 STYLE_BAD = "bold red"
@@ -16,7 +16,7 @@ STYLE_WARN = "yellow"
 def _si(x: float | None, unit: str) -> str:
     if x is None:
         return "∞"
-    return format_si(x, unit, digits=4)
+    return numbers.si(x, unit, 4)
 
 
 def solution_tables(sol: BoardSolution) -> Group:
@@ -24,9 +24,9 @@ def solution_tables(sol: BoardSolution) -> Group:
     parts = []
     nodes = Table(title="Node voltages", title_justify="left")
     nodes.add_column("node")
-    nodes.add_column("V", justify="right")
+    nodes.add_column("voltage", justify="right")
     for name, v in sol.nodes.items():
-        nodes.add_row(name, "no DC path" if v is None else f"{v:.4f}")
+        nodes.add_row(name, "no DC path" if v is None else numbers.si(v, "V", 5))
     parts.append(nodes)
 
     if sol.transistors:
@@ -57,10 +57,10 @@ def solution_tables(sol: BoardSolution) -> Group:
         parts.append(q)
 
     s = Table(title="Supplies", title_justify="left")
-    for col in ("ref", "V", "current"):
+    for col in ("ref", "voltage", "current"):
         s.add_column(col, justify="right" if col != "ref" else "left")
     for ref, sup in sol.supplies.items():
-        s.add_row(ref, f"{sup['volts']:.4g}", _si(sup["current"], "A"))
+        s.add_row(ref, numbers.si(sup["volts"], "V"), _si(sup["current"], "A"))
     parts.append(s)
 
     r = Table(title="Resistors", title_justify="left")
@@ -104,7 +104,7 @@ def solution_tables(sol: BoardSolution) -> Group:
                 _si(c.target, unit),
                 f"{_si(c.low, unit)} … {_si(c.high, unit)}",
                 _si(c.value, unit),
-                f"{100 * c.margin:+.1f}%",
+                numbers.percent(c.margin),
                 f"[{STYLE_OK}]meets[/]" if c.met else f"[{STYLE_BAD}]misses[/]",
             )
         parts.append(sp)

@@ -6,7 +6,7 @@ from rich.console import Console
 from rich.table import Table
 
 from reconcile.trim.rework import Change, TrimOption, TrimResult
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 
 STYLE_OK = "green"
 STYLE_BAD = "bold red"
@@ -21,16 +21,15 @@ def _unit(quantity: str) -> str:
 def _value(quantity: str, x: float | None) -> str:
     if x is None:
         return "-"
-    unit = _unit(quantity)
-    return format_si(x, unit, digits=4) if unit else f"{x:.4g}"
+    return numbers.si(x, _unit(quantity), 4)
 
 
 def describe_change(change: Change) -> str:
     """``replace RC with 931 Ω (E96)`` or ``RC ∥ 12.4 kΩ (E96) → 940 Ω``."""
-    new = format_si(change.ohms, "Ω", digits=3)
+    new = numbers.si(change.ohms, "Ω", 3)
     if change.action == "replace":
         return f"replace {change.ref} with {new} ({change.series})"
-    combined = format_si(change.combined_ohms, "Ω", digits=4)
+    combined = numbers.si(change.combined_ohms, "Ω", 4)
     return f"{change.ref} ∥ {new} ({change.series}) → {combined}"
 
 

@@ -15,7 +15,7 @@ from pathlib import Path
 from reconcile import __version__
 from reconcile.data.readings import standard_uncertainty
 from reconcile.model.board import Board
-from reconcile.model.values import format_si
+from reconcile.present import numbers
 from reconcile.pipeline.report import SECTIONS, ReportData, collect_report
 
 __all__ = ["CAUTIONS", "SECTIONS", "ReportData", "build_report", "draw_figures",
@@ -41,7 +41,7 @@ def _png_file(path: Path) -> bytes:
 def draw_figures(data: ReportData, work_dir: Path) -> None:
     """Draw every figure of the page into ``data.plots`` (PNG bytes)."""
     from reconcile.present.plots_fit import panel_png
-    from reconcile.present.plots_report import hypotheses_png, miss_budget_png, operating_point_png
+    from reconcile.present.plots_report import hypotheses_png, error_budget_png, operating_point_png
     from reconcile.present.plots_trim import plot_trim
 
     work_dir.mkdir(parents=True, exist_ok=True)
@@ -51,7 +51,7 @@ def draw_figures(data: ReportData, work_dir: Path) -> None:
     data.plots["readings"] = panel_png(data.outcome.fit, "readings")
     data.plots["fit"] = panel_png(data.outcome.fit, "parameters")
     if data.budget:
-        data.plots["budget"] = miss_budget_png(data.budget)
+        data.plots["budget"] = error_budget_png(data.budget)
     data.plots["diagnosis"] = hypotheses_png(data.diagnosis["hypotheses"])
     if data.trim_result is not None:
         try:
@@ -109,7 +109,7 @@ def _num(x, unit: str = "", digits: int = 4) -> str:
     if isinstance(x, bool):
         return "yes" if x else "no"
     if isinstance(x, int | float):
-        return _e(format_si(float(x), unit, digits=digits)) if unit else _e(f"{x:.{digits}g}")
+        return _e(numbers.si(float(x), unit, digits))
     return _e(x)
 
 
@@ -245,15 +245,12 @@ def _fit_section(d: ReportData) -> str:
             else ('<span class="ok">in</span>' if inside else '<span class="bad">OUT</span>')
         )
         if key == "temperature":
-            val, sd = f"{p['value'] - 273.15:.1f} °C", f"{p['stderr']:.2g} K"
-            nom = f"{p['nominal'] - 273.15:.1f} °C"
+            val = _e(numbers.temperature(p["value"], p["stderr"]))
+            nom = _e(numbers.temperature(p["nominal"]))
         else:
-            val, sd, nom = (
-                _num(p["value"], unit),
-                _num(p["stderr"], unit, 2),
-                _num(p["nominal"], unit),
-            )
-        rows.append([_e(key), nom, val, sd, status, _e(p["informed_by"])])
+            val = _e(numbers.with_u(p["value"], p["stderr"], unit))
+            nom = _num(p["nominal"], unit)
+        rows.append([_e(key), nom, val, status, _e(p["informed_by"])])
     verdict = f.get("verdict", "")
     cls = "ok" if verdict == "consistent" else "bad"
     head = (
@@ -271,7 +268,7 @@ def _fit_section(d: ReportData) -> str:
         )
     return (
         head
-        + _table(["parameter", "nominal", "fitted", "±1σ", "in tolerance", "informed by"], rows)
+        + _table(["parameter", "nominal", "fitted ± 1σ", "in tolerance", "informed by"], rows)
         + _img(d.plots.get("fit"), "fit")
         + nxt
     )
@@ -279,26 +276,32 @@ def _fit_section(d: ReportData) -> str:
 
 def _budget_section(d: ReportData) -> str:
     if not d.budget:
-        return "<p>The board has no [spec] with a signal set-up: no miss budget.</p>"
+        return "<p>The board has no [spec] with a signal set-up: no error budget.</p>"
     rows = []
     for name, q in d.budget.items():
+        unit = "Ω" if name.endswith("resistance") else ""
+        target = q["target"]
         rows.append(
             [
                 _e(name),
-                _num(q["target"]),
-                _num(q["fitted"]),
-                _num(q["total"]),
-                _num(q["design"]),
-                *(f"{_num(q[g])} ±{q['stderr'][g]:.2g}" for g in ("parts", "devices", "bench")),
+                _num(target, unit),
+                _num(q["fitted"], unit),
+                _e(numbers.signed(q["total"], unit, scale=target)),
+                _e(numbers.signed(q["design"], unit, scale=target)),
+                *(
+                    _e(numbers.with_u(q[g], q["stderr"][g], unit, sign=True, scale=target))
+                    for g in ("parts", "devices", "bench")
+                ),
             ]
         )
     return (
         "<p>Shapley shares over the orders of substitution (design = the drawn board under "
-        "the exact model against the target).</p>"
+        "the exact model against the target); each share with its standard uncertainty "
+        "(GUM 7.2.6 rounding).</p>"
         + _table(
-            ["quantity", "target", "fitted", "miss", "design", "parts", "devices", "bench"], rows
+            ["quantity", "target", "fitted", "error", "design", "parts", "devices", "bench"], rows
         )
-        + _img(d.plots.get("budget"), "miss budget")
+        + _img(d.plots.get("budget"), "error budget")
     )
 
 
@@ -333,12 +336,15 @@ def _trim_section(d: ReportData) -> str:
         change = (
             "; ".join(
                 f"{c['ref']} {'replace with' if c['action'] == 'replace' else 'add in parallel'} "
-                f"{format_si(c['ohms'], 'Ω', digits=3)} ({c['series']})"
+                f"{numbers.si(c['ohms'], 'Ω', 3)} ({c['series']})"
                 for c in o["changes"]
             )
             or "no change"
         )
-        pred = ", ".join(f"{k} {v:.4g}" for k, v in o["predicted"].items())
+        pred = ", ".join(
+            f"{k} {numbers.si(v, 'Ω' if k.endswith('resistance') else '')}"
+            for k, v in o["predicted"].items()
+        )
         y = o.get("yield")
         rows.append(
             [
@@ -394,7 +400,7 @@ def render_html(d: ReportData) -> str:
         ("board", "The board", _board_section(d)),
         ("readings", "The readings", _readings_section(d)),
         ("fit", "What was built (the fit)", _fit_section(d)),
-        ("budget", "Where the spec miss comes from", _budget_section(d)),
+        ("budget", "Error budget: where the difference from the spec comes from", _budget_section(d)),
         ("diagnosis", "What is wrong with it", _diagnosis_section(d)),
         ("trim", "The least rework", _trim_section(d)),
     ]

@@ -3,7 +3,7 @@
     python tests/benchmarks/bench_fit.py [REPEATS]
 
 prints one JSON object of timings (seconds): the median of REPEATS runs of one fit
-(the invented line receiver, 8 simulated readings), of its miss budget and of the
+(the invented line receiver, 8 simulated readings), of its error budget and of the
 next-reading suggestion, each after imports and one warm-up run. :func:`run` returns the
 same dict for a project-wide benchmark runner. Target, reported and not asserted: a fit
 under 50 ms.
@@ -22,7 +22,7 @@ import numpy as np
 
 from reconcile.model.board_loader import load_board
 from reconcile.inference.fitting import fit_board
-from reconcile.analysis.miss_budget import miss_budget
+from reconcile.analysis.error_budget import error_budget
 from reconcile.analysis.next_reading import suggest_next
 from reconcile.inference.simulate import full_plan, simulate_readings
 
@@ -41,12 +41,12 @@ def _median_time(fn: Any, repeats: int) -> tuple[float, Any]:
 
 
 def run(repeats: int = 15) -> dict[str, Any]:
-    """Time fit, miss budget and next reading.
+    """Time fit, error budget and next reading.
 
     Returns
     -------
     dict
-        ``fit_s``, ``miss_budget_s``, ``next_reading_s`` (medians, seconds), the fit's
+        ``fit_s``, ``error_budget_s``, ``next_reading_s`` (medians, seconds), the fit's
         ``evaluations`` (model evaluations, Jacobian columns counted), ``readings``,
         ``parameters``, ``repeats``, ``fit_target_s`` and ``fit_meets_target``.
     """
@@ -57,7 +57,7 @@ def run(repeats: int = 15) -> dict[str, Any]:
     fit_s, fit = _median_time(lambda: fit_board(board, readings), repeats)
     if not fit.success:
         raise RuntimeError(f"benchmark fit did not converge: {fit.message}")
-    budget_s, _ = _median_time(lambda: miss_budget(fit), repeats)
+    budget_s, _ = _median_time(lambda: error_budget(fit), repeats)
     next_s, _ = _median_time(lambda: suggest_next(fit), repeats)
     return {
         "board": BOARD.name,
@@ -66,7 +66,7 @@ def run(repeats: int = 15) -> dict[str, Any]:
         "evaluations": fit.evaluations,
         "repeats": repeats,
         "fit_s": round(fit_s, 5),
-        "miss_budget_s": round(budget_s, 5),
+        "error_budget_s": round(budget_s, 5),
         "next_reading_s": round(next_s, 5),
         "fit_target_s": FIT_TARGET_S,
         "fit_meets_target": fit_s < FIT_TARGET_S,

@@ -1,4 +1,4 @@
-"""The miss budget: q(fitted) − target split into design, parts, devices and bench.
+"""The error budget: q(fitted) − target split into design, parts, devices and bench.
 
 The shares are Shapley values (a standard result of cooperative game theory, from
 memory): with players N = {parts, devices, bench} and v(S) the spec quantity of the
@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 from fit_support import draw_truth, quantity_stderr, sample_board
 
-from reconcile.analysis import miss_budget as mb
+from reconcile.analysis import error_budget as mb
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
 from reconcile.inference.fitting import FitResult, fit_board
 from reconcile.inference.priors import ParameterSpace
@@ -64,7 +64,7 @@ def _nominal_internal(fit: FitResult) -> np.ndarray:
 @pytest.mark.parametrize("case", list(CASES))
 def test_design_plus_shares_equal_fitted_minus_target_shapley_efficiency(fits, case) -> None:
     fit = fits[case]
-    budget = mb.miss_budget(fit)
+    budget = mb.error_budget(fit)
     assert budget is not None and set(budget.quantities) == set(fit.board.spec.targets)
     circuit = compile_board(fit.board)
     nominal_sol = solve_batch(circuit, nominal_parameters(circuit))
@@ -85,7 +85,7 @@ def test_shares_equal_order_average_definition_of_shapley_value(fits, case) -> N
     """Independent computation: substitute the groups in each of the 3! orders, average
     the marginal contributions."""
     fit = fits[case]
-    budget = mb.miss_budget(fit)
+    budget = mb.error_budget(fit)
     space = ParameterSpace(compile_board(fit.board), fit.space.parameters)
     nominal = _nominal_internal(fit)
     groups = {g: _group_keys(fit, g) for g in mb.GROUPS}
@@ -115,7 +115,7 @@ def test_group_at_nominal_gets_zero_share_shapley_null_player(fits, null_group) 
     x = fit.x.copy()
     idx = _group_keys(fit, null_group)
     x[idx] = _nominal_internal(fit)[idx]
-    budget = mb.miss_budget(dataclasses.replace(fit, x=x))
+    budget = mb.error_budget(dataclasses.replace(fit, x=x))
     for b in budget.quantities.values():
         assert b.shares[null_group] == pytest.approx(0.0, abs=1e-12 * abs(b.nominal))
         assert b.design + sum(b.shares.values()) == pytest.approx(b.fitted - b.target, rel=1e-12)
@@ -128,7 +128,7 @@ def test_lone_active_group_takes_whole_difference_shapley_symmetry(fits) -> None
     x = _nominal_internal(fit)
     idx = _group_keys(fit, "devices")
     x[idx] = fit.x[idx]
-    budget = mb.miss_budget(dataclasses.replace(fit, x=x))
+    budget = mb.error_budget(dataclasses.replace(fit, x=x))
     for b in budget.quantities.values():
         assert b.shares["devices"] == pytest.approx(b.fitted - b.nominal, rel=1e-12)
         zero = pytest.approx(0.0, abs=1e-12 * abs(b.nominal))
@@ -137,9 +137,9 @@ def test_lone_active_group_takes_whole_difference_shapley_symmetry(fits) -> None
 
 def test_relabelling_groups_leaves_shares_unchanged_shapley_symmetry(fits, monkeypatch) -> None:
     fit = fits["line_receiver_cb"]
-    before = mb.miss_budget(fit)
+    before = mb.error_budget(fit)
     monkeypatch.setattr(mb, "GROUPS", ("bench", "parts", "devices"))
-    after = mb.miss_budget(fit)
+    after = mb.error_budget(fit)
     for name, b in before.quantities.items():
         for g in ("parts", "devices", "bench"):
             assert after.quantities[name].shares[g] == pytest.approx(
@@ -156,7 +156,7 @@ def test_single_wrong_resistor_puts_miss_in_parts(ref: str, factor: float) -> No
     truth = board.with_resistor_ohms(ref, board.resistors[ref].ohms * factor)
     readings = simulate_readings(truth, full_plan(board))
     fit = fit_board(board, readings)
-    b = mb.miss_budget(fit).quantities["gain"]
+    b = mb.error_budget(fit).quantities["gain"]
     moved = b.fitted - b.nominal
     assert abs(b.shares["parts"] / moved - 1.0) <= 0.05, b.shares
     assert abs(b.shares["devices"]) + abs(b.shares["bench"]) <= 0.05 * abs(moved), b.shares

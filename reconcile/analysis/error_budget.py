@@ -76,7 +76,7 @@ class QuantityBudget:
 
 
 @dataclass(frozen=True)
-class MissBudget:
+class ErrorBudget:
     quantities: dict[str, QuantityBudget]
 
     def to_dict(self) -> dict:
@@ -91,8 +91,8 @@ def _shapley_weights(n: int) -> dict[tuple[int, ...], float]:
     }
 
 
-def miss_budget(fit: FitResult, *, rng: np.random.Generator | None = None) -> MissBudget | None:
-    """The miss budget of a fit, or None when the board has no spec targets or no
+def error_budget(fit: FitResult, *, rng: np.random.Generator | None = None) -> ErrorBudget | None:
+    """The error budget of a fit, or None when the board has no spec targets or no
     [signal] set-up."""
     board = fit.board
     targets = {k: t for k, t in board.spec.targets.items()}
@@ -139,4 +139,4 @@ def miss_budget(fit: FitResult, *, rng: np.random.Generator | None = None) -> Mi
             shares={GROUPS[g]: float(shares[0, g]) for g in range(len(GROUPS))},
             share_stderr={GROUPS[g]: float(sd[g]) for g in range(len(GROUPS))},
         )
-    return MissBudget(out)
+    return ErrorBudget(out)
