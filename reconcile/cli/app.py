@@ -74,19 +74,44 @@ def solve(
         Optional[str],  # noqa: UP045 - typer needs Optional here
         typer.Option(help="Junction temperature, e.g. '45 C' (default: the board's)."),
     ] = None,
+    samples: Annotated[
+        int,
+        typer.Option(
+            "--samples",
+            help="Also build the board N times in simulation (parts and devices drawn from "
+            "their tolerances and ranges): yield, spread and what drives it (0: off).",
+        ),
+    ] = 0,
+    seed: Annotated[int, typer.Option("--seed", help="Seed of the --samples draws.")] = 0,
 ) -> None:
     """Solve the board as drawn: operating point, small signal and the spec check."""
     from reconcile.model.board_loader import load_board
     from reconcile.engine.solution import solve as solve_board
 
     b = load_board(board)
+    if samples != 0:  # 0, the default, is no Monte Carlo
+        from reconcile.analysis.monte_carlo import check_samples
+
+        check_samples(b, samples)
     sol = solve_board(b, temperature=_value_option(temperature, "temperature", "--temperature"))
+    design = None
+    if samples:
+        from reconcile.analysis.monte_carlo import design_samples
+        from reconcile.present.progress import chunk_progress
+
+        with chunk_progress("solving drawn boards", samples, enabled=not json) as on_progress:
+            design = design_samples(b, samples, seed=seed, on_progress=on_progress)
     if json:
-        emit_json(sol.to_dict())
+        out = sol.to_dict()
+        if design is not None:
+            out["samples"] = design.to_dict()
+        emit_json(out)
         return
-    from reconcile.present.render_solve import print_solution
+    from reconcile.present.render_solve import print_design_samples, print_solution
 
     print_solution(sol)
+    if design is not None:
+        print_design_samples(design)
 
 
 ReadingsArg = Annotated[

@@ -63,7 +63,8 @@ def saturation_current(
 
 
 def _exp_continued(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """exp(x) and its derivative, continued linearly above EXP_LIMIT."""
+    """exp(x) and its derivative, continued linearly above EXP_LIMIT (as inside
+    :func:`junction_point`, for callers that need the exponential alone)."""
     clipped = np.minimum(x, EXP_LIMIT)
     e = np.exp(clipped)
     over = x - clipped
@@ -105,8 +106,25 @@ def junction_currents(
     va : forward Early voltage in V (``inf`` for none).
     n_vt : emission coefficient times thermal voltage, V.
     """
-    ef, def_ = _exp_continued(vbe / n_vt)
-    er, der = _exp_continued(vbc / n_vt)
+    return JunctionState(*junction_point(vbe, vbc, is_t, beta, beta_r, va, n_vt))
+
+
+def junction_point(vbe, vbc, is_t, beta, beta_r, va, n_vt):
+    """The device equations themselves: (ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc).
+
+    The one copy of them in the project. Written so that it runs unchanged on numpy
+    arrays (:func:`junction_currents`) and, compiled by numba, on scalars (the optional
+    compiled kernel, :mod:`reconcile.engine.kernel`). The exponential is continued
+    linearly above :data:`EXP_LIMIT` (value and slope match at the joint).
+    """
+    x_f = vbe / n_vt
+    x_r = vbc / n_vt
+    c_f = np.minimum(x_f, EXP_LIMIT)
+    c_r = np.minimum(x_r, EXP_LIMIT)
+    def_ = np.exp(c_f)
+    der = np.exp(c_r)
+    ef = def_ * (1.0 + (x_f - c_f))
+    er = der * (1.0 + (x_r - c_r))
     i_f = is_t * (ef - 1.0)
     i_r = is_t * (er - 1.0)
     g_f = is_t * def_ / n_vt
@@ -120,7 +138,7 @@ def junction_currents(
     dic_dvbc = -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r
     dib_dvbe = g_f / beta
     dib_dvbc = g_r / beta_r
-    return JunctionState(ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc)
+    return ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc
 
 
 def critical_voltage(is_t: np.ndarray, n_vt: np.ndarray) -> np.ndarray:

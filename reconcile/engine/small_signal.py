@@ -29,6 +29,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from reconcile.engine.circuit import Circuit, Parameters
+from reconcile.engine.kernel import solve_small
+from reconcile.engine.sparse import factorisation_for
 
 
 @dataclass(frozen=True)
@@ -71,15 +73,7 @@ def analyse(circuit: Circuit, params: Parameters, jac_ff: np.ndarray) -> SmallSi
     rhs = np.zeros((n, m, 2), dtype=complex)
     rhs[:, i_in, 0] = 1.0
     rhs[:, i_out, 1] = 1.0
-    try:
-        z = np.linalg.solve(y, rhs)
-    except np.linalg.LinAlgError:
-        z = np.full_like(rhs, np.nan)
-        for k in range(n):
-            try:
-                z[k] = np.linalg.solve(y[k], rhs[k])
-            except np.linalg.LinAlgError:
-                pass
+    z = solve_small(y, rhs, factorisation_for(circuit, capacitors=True, n_samples=n))
     z_ii, z_oi = z[:, i_in, 0], z[:, i_out, 0]
     z_io, z_oo = z[:, i_in, 1], z[:, i_out, 1]
     rl = params.load_ohms

@@ -355,3 +355,14 @@ def _temperature_parameter(
         board.temperature,
         "K",
     )
+
+
+def prior_draws(space: ParameterSpace, n: int, rng: np.random.Generator) -> np.ndarray:
+    """(n, P) internal vectors drawn from the priors above, clipped to the hard bounds.
+
+    The priors are independent Gaussians in the internal coordinates, so a draw is
+    ``prior_mean + prior_sd * z``; the rows are drawn in order from ``rng``, so drawing
+    in chunks gives the same boards as one draw of all of them.
+    """
+    z = rng.standard_normal((int(n), space.size))
+    return np.clip(space.prior_mean + z * space.prior_sd, space.lower, space.upper)

@@ -118,3 +118,57 @@ def print_solution(sol: BoardSolution, console: Console | None = None) -> None:
     title = sol.board.title or (sol.board.source_path or "board")
     console.print(f"[bold]{title}[/]")
     console.print(solution_tables(sol))
+
+
+def _quantity_unit(name: str) -> str:
+    if name.startswith("nodes."):
+        return "V"
+    return "Ω" if name.endswith("resistance") else ""
+
+
+def design_samples_tables(design) -> Group:
+    """The ``--samples`` result: yield with its interval, spreads, and the drivers."""
+    from rich.markup import escape
+
+    parts = []
+    head = f"Built {design.n:,} times in simulation (seed {design.seed})"
+    if design.yield_fraction is not None:
+        lo, hi = design.yield_interval
+        head += (
+            f": {100 * design.yield_fraction:.2f}% meet the spec "
+            f"(95% interval {100 * lo:.2f}% … {100 * hi:.2f}%)"
+        )
+    else:
+        head += ": the board has no [spec], so no yield"
+    parts.append(f"[bold]{head}[/]")
+    if design.unsolved:
+        parts.append(
+            f"[{STYLE_WARN}]warning:[/] {design.unsolved:,} drawn boards have no DC "
+            "operating point (counted as failing)"
+        )
+    t = Table(title="Spread over the drawn boards", title_justify="left")
+    for col in ("quantity", "mean", "sd", "5%", "50%", "95%"):
+        t.add_column(col, justify="left" if col == "quantity" else "right")
+    for name, s in design.quantities.items():
+        unit = _quantity_unit(name)
+        t.add_row(
+            escape(name),
+            *(_si(s[k], unit) if s[k] == s[k] else "-" for k in ("mean", "sd", "p05", "p50", "p95")),
+        )
+    parts.append(t)
+    if design.drivers:
+        d = Table(
+            title=f"What drives the spread (rank correlation, first {design.driver_samples:,} boards)",
+            title_justify="left",
+        )
+        d.add_column("quantity")
+        d.add_column("parameters, strongest first")
+        for name, rows in design.drivers.items():
+            d.add_row(escape(name), ", ".join(f"{escape(ref)} {rho:+.2f}" for ref, rho in rows))
+        parts.append(d)
+    return Group(*parts)
+
+
+def print_design_samples(design, console: Console | None = None) -> None:
+    console = console or Console()
+    console.print(design_samples_tables(design))

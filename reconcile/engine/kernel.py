@@ -1,0 +1,129 @@
+"""The optional compiled kernel (numba, the ``[fast]`` extra) and when it is used.
+
+The numpy path is the engine; the compiled kernel is a faster way to run its warm-start
+Newton loop and its small dense solves for large batches. It uses the same stamps, the
+same junction limiting and convergence test, and the device equations compiled from
+their one copy (:func:`reconcile.engine.devices.junction_point`). Samples the warm start
+does not bring home go through the numpy path's cold start, gmin and source stepping
+as before.
+
+It is used when numba imports and a batch has at least :data:`COMPILED_FROM_BATCH`
+boards: below that, loading the compiled code (about 0.5 s from the cache, several
+seconds for the first compile on a machine) costs more than it saves. The environment
+variable ``RECONCILE_KERNEL`` set to ``numpy`` turns it off, ``numba`` forces it for
+every batch size (tests use both). Compiled code is cached in the user's cache folder
+(``platformdirs.user_cache_dir("reconcile")/numba``).
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+
+COMPILED_FROM_BATCH = 20_000
+"""Smallest batch that uses the compiled kernel when numba is installed."""
+ENV = "RECONCILE_KERNEL"
+
+_state: dict = {}
+
+
+def cache_dir() -> str:
+    """Where numba keeps the compiled kernel."""
+    from platformdirs import user_cache_dir
+
+    return os.path.join(user_cache_dir("reconcile"), "numba")
+
+
+def _load():
+    """The compiled module, or None when numba is not installed."""
+    if "module" not in _state:
+        try:
+            os.environ.setdefault("NUMBA_CACHE_DIR", cache_dir())
+            import numba
+
+            numba.config.CACHE_DIR = os.environ["NUMBA_CACHE_DIR"]
+            from reconcile.engine import _numba_kernels
+        except ImportError:
+            _numba_kernels = None
+        _state["module"] = _numba_kernels
+    return _state["module"]
+
+
+def available() -> bool:
+    """Whether numba is installed (the compiled kernel can run)."""
+    return _load() is not None
+
+
+def use_compiled(n_boards: int) -> bool:
+    """Whether a batch of ``n_boards`` runs on the compiled kernel."""
+    choice = os.environ.get(ENV, "").strip().lower()
+    if choice == "numpy":
+        return False
+    if choice == "numba":
+        if not available():
+            from reconcile.errors import ReconcileError
+
+            raise ReconcileError(f"{ENV}=numba but numba is not installed (pip install '.[fast]')")
+        return True
+    return n_boards >= COMPILED_FROM_BATCH and available()
+
+
+def newton_dc(batch, v0_free, vj0, max_iter: int, abs_tol: float, rel_tol: float):
+    """Warm-started Newton over every sample of ``batch`` (a ``dc._Batch``) from free
+    voltages ``v0_free`` (N, nF) and junction voltages ``vj0`` (N, nT, 2).
+
+    Returns free voltages, junction voltages, converged mask, iteration counts, and the
+    Jacobian (N, nF, nF) and right-hand side (N, nF) linearised at the final voltages.
+    """
+    k = _load()
+    n, n_f = batch.n, batch.n_free
+    n_t = batch.q_free.shape[0]
+    v = np.empty((n, n_f))
+    vj = np.empty((n, n_t, 2))
+    conv = np.zeros(n, dtype=np.bool_)
+    iters = np.zeros(n, dtype=np.int64)
+    jac = np.empty((n, n_f, n_f))
+    rhs = np.empty((n, n_f))
+    k.newton_dc(
+        batch.g_ff, batch.store_of.astype(np.int64), batch.rhs_fixed, batch.vq_fixed, batch.q_free.astype(np.int64),
+        np.ascontiguousarray(batch.circuit.polarity, dtype=float),
+        batch.is_t, batch.n_vt, _f(batch.beta), _f(batch.beta_r), _f(batch.va), batch.v_crit,
+        np.ascontiguousarray(v0_free), np.ascontiguousarray(vj0), int(max_iter),
+        float(abs_tol), float(rel_tol), v, vj, conv, iters, jac, rhs,
+    )
+    return v, vj, conv, iters, jac, rhs
+
+
+def _f(x: np.ndarray) -> np.ndarray:
+    return np.ascontiguousarray(x, dtype=float)
+
+
+def solve_small(a: np.ndarray, b: np.ndarray, sparse=None) -> np.ndarray:
+    """Solve a stack of systems a (M, n, n) x = b (M, n, k); NaN where singular.
+
+    With ``sparse`` (a :class:`reconcile.engine.sparse.SparseLU` of the matrices'
+    pattern, given for large boards) the fixed-pattern factorisation; else the compiled
+    LU for large stacks when the kernel is in use, else :func:`numpy.linalg.solve` (one
+    matrix at a time only if the stack has a singular one).
+    """
+    if sparse is not None:
+        x = sparse.solve(a, b)
+        bad = np.flatnonzero(~np.isfinite(x).reshape(x.shape[0], -1).all(axis=1))
+        if len(bad):  # a failed static pivot: dense LAPACK with row exchanges
+            x[bad] = solve_small(a[bad], b[bad])
+        return x
+    if use_compiled(a.shape[0]):
+        out = np.empty(b.shape, dtype=np.result_type(a, b))
+        _load().solve_stack(np.ascontiguousarray(a), np.ascontiguousarray(b), out)
+        return out
+    try:
+        return np.linalg.solve(a, b)
+    except np.linalg.LinAlgError:
+        out = np.full(b.shape, np.nan, dtype=np.result_type(a, b))
+        for i in range(a.shape[0]):
+            try:
+                out[i] = np.linalg.solve(a[i], b[i])
+            except np.linalg.LinAlgError:
+                pass
+        return out

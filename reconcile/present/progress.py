@@ -1,0 +1,38 @@
+"""A progress bar for long batched work, on stderr (never with ``--json``)."""
+
+from __future__ import annotations
+
+import contextlib
+from collections.abc import Callable, Iterator
+
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+SHOW_FROM_ROWS = 50_000
+"""Work of fewer rows finishes in about a second or two: no bar for it."""
+
+
+@contextlib.contextmanager
+def chunk_progress(
+    description: str, total: int, *, enabled: bool = True
+) -> Iterator[Callable[[int, int], None] | None]:
+    """Yield an ``on_progress(done, total)`` callback that drives a transient bar on
+    stderr, or None when disabled or when ``total`` is small."""
+    if not enabled or total < SHOW_FROM_ROWS:
+        yield None
+        return
+    progress = Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TimeRemainingColumn(),
+        console=Console(stderr=True),
+        transient=True,
+    )
+    with progress:
+        task = progress.add_task(description, total=total)
+
+        def update(done: int, _total: int) -> None:
+            progress.update(task, completed=done)
+
+        yield update
