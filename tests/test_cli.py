@@ -174,7 +174,7 @@ def test_derive_gain_matches_first_order_gum():
 
 
 def test_derive_row_reads_back_as_a_reading(tmp_path):
-    out = run("derive", "input-resistance", "--v1", "20m", "--v2", "10m", "--r-series", "100R")
+    out = run("derive", "input-resistance", "--v1", "20m", "--v2", "10m", "--series-resistor", "100R")
     assert out.returncode == 0, out.stderr
     from reconcile.data.readings import readings_from_text
 
@@ -183,5 +183,5 @@ def test_derive_row_reads_back_as_a_reading(tmp_path):
 
 
 def test_derive_swapped_leads_is_exit_2():
-    out = run("derive", "input-resistance", "--v1", "10m", "--v2", "20m", "--r-series", "100R")
+    out = run("derive", "input-resistance", "--v1", "10m", "--v2", "20m", "--series-resistor", "100R")
     assert out.returncode == 2 and "swapped" in out.stderr

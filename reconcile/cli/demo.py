@@ -38,8 +38,11 @@ CAUTIONS = (
     "Bench safety: the sample data is invented. On a real bench follow your local lab "
     "rules and qualified practice: power off and let supplies and capacitors discharge "
     "before any rework, keep mains-powered instruments properly earthed, use ESD "
-    "protection for transistors, set the supply's current limit, and check the ratings "
-    "of every part you add."
+    "protection for transistors (a wrist strap keeps its series resistor), set the "
+    "supply's current limit, and check the ratings of every part you add. Never put a "
+    "DMM in current mode across a node; clip the scope's ground (protective earth) to "
+    "board gnd only; no signal into an unpowered board; discharge capacitors through a "
+    "resistor and check them with a meter."
 )
 
 

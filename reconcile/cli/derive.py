@@ -102,8 +102,11 @@ def derive_input_resistance(
         str, typer.Option(help="AC voltage at the generator side of the series resistor.")
     ],
     v2: Annotated[str, typer.Option(help="AC voltage at the board input.")],
-    r_series: Annotated[str, typer.Option(help="The series resistor, e.g. 75R or 1k.")],
-    r_tolerance: Annotated[str, typer.Option(help="Its tolerance (read as rectangular).")] = "1%",
+    series_resistor: Annotated[str, typer.Option(
+        "--series-resistor", help="The series resistor, e.g. 75R or 1k.")],
+    series_tolerance: Annotated[str, typer.Option(
+        "--series-tolerance",
+        help="Its tolerance, e.g. 1% or F (read as rectangular).")] = "1%",
     u_v1: Annotated[
         str, typer.Option(help="Standard uncertainty of V1 (value or %).")
     ] = AC_DEFAULT,
@@ -120,10 +123,10 @@ def derive_input_resistance(
 
     a, b = _volts(v1, "--v1"), _volts(v2, "--v2")
     try:
-        rs = parse_value(r_series, "ohms")
-        u_rs = rs * parse_tolerance(r_tolerance) / math.sqrt(3.0)  # GUM 4.3.7
+        rs = parse_value(series_resistor, "ohms")
+        u_rs = rs * parse_tolerance(series_tolerance) / math.sqrt(3.0)  # GUM 4.3.7
     except InputError as err:
-        raise err.located(key="--r-series/--r-tolerance") from None
+        raise err.located(key="--series-resistor/--series-tolerance") from None
     r = input_resistance_series_method(
         a, _u(u_v1, a, "volts", "--u-v1"), b, _u(u_v2, b, "volts", "--u-v2"), rs, u_rs, correlation
     )
