@@ -98,3 +98,28 @@ def test_postgres_url_without_psycopg_is_one_clear_line(tmp_path):
     assert len(lines) == 1 and "Traceback" not in out.stderr
     assert "pip install 'bench-reconcile[postgres]'" in lines[0]
     assert "s3cret" not in out.stderr
+
+
+def test_session_show_json_is_si_with_si_units_and_keeps_what_was_typed(tmp_path):
+    # contract: JSON numbers are SI base units (docs/formats.md, top); 0.3139 mA typed
+    # as "0.3139m" with unit "A" and 1.9952 typed with unit "mV" are stored in A and V
+    store = tmp_path / "s.sqlite"
+    sid = json.loads(run("session", "new", str(SAMPLES / "line_receiver_cb.toml"), "--json",
+                         store=store).stdout)["session"]
+    csv = tmp_path / "r.csv"
+    csv.write_text("quantity,at,value,unit,uncertainty\nvoltage,e,639.4,mV,0.3\n"
+                   "temperature,,26,C,\n", encoding="utf-8")
+    assert run("session", "add", sid, str(csv), "--json", store=store).returncode == 0
+    shown = json.loads(run("session", "show", sid, "--json", store=store).stdout)
+    v, t = shown["readings"]
+    assert v["value"] == 0.6394 and v["unit"] == "V" and v["uncertainty"] == 0.0003
+    assert v["typed"] == {"value": "639.4", "unit": "mV", "uncertainty": "0.3"}
+    assert t["unit"] == "K" and t["value"] == 299.15 and t["typed"]["unit"] == "C"
+    human = subprocess.run(
+        [sys.executable, "-m", "reconcile", "session", "show", sid, "--store", str(store)],
+        capture_output=True, text=True, cwd=ROOT, timeout=120,
+        env={**__import__("os").environ, "COLUMNS": "200"},
+    )
+    assert human.returncode == 0, human.stderr
+    assert "639.40 ± 0.30 mV" in human.stdout and "26.0 °C" in human.stdout
+    assert "None" not in human.stdout

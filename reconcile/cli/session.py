@@ -82,7 +82,9 @@ def session_correct(
     if json:
         _emit(out)
     else:
-        typer.echo(f"reading {reading_id} superseded: {out}")
+        typer.echo(
+            f"reading {reading_id} superseded by reading {out['id']} in session {out['session']}"
+        )
 
 
 @session_app.command("retract")
@@ -100,7 +102,9 @@ def session_retract(
     if json:
         _emit(out)
     else:
-        typer.echo(f"reading {reading_id} retracted: {out}")
+        typer.echo(
+            f"reading {reading_id} retracted in session {out['session']} (record {out['id']})"
+        )
 
 
 @session_app.command("end")

@@ -44,6 +44,7 @@ __all__ = [
     "parse_tolerance",
     "parse_value",
     "TOLERANCE_LETTERS",
+    "si_unit",
 ]
 
 #: 0 °C in kelvin; exact by the definition of the Celsius scale (same value as
@@ -129,6 +130,19 @@ _SYMBOL = {
     "seconds": "s",
     "plain": "",
 }
+
+
+
+def si_unit(kind: str) -> str:
+    """The SI unit a value of ``kind`` is held in, as the JSON writes it: ``"V"``,
+    ``"A"``, ``"ohm"``, ``"F"``, ``"K"`` for temperatures, ``""`` for plain numbers and
+    tolerances (fractions)."""
+    if kind == "temperature":
+        return "K"
+    if kind == "ohms":
+        return "ohm"
+    return _SYMBOL.get(kind, "")
+
 
 _NUMBER = r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
 _NUMBER_RE = re.compile(rf"\s*({_NUMBER}|[+-]?inf(?:inity)?)\s*(.*?)\s*$", re.IGNORECASE)

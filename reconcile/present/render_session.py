@@ -3,7 +3,21 @@
 from __future__ import annotations
 
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
+
+from reconcile.present import numbers
+
+
+def _reading_cell(r: dict, column: str) -> str:
+    if column == "value":
+        typed = (r.get("typed") or {}).get("unit") or ""
+        if r.get("quantity") == "temperature":
+            return numbers.temperature(r["value"], r.get("uncertainty"),
+                                       typed="K" if typed.strip() == "K" else "C")
+        return numbers.with_u(r["value"], r.get("uncertainty"), r.get("unit", ""))
+    value = r.get(column)
+    return "" if value is None else escape(str(value))
 
 
 def print_session_list(data: dict, console: Console | None = None) -> None:
@@ -27,7 +41,7 @@ def print_session_list(data: dict, console: Console | None = None) -> None:
             str(s.get("serial", "")),
             str(s.get("operator", "")),
             str(s.get("started", "")),
-            str(s.get("ended") or "-"),
+            str(s.get("ended") or "open"),
             str(s.get("readings", "")),
             str(s.get("analyses", "")),
         )
@@ -41,7 +55,7 @@ def print_session(data: dict, console: Console | None = None) -> None:
     head.add_column("key")
     head.add_column("value")
     for k, v in meta.items():
-        head.add_row(str(k), str(v))
+        head.add_row(str(k), "-" if v is None else str(v))
     console.print(head)
     readings = data.get("readings") or []
     if readings:
@@ -60,10 +74,12 @@ def print_session(data: dict, console: Console | None = None) -> None:
             )
             if c in readings[0]
         ]
+        cols = [c for c in cols if c != "uncertainty"]
         for c in cols:
-            t.add_column(c + (" (SI)" if c in ("value", "uncertainty") else ""))
+            t.add_column("value ± u" if c == "value" else c,
+                         justify="right" if c == "value" else "left")
         for r in readings:
-            t.add_row(*(str(r.get(c, "") if r.get(c) is not None else "") for c in cols))
+            t.add_row(*(_reading_cell(r, c) for c in cols))
         console.print(t)
     analyses = data.get("analyses") or []
     if analyses:
@@ -72,5 +88,5 @@ def print_session(data: dict, console: Console | None = None) -> None:
         for c in cols:
             t.add_column(c)
         for a in analyses:
-            t.add_row(*(str(a.get(c, "")) for c in cols))
+            t.add_row(*("-" if a.get(c) is None else escape(str(a.get(c))) for c in cols))
         console.print(t)

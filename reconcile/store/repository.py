@@ -94,10 +94,21 @@ class StoredReading:
     supersedes: int | None = None
 
     def to_dict(self) -> dict[str, Any]:
+        """The reading in SI with its SI unit; what the user typed in ``typed``."""
+        from reconcile.data.readings import QUANTITIES
+        from reconcile.model.values import si_unit
+
         r = self.reading
+        raw = list(r.raw) + [""] * (5 - len(r.raw))
+        typed = {
+            "value": raw[2].strip() or None,
+            "unit": r.unit,
+            "uncertainty": raw[4].strip() or None,
+        }
         return {
             "id": self.id, "quantity": r.quantity, "at": r.at, "value": r.value,
-            "unit": r.unit, "uncertainty": r.uncertainty, "instrument": r.instrument,
+            "unit": si_unit(QUANTITIES[r.quantity][0]) if r.quantity in QUANTITIES else "",
+            "uncertainty": r.uncertainty, "typed": typed, "instrument": r.instrument,
             "note": r.note, "device": r.device, "taken_at": self.taken_at,
             "source": self.source, "supersedes": self.supersedes,
         }
