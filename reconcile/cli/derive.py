@@ -135,6 +135,6 @@ def derive_input_resistance(
         r.value,
         r.uncertainty,
         "ohm",
-        f"series-resistor method, Rs {r_series}",
+        f"series-resistor method, Rs {series_resistor}",
         json,
     )

@@ -9,7 +9,9 @@ banded, and the work per board grows about linearly with the board instead of wi
 cube of its node count, as dense LU does.
 
 The ordering is reverse Cuthill–McKee (:func:`scipy.sparse.csgraph.reverse_cuthill_mckee`)
-of the symmetrised pattern, which keeps the fill inside a narrow band. Pivots are taken
+of the symmetrised pattern, which keeps the fill inside a narrow band; boards under
+:data:`SPARSE_FROM_NODES` free nodes keep their natural order (their fill is a few
+entries, and scipy.sparse's import would cost more than the solve). Pivots are taken
 on the diagonal in that order, without row exchanges (the usual choice for nodal
 matrices, whose diagonal holds every conductance at the node); a pivot that is zero or
 not finite makes that sample's answer NaN here (the callers then fall back to dense
@@ -63,13 +65,18 @@ class SparseLU:
     """The symbolic factorisation of one pattern, and the numeric solve over a batch."""
 
     def __init__(self, pattern: np.ndarray) -> None:
-        from scipy.sparse import csr_matrix
-        from scipy.sparse.csgraph import reverse_cuthill_mckee
-
         n = pattern.shape[0]
         self.n = n
-        sym = csr_matrix(pattern | pattern.T)
-        perm = np.asarray(reverse_cuthill_mckee(sym, symmetric_mode=True), dtype=np.intp)
+        if n < SPARSE_FROM_NODES:
+            # a small board: the fill of any order is a few entries, and importing
+            # scipy.sparse (about 0.2 s) would cost more than the whole solve
+            perm = np.arange(n, dtype=np.intp)
+        else:
+            from scipy.sparse import csr_matrix
+            from scipy.sparse.csgraph import reverse_cuthill_mckee
+
+            sym = csr_matrix(pattern | pattern.T)
+            perm = np.asarray(reverse_cuthill_mckee(sym, symmetric_mode=True), dtype=np.intp)
         self.perm = perm
         filled = (pattern | pattern.T)[np.ix_(perm, perm)].copy()
         steps = []
