@@ -37,7 +37,7 @@ def test_compiled_path_matches_mpmath_bias(name: str, monkeypatch) -> None:
     # Reference: mpmath.findroot at 40 digits on the Thevenin form (_mp_bias), for a
     # batch of variants of each case solved by the compiled kernel from a warm start.
     # Agreement to 1e-9 relative, as the numpy path's own reference test.
-    monkeypatch.setenv(kernel.ENV, "numba")
+    monkeypatch.setenv(kernel.ENV, "numba-all")
     p0 = {**_BASE, **BIAS_CASES[name]}
     circuit = compile_board(board_from_text(_stage_toml(p0)))
     seed = solve_batch(circuit, nominal_parameters(circuit, 1)).state
@@ -71,9 +71,9 @@ def test_compiled_and_numpy_paths_agree(board: str, monkeypatch) -> None:
     params = space.to_parameters(prior_draws(space, 3000, np.random.default_rng(4)))
     seed = solve_batch(circuit, nominal_parameters(circuit, 1)).state
     out = {}
-    for mode in ("numba", "numpy"):
+    for mode in ("numba-all", "numpy"):
         monkeypatch.setenv(kernel.ENV, mode)
-        out[mode] = solve_batch(circuit, params, seed)
+        out[mode.split("-")[0]] = solve_batch(circuit, params, seed)
     a, b = out["numba"], out["numpy"]
     assert np.array_equal(a.converged, b.converged)
     np.testing.assert_allclose(a.node_v, b.node_v, rtol=0, atol=1e-12)
@@ -87,7 +87,7 @@ def test_compiled_and_numpy_paths_agree(board: str, monkeypatch) -> None:
 def test_dense_solver_matches_lapack(dtype, monkeypatch) -> None:
     # Reference: numpy.linalg.solve (LAPACK gesv) on random well-conditioned systems,
     # real and complex, two right-hand sides; a singular system gives NaN.
-    monkeypatch.setenv(kernel.ENV, "numba")
+    monkeypatch.setenv(kernel.ENV, "numba-all")
     rng = np.random.default_rng(9)
     a = rng.standard_normal((400, 7, 7)) + 7.0 * np.eye(7)
     b = rng.standard_normal((400, 7, 2))
@@ -115,9 +115,14 @@ def test_cache_lives_in_the_user_cache_folder() -> None:
 
 def test_batch_size_rule(monkeypatch) -> None:
     monkeypatch.delenv(kernel.ENV, raising=False)
+    assert not kernel.use_compiled(10**7)  # the numpy path is the default
+    monkeypatch.setenv(kernel.ENV, "numba")
     assert kernel.use_compiled(kernel.COMPILED_FROM_BATCH)
     assert not kernel.use_compiled(kernel.COMPILED_FROM_BATCH - 1)
-    monkeypatch.setenv(kernel.ENV, "numpy")
-    assert not kernel.use_compiled(10**7)
-    monkeypatch.setenv(kernel.ENV, "numba")
+    monkeypatch.setenv(kernel.ENV, "numba-all")
     assert kernel.use_compiled(1)
+    monkeypatch.setenv(kernel.ENV, "fortran")
+    from reconcile.errors import InputError
+
+    with pytest.raises(InputError, match="RECONCILE_KERNEL"):
+        kernel.use_compiled(1)

@@ -41,7 +41,7 @@ from reconcile.inference.priors import build_space, prior_draws
 from reconcile.model.board import Board
 
 MAX_SAMPLES = 10_000_000
-"""Most draws one run accepts (about 25 s of engine time on one core)."""
+"""Most draws one run accepts (about 35 s on one core of this machine kind)."""
 DRIVER_SAMPLES = 20_000
 """Rank correlations use at most this many draws (the first ones; the sampling error of
 a rank correlation is then about 1/√n = 0.007)."""

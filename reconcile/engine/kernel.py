@@ -7,12 +7,16 @@ their one copy (:func:`reconcile.engine.devices.junction_point`). Samples the wa
 does not bring home go through the numpy path's cold start, gmin and source stepping
 as before.
 
-It is used when numba imports and a batch has at least :data:`COMPILED_FROM_BATCH`
-boards: below that, loading the compiled code (about 0.5 s from the cache, several
-seconds for the first compile on a machine) costs more than it saves. The environment
-variable ``RECONCILE_KERNEL`` set to ``numpy`` turns it off, ``numba`` forces it for
-every batch size (tests use both). Compiled code is cached in the user's cache folder
-(``platformdirs.user_cache_dir("reconcile")/numba``).
+Whether it is used is the user's choice, through the environment variable
+``RECONCILE_KERNEL``: ``numpy`` (the default) never, ``numba`` for batches of at least
+:data:`COMPILED_FROM_BATCH` boards on boards under
+:data:`reconcile.engine.sparse.SPARSE_FROM_NODES` free nodes, ``numba-all`` for every
+batch (the tests). It is not the default because it does not pay, measured side by side
+(``tests/benchmarks/bench_engine.py``): since the numpy path runs the fixed-pattern
+factorisation over the batch, its Newton loop is as fast as the compiled one
+(``solve --samples 400000`` on the sample preamp: 1.25 s either way in one process), and
+loading the compiled code costs about 0.5 s more per process. Compiled code is cached in
+the user's cache folder (``platformdirs.user_cache_dir("reconcile")/numba``).
 """
 
 from __future__ import annotations
@@ -22,7 +26,7 @@ import os
 import numpy as np
 
 COMPILED_FROM_BATCH = 20_000
-"""Smallest batch that uses the compiled kernel when numba is installed."""
+"""With ``RECONCILE_KERNEL=numba``, the smallest batch that uses the compiled kernel."""
 ENV = "RECONCILE_KERNEL"
 
 _state: dict = {}
@@ -57,16 +61,18 @@ def available() -> bool:
 
 def use_compiled(n_boards: int) -> bool:
     """Whether a batch of ``n_boards`` runs on the compiled kernel."""
-    choice = os.environ.get(ENV, "").strip().lower()
+    choice = os.environ.get(ENV, "").strip().lower() or "numpy"
     if choice == "numpy":
         return False
-    if choice == "numba":
-        if not available():
-            from reconcile.errors import ReconcileError
+    if choice not in ("numba", "numba-all"):
+        from reconcile.errors import InputError
 
-            raise ReconcileError(f"{ENV}=numba but numba is not installed (pip install '.[fast]')")
-        return True
-    return n_boards >= COMPILED_FROM_BATCH and available()
+        raise InputError(f"{ENV}={choice!r}: give numpy, numba or numba-all", key=ENV)
+    if not available():
+        from reconcile.errors import ReconcileError
+
+        raise ReconcileError(f"{ENV}={choice} but numba is not installed (pip install '.[fast]')")
+    return choice == "numba-all" or n_boards >= COMPILED_FROM_BATCH
 
 
 def newton_dc(batch, v0_free, vj0, max_iter: int, abs_tol: float, rel_tol: float):

@@ -12,7 +12,8 @@ Figures:
 - ``samples_numpy`` / ``samples_fast``: what ``reconcile solve sample_data/preamp_ce.toml
   --samples N`` does after loading (draws from the priors, DC and small signal of every
   board in chunks, yield, spreads, rank correlations), with the numpy path and with the
-  compiled ``[fast]`` kernel (null without numba); best of 2 after a warm-up;
+  compiled ``[fast]`` kernel (``RECONCILE_KERNEL=numba``; null without numba); best of 2
+  after a warm-up (which also loads the compiled code, so its load time is not counted);
 - ``floor_lapack``: ``numpy.linalg.solve`` on four 6×6 real systems per board (the
   preamp's free-node system size), N boards, the same stack shape the numpy path uses:
   the cost of the linear algebra alone, before any device equation;
@@ -365,7 +366,9 @@ def run(n_samples: int = 400_000, n_loop: int = 300, n_growth: int = 10_000) -> 
             "fast_met": None if fast_path is None
             else fast_path["boards_per_s"] >= TARGET_FAST_PER_S,
             "over_loop": TARGET_RATIO,
-            "over_loop_met": ratios(fast_path or numpy_path)["over_loop"] >= TARGET_RATIO,
+            "over_loop_met": max(
+                r["over_loop"] for r in (ratios(numpy_path), ratios(fast_path)) if r
+            ) >= TARGET_RATIO,
             "growth_exponent": TARGET_EXPONENT,
             "growth_met": growth["exponent_all"] <= TARGET_EXPONENT,
             "cli_help_s": TARGET_HELP_S,
