@@ -152,9 +152,13 @@ def test_demo_tells_the_whole_story_inside_its_folder(tmp_path):
     out = run("demo", "--json", "--out", str(out_dir))
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
-    # The hidden board had R2 = 56.2k loaded for 62k: the diagnosis must find it.
+    # The hidden board (sample_data/sensor_preamp_sp7_0113_truth.toml) had RE1 = 270.8 Ω
+    # fitted where 220 Ω was drawn: the diagnosis must find it, the value near the truth.
     top = data["diagnosis"]["hypotheses"][0]
-    assert (top["ref"], top["fault"]) == ("R2", "wrong-value")
+    assert (top["ref"], top["fault"]) == ("RE1", "wrong-value")
+    assert top["probability"] > 0.9
+    assert top["value"] == pytest.approx(270.8, rel=0.03)
+    assert data["design"]["meets_spec"] is True
     assert data["hidden_board_after_rework"]["meets_spec"] is True
     assert data["trim"]["options"][0]["meets_spec"] is True
     for key in ("report", "fit_plot", "trim_plot", "lot_plot"):

@@ -1,13 +1,15 @@
 """``reconcile demo``: the whole bench story on the bundled, invented sample data.
 
-The scenario (invented): a 75-ohm line receiver, a common-base stage, was designed for a
-gain of 10 and an input resistance of 75 ohm. Unit LR-0042 came off the line at a gain
-of about 9.2 and 85 ohm. The demo
+The scenario (our own invention): SP-7, the front end of a vibration-sensor channel, is
+an npn common-emitter stage with a partly bypassed emitter resistor, direct-coupled to
+a pnp follower that drives the 2.2 kΩ cable to the converter. It was designed for a gain
+of 30.4 (±6 %) and an input resistance of 12.8 kΩ (±10 %) from a 1 kΩ sensor. Unit
+SP-7-0113 came off the line with too little gain. The demo
 
 1. solves the design under the exact model (it meets its spec);
-2. opens a session for LR-0042 and captures its readings from a simulated bench (a
+2. opens a session for SP-7-0113 and captures its readings from a simulated bench (a
    scanner routes the meter; the bench answers for a hidden board,
-   ``sample_data/line_receiver_lr0042_truth.toml``, plus noise);
+   ``sample_data/sensor_preamp_sp7_0113_truth.toml``, plus noise);
 3. fits the built board to the readings (what was built, error budget, next readings);
 4. asks which single fault explains them, takes the reading the diagnosis suggests
    (on the simulated bench) and asks again;
@@ -25,11 +27,11 @@ import os
 import shutil
 from pathlib import Path
 
-DESIGN_BOARD = "line_receiver_cb.toml"
-HIDDEN_TRUTH = "line_receiver_lr0042_truth.toml"
+DESIGN_BOARD = "sensor_preamp.toml"
+HIDDEN_TRUTH = "sensor_preamp_sp7_0113_truth.toml"
 LOT_JIG = "lot_jig.toml"
 LOT_READINGS = "lot_jig_readings.csv"
-SERIAL = "LR-0042"
+SERIAL = "SP-7-0113"
 SEED = 42
 MAX_EXTRA_READINGS = 3
 CONFIDENT = 0.8
