@@ -484,6 +484,9 @@ def main() -> None:
     typer handles usage errors itself (exit 2); everything the project raises on
     purpose is caught here.
     """
+    from reconcile.present.console import tolerate_narrow_encoding
+
+    tolerate_narrow_encoding()
     try:
         app()
     except ReconcileError as err:

@@ -54,9 +54,9 @@ class _Screen:
     """
 
     def __init__(self, *, json_output: bool) -> None:
-        from rich.console import Console
+        from reconcile.present.console import make_console
 
-        self.console = Console(stderr=json_output, highlight=False, soft_wrap=True)
+        self.console = make_console(stderr=json_output, highlight=False, soft_wrap=True)
         self.live: Any = None
 
     def _stop_live(self) -> None:

@@ -71,14 +71,14 @@ def sample_data_dir() -> Path:
 def run_demo(*, json_output: bool = False, out_dir: Path | None = None) -> dict:
     """Run the story; print it (or, with ``json_output``, one JSON object)."""
     import numpy as np
-    from rich.console import Console
+    from reconcile.present.console import make_console
 
     data = sample_data_dir()
     out = Path(out_dir) if out_dir is not None else Path.cwd() / "reconcile-demo-output"
     out.mkdir(parents=True, exist_ok=True)
     # matplotlib keeps a font cache; keep even that inside the demo's folder.
     os.environ.setdefault("MPLCONFIGDIR", str(out / ".matplotlib"))
-    console = Console(stderr=json_output, quiet=json_output)
+    console = make_console(stderr=json_output, quiet=json_output)
     rng = np.random.default_rng(SEED)
     story = _Story(data, out, console, rng)
     console.print(f"[bold]reconcile demo[/] — an invented bench story, data from {data}")

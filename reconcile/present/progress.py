@@ -5,7 +5,7 @@ from __future__ import annotations
 import contextlib
 from collections.abc import Callable, Iterator
 
-from rich.console import Console
+from reconcile.present.console import make_console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
 
 SHOW_FROM_ROWS = 50_000
@@ -26,7 +26,7 @@ def chunk_progress(
         BarColumn(),
         MofNCompleteColumn(),
         TimeRemainingColumn(),
-        console=Console(stderr=True),
+        console=make_console(stderr=True),
         transient=True,
     )
     with progress:

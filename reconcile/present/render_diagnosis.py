@@ -9,6 +9,7 @@ from rich.table import Table
 
 from reconcile.diagnosis.diagnose import Diagnosis, Hypothesis, NextReading
 from reconcile.inference.simulate import UNITS
+from reconcile.present.console import make_console
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -190,7 +191,7 @@ def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3) -> Gro
 
 def print_diagnosis(diag: Diagnosis, console: Console | None = None, *, rows: int = 10) -> None:
     """Print a diagnosis for a person (the CLI's ``diagnose`` without ``--json``)."""
-    console = console or Console()
+    console = console or make_console()
     title = diag.board.title or (diag.board.source_path or "board")
     console.print(f"[bold]{title}[/]: {diag.n_readings} readings")
     console.print(diagnosis_tables(diag, rows=rows))

@@ -8,6 +8,7 @@ from rich.table import Table
 from reconcile.inference.fitting import FitResult
 from reconcile.analysis.error_budget import GROUPS, ErrorBudget
 from reconcile.analysis.next_reading import Suggestion
+from reconcile.present.console import make_console
 from reconcile.present import numbers
 
 OK, BAD, WARN, DIM = "green", "bold red", "yellow", "dim"
@@ -153,7 +154,7 @@ def print_fit(
     suggestions: list[Suggestion],
     console: Console | None = None,
 ) -> None:
-    console = console or Console()
+    console = console or make_console()
     console.print(parameters_table(fit))
     console.print(readings_table(fit))
     console.print(verdict_line(fit))

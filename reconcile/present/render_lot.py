@@ -8,6 +8,7 @@ from rich.console import Console
 from rich.table import Table
 
 from reconcile.lot.characterise import LotResult
+from reconcile.present.console import make_console
 from reconcile.present import numbers
 
 OK, BAD, WARN, DIM = "green", "bold red", "yellow", "dim"
@@ -106,7 +107,7 @@ def cpk_line(result: LotResult) -> str | None:
 
 def print_lot(result: LotResult, console: Console | None = None) -> None:
     """Print the lot: devices, summary, outliers, bins, matched sets, Cpk, device table."""
-    console = console or Console()
+    console = console or make_console()
     console.print(devices_table(result))
     console.print(summary_table(result))
     if result.outliers:

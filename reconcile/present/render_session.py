@@ -3,10 +3,11 @@
 from __future__ import annotations
 
 from rich.console import Console
-from rich.markup import escape
 from rich.table import Table
 
+from reconcile.present.console import make_console
 from reconcile.present import numbers
+from reconcile.present.escape import markup
 
 
 def _reading_cell(r: dict, column: str) -> str:
@@ -17,12 +18,12 @@ def _reading_cell(r: dict, column: str) -> str:
                                        typed="K" if typed.strip() == "K" else "C")
         return numbers.with_u(r["value"], r.get("uncertainty"), r.get("unit", ""))
     value = r.get(column)
-    return "" if value is None else escape(str(value))
+    return markup(value)
 
 
 def print_session_list(data: dict, console: Console | None = None) -> None:
-    console = console or Console()
-    t = Table(title=f"Sessions in {data['store']}", title_justify="left")
+    console = console or make_console()
+    t = Table(title=f"Sessions in {markup(data['store'])}", title_justify="left")
     for col in (
         "session",
         "board",
@@ -36,26 +37,26 @@ def print_session_list(data: dict, console: Console | None = None) -> None:
         t.add_column(col, justify="right" if col in ("readings", "analyses") else "left")
     for s in data["sessions"]:
         t.add_row(
-            s.get("session", ""),
-            str(s.get("board_title", "")),
-            str(s.get("serial", "")),
-            str(s.get("operator", "")),
-            str(s.get("started", "")),
-            str(s.get("ended") or "open"),
-            str(s.get("readings", "")),
-            str(s.get("analyses", "")),
+            markup(s.get("session", "")),
+            markup(s.get("board_title", "")),
+            markup(s.get("serial", "")),
+            markup(s.get("operator", "")),
+            markup(s.get("started", "")),
+            markup(s.get("ended") or "open"),
+            markup(s.get("readings", "")),
+            markup(s.get("analyses", "")),
         )
     console.print(t)
 
 
 def print_session(data: dict, console: Console | None = None) -> None:
-    console = console or Console()
+    console = console or make_console()
     meta = {k: v for k, v in data.items() if not isinstance(v, list | dict)}
     head = Table(show_header=False, title="Session", title_justify="left")
     head.add_column("key")
     head.add_column("value")
     for k, v in meta.items():
-        head.add_row(str(k), "-" if v is None else str(v))
+        head.add_row(markup(k), "-" if v is None else markup(v))
     console.print(head)
     readings = data.get("readings") or []
     if readings:
@@ -86,7 +87,7 @@ def print_session(data: dict, console: Console | None = None) -> None:
         t = Table(title="Analyses recorded", title_justify="left")
         cols = list(analyses[0].keys())
         for c in cols:
-            t.add_column(c)
+            t.add_column(markup(c))
         for a in analyses:
-            t.add_row(*("-" if a.get(c) is None else escape(str(a.get(c))) for c in cols))
+            t.add_row(*("-" if a.get(c) is None else markup(a.get(c)) for c in cols))
         console.print(t)

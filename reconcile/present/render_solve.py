@@ -6,6 +6,7 @@ from rich.console import Console, Group
 from rich.table import Table
 
 from reconcile.engine.solution import BoardSolution
+from reconcile.present.console import make_console
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -114,7 +115,7 @@ def solution_tables(sol: BoardSolution) -> Group:
 
 
 def print_solution(sol: BoardSolution, console: Console | None = None) -> None:
-    console = console or Console()
+    console = console or make_console()
     title = sol.board.title or (sol.board.source_path or "board")
     console.print(f"[bold]{title}[/]")
     console.print(solution_tables(sol))
@@ -170,5 +171,5 @@ def design_samples_tables(design) -> Group:
 
 
 def print_design_samples(design, console: Console | None = None) -> None:
-    console = console or Console()
+    console = console or make_console()
     console.print(design_samples_tables(design))

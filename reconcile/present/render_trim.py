@@ -6,6 +6,7 @@ from rich.console import Console
 from rich.table import Table
 
 from reconcile.trim.rework import Change, TrimOption, TrimResult
+from reconcile.present.console import make_console
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -81,7 +82,7 @@ def trim_table(result: TrimResult) -> Table:
 
 def print_trim(result: TrimResult, console: Console | None = None) -> None:
     """Print the options table and a one-line verdict."""
-    console = console or Console()
+    console = console or make_console()
     console.print(trim_table(result))
     costs = ", ".join(f"{k} {v:g}" for k, v in sorted(result.costs.items()))
     console.print(
