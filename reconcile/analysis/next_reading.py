@@ -23,7 +23,6 @@ import numpy as np
 from reconcile.inference.fitting import FitResult
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
-from reconcile.inference.simulate import UNITS
 
 
 @dataclass(frozen=True)
@@ -95,7 +94,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
     hch = np.einsum("ij,jk,ik->i", h, c, h)
     out = []
     for k, (q, at) in enumerate(cands):
-        proto = Reading(q, at, float(pred[k]), UNITS[q], None)
+        proto = Reading.from_si(q, at, float(pred[k]))
         try:
             u = default_uncertainty(proto)
         except Exception:  # a zero reading with a purely relative default

@@ -483,7 +483,7 @@ class Capture:
                                meter.command("read_dc_volts"))
         u, basis = _uncertainty(meter, "dc_volts", "voltage", settled)
         note = _note(settled, "V", basis, route)
-        return Reading("voltage", planned.at, settled.value, "V", u,
+        return Reading.from_si("voltage", planned.at, settled.value, u,
                        instrument=self._identities["dc_voltmeter"], note=note), settled.samples
 
     def _route_dc(self, node: str) -> str:
@@ -499,7 +499,7 @@ class Capture:
                                supply.command("read_current"))
         u, basis = _uncertainty(supply, "dc_current", "current", settled)
         note = _note(settled, "A", basis, "supply read-back")
-        return Reading("current", planned.at, settled.value, "A", u,
+        return Reading.from_si("current", planned.at, settled.value, u,
                        instrument=self._identities[f"power_supply {planned.at}"],
                        note=note), settled.samples
 
@@ -551,7 +551,7 @@ class Capture:
         derived = gain_from_ac(v_in.value, u_in, v_out.value, u_out, correlation=0.0)
         note = (f"capture: V_in {format_si(v_in.value, 'V', 5)} rms, V_out "
                 f"{format_si(v_out.value, 'V', 5)} rms, {self._signal_text()}; uncorrelated")
-        return (Reading("gain", "", derived.value, "", derived.uncertainty,
+        return (Reading.from_si("gain", "", derived.value, derived.uncertainty,
                         instrument=self._instruments_text(), note=note),
                 v_in.samples + v_out.samples)
 
@@ -577,7 +577,7 @@ class Capture:
         note = (f"capture: series-resistor method, Rs {format_si(r_series, 'ohm', 5)}, V1 "
                 f"{format_si(v1.value, 'V', 5)} rms, V2 {format_si(v2.value, 'V', 5)} rms, "
                 f"{self._signal_text()}")
-        return (Reading("input_resistance", "", derived.value, "ohm", derived.uncertainty,
+        return (Reading.from_si("input_resistance", "", derived.value, derived.uncertainty,
                         instrument=self._instruments_text(), note=note),
                 v1.samples + v2.samples)
 

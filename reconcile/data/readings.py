@@ -39,6 +39,7 @@ from reconcile.data import csv_dialect
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.text_files import read_text
+from reconcile.model.quantities import COUNTS_FULL_SCALE, REGISTRY, UncertaintyRule
 from reconcile.model.values import KINDS, ZERO_CELSIUS_K, parse_value
 
 __all__ = [
@@ -61,21 +62,11 @@ _REQUIRED_COLUMNS = ("quantity", "value")
 #: columns that hold numbers (a decimal comma is read in a semicolon export)
 _NUMBER_COLUMNS = ("value", "uncertainty")
 
-#: quantity -> (value kind for :func:`reconcile.values.parse_value`, what ``at`` names)
+#: quantity -> (value kind for :func:`reconcile.values.parse_value`, what ``at`` names):
+#: the readable quantities of the registry (:mod:`reconcile.model.quantities`).
 QUANTITIES: dict[str, tuple[str, str]] = {
-    "voltage": ("volts", "a node or a/b"),
-    "current": ("amps", "a supply or resistor ref"),
-    "gain": ("plain", "nothing (leave at blank)"),
-    "input_resistance": ("ohms", "nothing (leave at blank)"),
-    "output_resistance": ("ohms", "nothing (leave at blank)"),
-    "resistance": ("ohms", "a resistor ref"),
-    "capacitance": ("farads", "a capacitor ref"),
-    "temperature": ("temperature", "nothing (leave at blank)"),
+    q.name: (q.value_kind, q.at) for q in REGISTRY.values() if q.readable
 }
-_SI_UNIT = {"volts": "V", "amps": "A", "plain": "", "ohms": "ohm", "farads": "F",
-            "temperature": "K"}
-_NO_AT = ("gain", "input_resistance", "output_resistance", "temperature")
-_NON_NEGATIVE = ("gain", "input_resistance", "output_resistance", "resistance", "capacitance")
 _BARE_NUMBER = re.compile(r"\s*[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?\s*$")
 
 
@@ -117,90 +108,36 @@ class Reading:
     line: int | None = field(default=None, compare=False)
     raw: tuple[str, ...] = field(default=(), compare=False)
 
+    @classmethod
+    def from_si(
+        cls,
+        quantity: str,
+        at: str,
+        value: float,
+        uncertainty: float | None = None,
+        **fields: str,
+    ) -> Reading:
+        """A reading made in code, in SI units: its unit is the registry's
+        (:mod:`reconcile.model.quantities`). ``fields``: instrument, note, device."""
+        return cls(quantity, at, float(value), REGISTRY[quantity].unit, uncertainty, **fields)
+
 
 # ------------------------------------------------------------------ uncertainty
-#: Display counts of the 4½-digit bench meter the defaults assume (±19 999).
-COUNTS_FULL_SCALE = 20000
-
-
-@dataclass(frozen=True)
-class UncertaintyRule:
-    """A default uncertainty: limits ±(relative·|reading| + counts·resolution + absolute).
-
-    ``resolution`` is the auto-selected range (the smallest of ``ranges`` above
-    |reading|, else the largest) divided by :data:`COUNTS_FULL_SCALE`. The limits are
-    divided by ``divisor`` to give one standard uncertainty: √3 for an instrument's
-    accuracy specification taken as a rectangular distribution (JCGM 100:2008, GUM
-    4.3.7), 1 where the figure already is a standard uncertainty.
-    """
-
-    relative: float
-    counts: float = 0.0
-    ranges: tuple[float, ...] = ()
-    absolute: float = 0.0
-    divisor: float = 1.0
-    basis: str = ""
-
-    def limits(self, value: float) -> float:
-        """Half-width of the limits of error, SI units."""
-        magnitude = abs(value)
-        resolution = 0.0
-        if self.ranges:
-            full_scale = next((r for r in self.ranges if magnitude < r), self.ranges[-1])
-            resolution = full_scale / COUNTS_FULL_SCALE
-        return self.relative * magnitude + self.counts * resolution + self.absolute
-
-    def standard(self, value: float) -> float:
-        """One standard uncertainty, SI units."""
-        return self.limits(value) / self.divisor
-
-
-_RECT = math.sqrt(3.0)
-
-#: Default uncertainties per quantity (common practice for a 4½-digit bench DMM and
-#: an oscilloscope; see the README table). Values in SI units.
+#: Default uncertainties per readable quantity, from the registry. Values in SI units.
 DEFAULT_UNCERTAINTY: dict[str, UncertaintyRule] = {
-    "voltage": UncertaintyRule(
-        0.0005, counts=2, ranges=(0.2, 2.0, 20.0, 200.0, 1000.0), divisor=_RECT,
-        basis="DMM DC volts ±(0.05 % of reading + 2 counts), rectangular",
-    ),
-    "current": UncertaintyRule(
-        0.002, counts=2, ranges=(200e-6, 2e-3, 20e-3, 200e-3, 2.0, 10.0), divisor=_RECT,
-        basis="DMM DC current ±(0.2 % of reading + 2 counts), rectangular",
-    ),
-    "resistance": UncertaintyRule(
-        0.001, counts=2, ranges=(200.0, 2e3, 20e3, 200e3, 2e6, 20e6), absolute=0.1,
-        divisor=_RECT,
-        basis="DMM 2-wire ohms ±(0.1 % of reading + 2 counts + 0.1 ohm leads), rectangular",
-    ),
-    "capacitance": UncertaintyRule(
-        0.02, divisor=_RECT, basis="DMM capacitance ±2 % of reading, rectangular"
-    ),
-    "gain": UncertaintyRule(0.01, basis="1 % of reading, standard uncertainty"),
-    "input_resistance": UncertaintyRule(0.02, basis="2 % of reading, standard uncertainty"),
-    "output_resistance": UncertaintyRule(0.02, basis="2 % of reading, standard uncertainty"),
-    "temperature": UncertaintyRule(0.0, absolute=1.0, basis="1 K, standard uncertainty"),
+    q.name: q.default_uncertainty
+    for q in REGISTRY.values()
+    if q.readable and q.default_uncertainty is not None
 }
 
 
 def default_uncertainty(reading: Reading) -> float:
     """The default standard uncertainty of a reading, SI units (K for temperature).
 
-    The defaults (:data:`DEFAULT_UNCERTAINTY`) assume a 4½-digit bench DMM
-    (20 000 counts, auto-ranging) and common practice for the derived quantities:
-
-    ===================  =====================================================  ========
-    quantity             limits of error                                         divisor
-    ===================  =====================================================  ========
-    voltage              ±(0.05 % of reading + 2 counts), ranges 200 mV–1000 V    √3
-    current              ±(0.2 % of reading + 2 counts), ranges 200 µA–10 A       √3
-    resistance           ±(0.1 % of reading + 2 counts + 0.1 Ω), 200 Ω–20 MΩ      √3
-    capacitance          ±2 % of reading                                          √3
-    gain                 1 % of reading (already a standard uncertainty)          1
-    input_resistance     2 % of reading                                           1
-    output_resistance    2 % of reading                                           1
-    temperature          1 K                                                      1
-    ===================  =====================================================  ========
+    The defaults are the registry's (:mod:`reconcile.model.quantities`, listed in the
+    README's readings table): a 4½-digit bench DMM (20 000 counts, auto-ranging) for
+    voltage, current, resistance and capacitance, common practice for the derived
+    quantities.
 
     A count is the range divided by 20 000 (e.g. 0.1 mV on the 2 V range); the range is
     the smallest that holds the reading. Dividing limits by √3 treats them as a
@@ -213,7 +150,13 @@ def default_uncertainty(reading: Reading) -> float:
         The default is zero (a reading of exactly 0 whose default is purely relative):
         the file must give an uncertainty for it.
     """
-    u = DEFAULT_UNCERTAINTY[reading.quantity].standard(reading.value)
+    rule = REGISTRY[reading.quantity].default_uncertainty
+    if rule is None:
+        raise InputError(
+            f"{reading.quantity} has no default uncertainty: give one in the uncertainty "
+            "column", line=reading.line,
+        )
+    u = rule.standard(reading.value)
     if u <= 0.0:
         raise InputError(
             f"{reading.quantity} reading of {reading.value:g} has no default uncertainty "
@@ -436,7 +379,7 @@ def _value(
     if not math.isfinite(value):
         problems.append(f"{quantity} value {text!r} must be finite")
         return None
-    if quantity in _NON_NEGATIVE and value < 0.0:
+    if REGISTRY[quantity].non_negative and value < 0.0:
         problems.append(f"{quantity} cannot be negative, found {text!r}")
         return None
     return value
@@ -472,11 +415,11 @@ def _uncertainty(
 
 
 def _at(quantity: str, text: str, board: Board | None, problems: list[str]) -> str | None:
-    if quantity in _NO_AT:
+    if not REGISTRY[quantity].takes_at:
         if text:
             problems.append(f"{quantity} takes no 'at' (found {text!r}): leave it blank")
             return None
-        if board is not None and quantity != "temperature" and board.signal.input is None:
+        if board is not None and REGISTRY[quantity].small_signal and board.signal.input is None:
             problems.append(
                 f"{quantity} is a small-signal reading but the board has no [signal] table"
             )
@@ -491,11 +434,7 @@ def _at(quantity: str, text: str, board: Board | None, problems: list[str]) -> s
         problems.append(f"{quantity} at {text!r}: a/b is for voltage only")
         return None
     if board is not None:
-        tables = {
-            "current": ("supplies", "resistors"),
-            "resistance": ("resistors",),
-            "capacitance": ("capacitors",),
-        }[quantity]
+        tables = REGISTRY[quantity].places
         known = [ref for t in tables for ref in getattr(board, t)]
         if text not in known:
             listing = "; ".join(f"{t}: {', '.join(getattr(board, t)) or 'none'}" for t in tables)
@@ -555,7 +494,7 @@ def _cells(reading: Reading) -> tuple[str, ...]:
         else:
             value_text = _number(value - ZERO_CELSIUS_K)
         unc_text = "" if u is None else repr(u)
-    elif unit in ("", _SI_UNIT[kind]):
+    elif unit in ("", REGISTRY[reading.quantity].unit):
         value_text, unc_text = repr(value), "" if u is None else repr(u)
     else:
         scale = _unit_scale(unit, kind)

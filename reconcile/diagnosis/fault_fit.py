@@ -45,7 +45,7 @@ from reconcile.model.board import Board
 from reconcile.engine import DCState, solve_batch
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
-from reconcile.inference.measure import MeasurementModel, Observation
+from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
 from reconcile.inference.priors import ParameterSpace
 
 __all__ = ["FaultFit", "fit_faults", "predict_faults"]
@@ -77,7 +77,8 @@ KEEP_STARTS = 2
 """After PRUNE_AFTER iterations only the KEEP_STARTS best starts of a hypothesis go on."""
 DERIVATIVE_STEP = 1e-6
 TEMPERATURE_STEP_K = 1e-4
-SMALL_SIGNAL_KEYS = ("gain", "source_gain", "input_resistance", "output_resistance")
+#: the small-signal quantities the measurement model predicts (from the registry)
+SMALL_SIGNAL_KEYS = SMALL_SIGNAL
 
 
 @dataclass(frozen=True)

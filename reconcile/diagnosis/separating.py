@@ -19,7 +19,6 @@ from reconcile.diagnosis.scoring import Hypothesis
 from reconcile.engine import compile_board
 from reconcile.errors import InputError
 from reconcile.inference.measure import Observation, probe_nodes
-from reconcile.inference.simulate import UNITS
 from reconcile.model.board import GND, Board
 
 TOP_FOR_NEXT = 6
@@ -96,7 +95,7 @@ def _reading_u(quantity: str, at: str, value: float) -> float | None:
     if not math.isfinite(value):
         return None
     try:
-        return default_uncertainty(Reading(quantity, at, float(value), UNITS[quantity], None))
+        return default_uncertainty(Reading.from_si(quantity, at, float(value)))
     except InputError:
         return None
 

@@ -148,7 +148,7 @@ def solve_batch(
     ss = analyse(circuit, params, jac_ff) if small_signal else None
     if ss is not None and not np.all(state.converged):
         bad = ~state.converged
-        for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
+        for name in SmallSignal.QUANTITIES:
             getattr(ss, name)[bad] = np.nan
     return BatchSolution(
         circuit=circuit,

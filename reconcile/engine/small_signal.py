@@ -25,10 +25,12 @@ The test set-up is then closed around that two-port exactly:
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
 
 from reconcile.engine.circuit import Circuit, Parameters
+from reconcile.model import quantities
 from reconcile.engine.kernel import solve_small
 from reconcile.engine.sparse import factorisation_for
 
@@ -44,7 +46,10 @@ class SmallSignal:
     input_resistance: np.ndarray
     output_resistance: np.ndarray
 
-    QUANTITIES = ("gain", "source_gain", "input_resistance", "output_resistance")
+    #: the small-signal quantities of the registry, each a field here
+    QUANTITIES: ClassVar[tuple[str, ...]] = quantities.names(
+        kind=quantities.QuantityKind.SMALL_SIGNAL
+    )
 
 
 def analyse(circuit: Circuit, params: Parameters, jac_ff: np.ndarray) -> SmallSignal | None:

@@ -14,15 +14,11 @@ import numpy as np
 from reconcile.engine import devices
 from reconcile.model.board import Board
 from reconcile.engine import BatchSolution, compile_board, nominal_parameters, solve_batch
+from reconcile.engine.small_signal import SmallSignal
 from reconcile.errors import SolveError
 
-SMALL_SIGNAL_KEYS = (
-    "gain",
-    "gain_phase_deg",
-    "source_gain",
-    "input_resistance",
-    "output_resistance",
-)
+#: the small-signal quantities a solution reports (the registry's, in its order)
+SMALL_SIGNAL_KEYS = SmallSignal.QUANTITIES
 
 
 @dataclass(frozen=True)

@@ -26,22 +26,16 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from reconcile.model import quantities
 from reconcile.model.board import GND, Board
 from reconcile.engine import BatchSolution, DCState, compile_board, nominal_parameters, solve_batch
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
-PREDICTED = (
-    "voltage",
-    "current",
-    "gain",
-    "input_resistance",
-    "output_resistance",
-    "source_gain",
-    "resistance",
-    "capacitance",
-)
-SMALL_SIGNAL = ("gain", "input_resistance", "output_resistance", "source_gain")
+#: quantities the model predicts, and those of them read with the [signal] set-up
+#: (both from the registry, :mod:`reconcile.model.quantities`)
+PREDICTED = quantities.names(predicted=True)
+SMALL_SIGNAL = quantities.names(predicted=True, kind=quantities.QuantityKind.SMALL_SIGNAL)
 
 
 def probe_nodes(at: str) -> tuple[str, str]:

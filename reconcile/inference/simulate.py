@@ -10,19 +10,12 @@ from __future__ import annotations
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.model.quantities import REGISTRY
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
 
-UNITS = {
-    "voltage": "V",
-    "current": "A",
-    "gain": "",
-    "input_resistance": "ohm",
-    "output_resistance": "ohm",
-    "resistance": "ohm",
-    "capacitance": "F",
-    "temperature": "K",
-}
+#: quantity -> SI unit, from the registry (kept for older imports)
+UNITS = {q.name: q.unit for q in REGISTRY.values()}
 
 
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
@@ -65,10 +58,10 @@ def simulate_readings(
     exact = model.predict(model.space.prior_mean[None, :], solution=sol)[0]
     out = []
     for k, ob in enumerate(obs):
-        proto = Reading(ob.quantity, ob.at, float(exact[k]), UNITS[ob.quantity], None)
+        proto = Reading.from_si(ob.quantity, ob.at, float(exact[k]))
         u = default_uncertainty(proto) if exact[k] != 0 else 1e-6
         value = float(exact[k])
         if rng is not None:
             value += relative_noise * u * rng.standard_normal()
-        out.append(Reading(ob.quantity, ob.at, value, UNITS[ob.quantity], u, note=note))
+        out.append(Reading.from_si(ob.quantity, ob.at, value, u, note=note))
     return out

@@ -46,6 +46,7 @@ from reconcile.model.board import (
     Transistor,
 )
 from reconcile.errors import InputError, InputErrors
+from reconcile.model.quantities import REGISTRY
 from reconcile.model.text_files import read_text
 from reconcile.model.toml_lines import Key, TomlLines, syntax_error_line
 from reconcile.model.values import parse_value
@@ -83,12 +84,8 @@ _DEVICE_PARAMS: dict[str, tuple[str, str, bool]] = {
     "VA": ("volts", "the Early voltage", True),
     "n": ("plain", "the emission coefficient", False),
 }
-_SPEC_TARGETS = {
-    "gain": "plain",
-    "source_gain": "plain",
-    "input_resistance": "ohms",
-    "output_resistance": "ohms",
-}
+#: [spec] target -> value kind, from the quantity registry
+_SPEC_TARGETS = {q.name: q.value_kind for q in REGISTRY.values() if q.spec_target}
 _SPEC_KEYS = (*_SPEC_TARGETS, "min_vce")
 _SIGNAL_KEYS = ("input", "output", "source_ohms", "load_ohms", "frequency")
 _DEFAULT_TOLERANCE = {"supplies": 0.0, "resistors": 0.05, "capacitors": 0.20}

@@ -43,6 +43,7 @@ _SYMBOLS = {
     "ohms": "Ω",
     "\u03a9": "\u03a9",  # GREEK CAPITAL LETTER OMEGA
     "\u2126": "\u03a9",  # OHM SIGN
+    "deg": "°",
     "farads": "F",
     "volts": "V",
     "amps": "A",
@@ -80,6 +81,15 @@ _NO_PREFIX = {"", "%", "dB", "°C", "K", "°"}
 def symbol(unit: str) -> str:
     """The symbol shown for ``unit`` (``"ohm"`` -> ``"Ω"``); unknown units unchanged."""
     return _SYMBOLS.get(unit, unit)
+
+
+def quantity_symbol(name: str) -> str:
+    """The unit symbol shown for a registered reading quantity (``"input_resistance"``
+    -> ``"Ω"``); ``""`` for a plain ratio or a name the registry does not know."""
+    from reconcile.model.quantities import REGISTRY
+
+    q = REGISTRY.get(name)
+    return "" if q is None else symbol(q.unit)
 
 
 def is_zero(value: float, unit: str = "", *, scale: float | None = None) -> bool:

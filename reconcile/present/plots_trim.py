@@ -8,12 +8,17 @@ import numpy as np
 
 from reconcile.errors import ReconcileError
 from reconcile.trim.rework import TrimResult
+from reconcile.model.quantities import REGISTRY
 from reconcile.present import numbers
 
 COLOUR_BEFORE = "#9a8f86"
 COLOUR_AFTER = "#2a7f62"
 COLOUR_LIMIT = "#b23a48"
-QUANTITIES = (("gain", "gain |v_out / v_in|", ""), ("input_resistance", "input resistance", "Ω"))
+#: what the figure shows: (quantity, axis label, unit symbol), labels from the registry
+QUANTITIES = tuple(
+    (name, REGISTRY[name].label, numbers.quantity_symbol(name))
+    for name in ("gain", "input_resistance")
+)
 
 
 def plot_trim(result: TrimResult, path: str | Path, *, bins: int = 60) -> Path:

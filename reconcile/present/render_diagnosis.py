@@ -8,8 +8,12 @@ from rich.console import Console, Group
 from rich.table import Table
 
 from reconcile.diagnosis.diagnose import Diagnosis, Hypothesis, NextReading
+<<<<<<< HEAD
 from reconcile.inference.simulate import UNITS
 from reconcile.present.console import make_console
+=======
+from reconcile.model.quantities import REGISTRY
+>>>>>>> layout
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -17,16 +21,11 @@ STYLE_BAD = "bold red"
 STYLE_DIM = "dim"
 CHECK_MIN_PROBABILITY = 0.01
 OFF_TOLERANCE_SHOWN = 3
-_QUANTITY_SHORT = {
-    "gain": "gain",
-    "source_gain": "source gain",
-    "input_resistance": "Rin",
-    "output_resistance": "Rout",
-}
 
 
 def _unit(quantity: str) -> str:
-    return "Ω" if UNITS.get(quantity) == "ohm" else UNITS.get(quantity, "")
+    q = REGISTRY.get(quantity)
+    return "" if q is None else numbers.symbol(q.unit)
 
 
 def _value(x: float | None, unit: str) -> str:
@@ -77,9 +76,10 @@ def _parameter_unit(board, key: str) -> str:
 def _fitted_board(h: Hypothesis, board) -> str:
     f = h.fitted
     parts = [
-        f"{short} {_value(f[key], _unit(key))}"
-        for key, short in _QUANTITY_SHORT.items()
-        if key in f and key != "source_gain" and f[key] is not None and math.isfinite(f[key])
+        f"{q.short} {_value(f[q.name], _unit(q.name))}"
+        for q in REGISTRY.values()
+        if q.small_signal and q.name != "source_gain" and f.get(q.name) is not None
+        and math.isfinite(f[q.name])
     ]
     parts += [f"{ref} {region}" for ref, region in f.get("regions", {}).items()]
     off = list(f.get("off_tolerance", {}).items())

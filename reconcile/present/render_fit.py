@@ -13,28 +13,18 @@ from reconcile.present import numbers
 
 OK, BAD, WARN, DIM = "green", "bold red", "yellow", "dim"
 
-_UNIT_SYMBOL = {"ohm": "Ω", "F": "F", "V": "V", "A": "A", "K": "K", "": ""}
-_READING_UNIT = {
-    "voltage": "V",
-    "current": "A",
-    "gain": "",
-    "input_resistance": "Ω",
-    "output_resistance": "Ω",
-    "resistance": "Ω",
-    "capacitance": "F",
-}
 
 
 def _fmt(value: float, unit: str) -> str:
     if unit == "K":
         return numbers.temperature(value)
-    return numbers.si(value, _UNIT_SYMBOL.get(unit, unit))
+    return numbers.si(value, numbers.symbol(unit))
 
 
 def _fmt_u(value: float, u: float, unit: str) -> str:
     if unit == "K":
         return numbers.temperature(value, u)
-    return numbers.with_u(value, u, _UNIT_SYMBOL.get(unit, unit))
+    return numbers.with_u(value, u, numbers.symbol(unit))
 
 
 def parameters_table(fit: FitResult) -> Table:
@@ -73,7 +63,7 @@ def readings_table(fit: FitResult) -> Table:
     for col in ("reading", "measured ± u", "predicted", "z"):
         t.add_column(col, justify="left" if col == "reading" else "right")
     for r in fit.readings:
-        unit = _READING_UNIT.get(r.quantity, "")
+        unit = numbers.quantity_symbol(r.quantity)
         label = f"{r.quantity} {r.at}".strip()
         z = f"{r.normalized_residual:+.2f}"
         if r.suspect:
@@ -130,7 +120,7 @@ def budget_table(budget: ErrorBudget) -> Table:
 
 
 def _unit_of(quantity: str) -> str:
-    return "Ω" if quantity.endswith("resistance") else _READING_UNIT.get(quantity, "")
+    return numbers.quantity_symbol(quantity)
 
 
 def next_table(suggestions: list[Suggestion]) -> Table:

@@ -6,6 +6,7 @@ from rich.console import Console, Group
 from rich.table import Table
 
 from reconcile.engine.solution import BoardSolution
+from reconcile.model.quantities import REGISTRY
 from reconcile.present.console import make_console
 from reconcile.present import numbers
 
@@ -86,11 +87,9 @@ def solution_tables(sol: BoardSolution) -> Group:
         t = Table(title=f"Small signal at {_si(ss['frequency'], 'Hz')}", title_justify="left")
         t.add_column("quantity")
         t.add_column("value", justify="right")
-        t.add_row("gain |vout/vin|", f"{ss['gain']:.4g}")
-        t.add_row("gain phase", f"{ss['gain_phase_deg']:.2f}°")
-        t.add_row("source gain |vout/vgen|", f"{ss['source_gain']:.4g}")
-        t.add_row("input resistance", _si(ss["input_resistance"], "Ω"))
-        t.add_row("output resistance", _si(ss["output_resistance"], "Ω"))
+        for q in REGISTRY.values():
+            if q.small_signal and q.name in ss:
+                t.add_row(q.label, numbers.si(ss[q.name], q.unit, q.digits))
         parts.append(t)
 
     checks = sol.spec_checks

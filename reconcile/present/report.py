@@ -130,17 +130,6 @@ def _section(key: str, title: str, body: str) -> str:
     return f'<section class="part" id="{key}"><h2>{_e(title)}</h2>{body}</section>'
 
 
-_UNIT = {"ohm": "Ω", "F": "F", "V": "V", "A": "A", "K": "K", "": ""}
-_RUNIT = {
-    "voltage": "V",
-    "current": "A",
-    "resistance": "Ω",
-    "capacitance": "F",
-    "input_resistance": "Ω",
-    "output_resistance": "Ω",
-    "gain": "",
-    "temperature": "K",
-}
 
 
 def _board_section(d: ReportData) -> str:
@@ -209,7 +198,7 @@ def _readings_section(d: ReportData) -> str:
     rows = []
     fits = {(r["quantity"], r["at"]): r for r in (d.fit or {}).get("readings", [])}
     for r in d.readings:
-        unit = _RUNIT.get(r.quantity, "")
+        unit = numbers.quantity_symbol(r.quantity)
         value = f"{r.value - 273.15:.2f} °C" if r.quantity == "temperature" else _num(r.value, unit)
         u = standard_uncertainty(r)
         f = fits.get((r.quantity, r.at))
@@ -237,7 +226,7 @@ def _fit_section(d: ReportData) -> str:
     f = d.fit or {}
     rows = []
     for key, p in f.get("parameters", {}).items():
-        unit = _UNIT.get(p["unit"], p["unit"])
+        unit = numbers.symbol(p["unit"])
         inside = p.get("in_tolerance")
         status = (
             "–"

@@ -95,8 +95,7 @@ class StoredReading:
 
     def to_dict(self) -> dict[str, Any]:
         """The reading in SI with its SI unit; what the user typed in ``typed``."""
-        from reconcile.data.readings import QUANTITIES
-        from reconcile.model.values import si_unit
+        from reconcile.model.quantities import REGISTRY
 
         r = self.reading
         raw = list(r.raw) + [""] * (5 - len(r.raw))
@@ -107,7 +106,7 @@ class StoredReading:
         }
         return {
             "id": self.id, "quantity": r.quantity, "at": r.at, "value": r.value,
-            "unit": si_unit(QUANTITIES[r.quantity][0]) if r.quantity in QUANTITIES else "",
+            "unit": REGISTRY[r.quantity].unit if r.quantity in REGISTRY else "",
             "uncertainty": r.uncertainty, "typed": typed, "instrument": r.instrument,
             "note": r.note, "device": r.device, "taken_at": self.taken_at,
             "source": self.source, "supersedes": self.supersedes,

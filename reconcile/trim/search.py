@@ -29,6 +29,7 @@ Which combinations are solved is :mod:`reconcile.trim_combos`' job; ranking them
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass
 
@@ -182,19 +183,7 @@ def _take(sol: BatchSolution, i: int) -> BatchSolution:
     )
     ss = sol.small_signal
     if ss is not None:
-        ss = type(ss)(
-            **{
-                k: getattr(ss, k)[s]
-                for k in (
-                    "frequency",
-                    "gain",
-                    "gain_phase_deg",
-                    "source_gain",
-                    "input_resistance",
-                    "output_resistance",
-                )
-            }
-        )
+        ss = type(ss)(**{f.name: getattr(ss, f.name)[s] for f in dataclasses.fields(ss)})
     fields = {
         k: getattr(sol, k)[s]
         for k in (
