@@ -13,7 +13,7 @@ import numpy as np
 from reconcile.engine import devices
 from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
 from reconcile.engine.dc import DCState, _Batch, solve_dc
-from reconcile.engine.small_signal import SmallSignal, analyse
+from reconcile.engine.small_signal import LinearModel, SmallSignal
 
 RO_INFINITE_OHMS = 1e15
 """An output resistance above this is reported as infinite (null in JSON)."""
@@ -47,6 +47,7 @@ class BatchSolution:
     resistor_power: np.ndarray  # (N, nR)
     kcl_residual: np.ndarray  # (N,) largest |KCL error| over free nodes, A
     small_signal: SmallSignal | None
+    linear: LinearModel | None = None  # for AC responses at other frequencies (sweeps)
 
     @property
     def converged(self) -> np.ndarray:
@@ -145,11 +146,14 @@ def solve_batch(
     if len(batch.floating_rows):
         # The DC tie of floating nodes is not part of the board's small-signal model.
         jac_ff[:, batch.floating_rows, batch.floating_rows] -= FLOAT_SIEMENS
-    ss = analyse(circuit, params, jac_ff) if small_signal else None
-    if ss is not None and not np.all(state.converged):
-        bad = ~state.converged
-        for name in SmallSignal.QUANTITIES:
-            getattr(ss, name)[bad] = np.nan
+    linear = ss = None
+    if small_signal and circuit.input_node is not None and circuit.output_node is not None:
+        linear = LinearModel(circuit, params, jac_ff, gm)
+        ss = linear.at_signal_frequency()
+        if not np.all(state.converged):
+            bad = ~state.converged
+            for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
+                getattr(ss, name)[bad] = np.nan
     return BatchSolution(
         circuit=circuit,
         params=params,
@@ -170,4 +174,5 @@ def solve_batch(
         resistor_power=p_r,
         kcl_residual=kcl,
         small_signal=ss,
+        linear=linear,
     )

@@ -169,10 +169,14 @@ class Parameters:
     n: np.ndarray  # (N, nT)
     xti: np.ndarray  # (N, nT)
     bandgap: np.ndarray  # (N, nT) eV
+    ft: np.ndarray  # (N, nT) Hz, transition frequency (inf: no device capacitance)
+    c_mu: np.ndarray  # (N, nT) F, base-collector capacitance
     temperature: np.ndarray  # (N,) K, junction temperature
     source_ohms: np.ndarray  # (N,)
     load_ohms: np.ndarray  # (N,)
     frequency: np.ndarray  # (N,) Hz
+    probe_ac_siemens: np.ndarray  # (N,) the AC probe's conductance on the signal nodes
+    probe_ac_farads: np.ndarray  # (N,) and its capacitance
     extra: dict = field(default_factory=dict, compare=False)
 
     @property
@@ -260,8 +264,12 @@ def nominal_parameters(
         n=rows([d.n.value for d in devs], nT),
         xti=rows([d.is_temp_exponent for d in devs], nT),
         bandgap=rows([d.bandgap for d in devs], nT),
+        ft=rows([d.ft.value for d in devs], nT),
+        c_mu=rows([d.c_mu.value for d in devs], nT),
         temperature=np.full(n, float(t)),
         source_ohms=np.full(n, float(sig.source_ohms)),
         load_ohms=np.full(n, float(sig.load_ohms)),
         frequency=np.full(n, float(sig.frequency)),
+        probe_ac_siemens=np.full(n, 1.0 / board.bench.probe_ohms),
+        probe_ac_farads=np.full(n, float(board.bench.probe_farads)),
     )

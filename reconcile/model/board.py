@@ -11,6 +11,7 @@ Node names are strings; ``"gnd"`` is the 0 V reference (the loader refuses ``"0"
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -80,6 +81,15 @@ class Device:
     n: DeviceParam = field(default_factory=lambda: DeviceParam(1.0))
     is_temp_exponent: float = 3.0
     bandgap: float = 1.11
+    ft: DeviceParam = field(default_factory=lambda: DeviceParam(float("inf")))
+    c_mu: DeviceParam = field(default_factory=lambda: DeviceParam(0.0))
+
+    # ft (Hz) and c_mu (F) are the optional hybrid-π capacitances (docs/formats.md
+    # §6.3): ft = inf and c_mu = 0 mean no device capacitance (contract version 1).
+
+    @property
+    def has_capacitance(self) -> bool:
+        return math.isfinite(self.ft.value) or self.c_mu.value > 0.0
 
 
 @dataclass(frozen=True)
@@ -107,9 +117,20 @@ class Signal:
 
 @dataclass(frozen=True)
 class Bench:
-    """How the bench reads the board: the DC voltmeter's input resistance."""
+    """How the bench reads the board.
+
+    ``voltmeter_ohms`` is the DC voltmeter's input resistance; ``probe_ohms`` and
+    ``probe_farads`` the probe (or AC meter input) on the signal's input and output
+    nodes during small-signal readings (``inf`` and 0: no probe).
+    """
 
     voltmeter_ohms: float = 10e6
+    probe_ohms: float = float("inf")
+    probe_farads: float = 0.0
+
+    @property
+    def has_probe(self) -> bool:
+        return math.isfinite(self.probe_ohms) or self.probe_farads > 0.0
 
 
 @dataclass(frozen=True)
@@ -135,6 +156,8 @@ class Spec:
 
     targets: dict[str, SpecTarget] = field(default_factory=dict)
     min_vce: float | None = None
+    low_corner_max: float | None = None  # Hz, the low −3 dB corner may be at most this
+    high_corner_min: float | None = None  # Hz, the high −3 dB corner must be at least this
 
 
 @dataclass(frozen=True)

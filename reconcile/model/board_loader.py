@@ -67,7 +67,7 @@ _PART_KEYS: dict[str, tuple[str, ...]] = {
     "resistors": ("nodes", "ohms", "tolerance", "rating", "trim"),
     "capacitors": ("nodes", "farads", "tolerance", "trim"),
     "transistors": ("polarity", "c", "b", "e", "device"),
-    "devices": ("IS", "beta", "beta_r", "VA", "n", "is_temp_exponent", "bandgap"),
+    "devices": ("IS", "beta", "beta_r", "VA", "n", "is_temp_exponent", "bandgap", "ft", "c_mu"),
 }
 _REQUIRED: dict[str, tuple[str, ...]] = {
     "supplies": ("node", "volts"),
@@ -83,10 +83,13 @@ _DEVICE_PARAMS: dict[str, tuple[str, str, bool]] = {
     "beta_r": ("plain", "the reverse current gain", False),
     "VA": ("volts", "the Early voltage", True),
     "n": ("plain", "the emission coefficient", False),
+    "ft": ("hertz", "the transition frequency", True),
+    "c_mu": ("farads", "the base-collector capacitance", False),
 }
 #: [spec] target -> value kind, from the quantity registry
 _SPEC_TARGETS = {q.name: q.value_kind for q in REGISTRY.values() if q.spec_target}
-_SPEC_KEYS = (*_SPEC_TARGETS, "min_vce")
+_SPEC_CORNERS = {"low_corner": "max", "high_corner": "min"}
+_SPEC_KEYS = (*_SPEC_TARGETS, "min_vce", *_SPEC_CORNERS)
 _SIGNAL_KEYS = ("input", "output", "source_ohms", "load_ohms", "frequency")
 _DEFAULT_TOLERANCE = {"supplies": 0.0, "resistors": 0.05, "capacitors": 0.20}
 _SPEC_DEFAULT_TOLERANCE = 0.05
@@ -711,14 +714,63 @@ def _bench(data: dict[str, Any], check: _Checker) -> Bench:
     table = check.table(("bench",), data["bench"], "with voltmeter_ohms = ...")
     if table is None:
         return Bench()
-    check.keys(("bench",), table, ("voltmeter_ohms",), "[bench]")
-    if "voltmeter_ohms" not in table:
-        return Bench()
-    number = check.positive(
-        ("bench", "voltmeter_ohms"), table["voltmeter_ohms"], "ohms", "voltmeter_ohms",
-        allow_inf=True,
-    )
-    return Bench() if number is None else Bench(voltmeter_ohms=number)
+    check.keys(("bench",), table, ("voltmeter_ohms", "probe"), "[bench]")
+    fields: dict[str, float] = {}
+    if "voltmeter_ohms" in table:
+        number = check.positive(
+            ("bench", "voltmeter_ohms"), table["voltmeter_ohms"], "ohms", "voltmeter_ohms",
+            allow_inf=True,
+        )
+        if number is not None:
+            fields["voltmeter_ohms"] = number
+    if "probe" in table:
+        fields.update(_probe(check, table["probe"]))
+    return Bench(**fields)
+
+
+def _probe(check: _Checker, raw: Any) -> dict[str, float]:
+    """``probe = { ohms = "10M", farads = "12p" }`` (docs/formats.md §6.3)."""
+    key = ("bench", "probe")
+    probe = check.table(key, raw, 'like { ohms = "10M", farads = "12p" }')
+    if probe is None:
+        return {}
+    check.keys(key, probe, ("ohms", "farads"), "bench.probe")
+    if not probe:
+        check.error(key, 'bench.probe needs ohms and/or farads, like { ohms = "10M", farads = "12p" }')
+    out: dict[str, float] = {}
+    if "ohms" in probe:
+        number = check.positive(key + ("ohms",), probe["ohms"], "ohms", "bench.probe.ohms",
+                                allow_inf=True)
+        if number is not None:
+            out["probe_ohms"] = number
+    if "farads" in probe:
+        number = check.value(key + ("farads",), probe["farads"], "farads")
+        if number is not None and not 0.0 <= number < math.inf:
+            check.error(key + ("farads",),
+                        f"bench.probe.farads must be >= 0 and finite, found {probe['farads']!r}")
+        elif number is not None:
+            out["probe_farads"] = number
+    return out
+
+
+def _spec_corners(data: dict[str, Any], table: dict[str, Any], check: _Checker) -> dict:
+    """``low_corner = { max = "20" }``, ``high_corner = { min = "100k" }`` (Hz, §6.3)."""
+    out: dict[str, float] = {}
+    for name, bound in _SPEC_CORNERS.items():
+        if name not in table:
+            continue
+        key = ("spec", name)
+        if "signal" not in data:
+            check.error(key, f"spec.{name} is a small-signal target and needs a [signal] table")
+        raw = table[name]
+        if not isinstance(raw, dict) or set(raw) != {bound}:
+            check.error(key, f'spec.{name} is written {name} = {{ {bound} = "..." }} (Hz), '
+                             f"found {raw!r}")
+            continue
+        value = check.positive(key + (bound,), raw[bound], "hertz", f"spec.{name}.{bound}")
+        if value is not None:
+            out[f"{name}_{bound}"] = value
+    return out
 
 
 def _spec(data: dict[str, Any], check: _Checker) -> Spec:
@@ -758,4 +810,4 @@ def _spec(data: dict[str, Any], check: _Checker) -> Spec:
                 f"found {table['min_vce']!r}",
             )
             min_vce = None
-    return Spec(targets=targets, min_vce=min_vce)
+    return Spec(targets=targets, min_vce=min_vce, **_spec_corners(data, table, check))

@@ -8,12 +8,8 @@ from rich.console import Console, Group
 from rich.table import Table
 
 from reconcile.diagnosis.diagnose import Diagnosis, Hypothesis, NextReading
-<<<<<<< HEAD
-from reconcile.inference.simulate import UNITS
-from reconcile.present.console import make_console
-=======
 from reconcile.model.quantities import REGISTRY
->>>>>>> layout
+from reconcile.present.console import make_console
 from reconcile.present import numbers
 
 STYLE_OK = "green"
