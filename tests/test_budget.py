@@ -17,6 +17,8 @@ def test_rows_per_chunk_follows_the_budget():
         assert b.rows_per_chunk(1024) == 64 * 1024
         assert b.rows_per_chunk(1024, share=0.5) == 32 * 1024
         assert b.rows_per_chunk(10 * 1024 * b.MIB) == 1  # a row larger than the budget
+        assert b.rows_per_chunk(1024, at_most=b.THROUGHPUT_ROWS) == b.THROUGHPUT_ROWS
+        assert b.rows_per_chunk(10 * 1024 * b.MIB, at_most=b.THROUGHPUT_ROWS) == 1
     assert b.budget_bytes() == b.DEFAULT_BUDGET_BYTES
 
 

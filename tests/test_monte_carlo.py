@@ -34,7 +34,8 @@ from reconcile.analysis.monte_carlo import (
     max_samples,
 )
 from reconcile.engine import compile_board
-from reconcile.engine.budget import MIB, budget
+from reconcile.analysis import monte_carlo
+from reconcile.engine.budget import MIB, THROUGHPUT_ROWS, budget
 from reconcile.errors import InputError
 from reconcile.inference.priors import build_space, prior_draws
 from reconcile.model.board_loader import load_board
@@ -89,10 +90,13 @@ def test_drivers_are_spearman_rank_correlations() -> None:
     assert top == {"RC", "RE1"}
 
 
-def test_chunked_run_equals_one_chunk() -> None:
+def test_chunked_run_equals_one_chunk(monkeypatch) -> None:
     # Self-consistency check: a tiny memory budget (many chunks) gives the same result
-    # as the default budget (one chunk) for the same seed.
+    # as the default budget with the throughput cap lifted (one chunk) for the same seed.
     board = load_board(PREAMP)
+    default = design_samples(board, 20_000, seed=5)
+    assert default.chunk_rows == THROUGHPUT_ROWS
+    monkeypatch.setattr(monte_carlo, "THROUGHPUT_ROWS", 10**9)
     whole = design_samples(board, 20_000, seed=5)
     with budget(16 * MIB):
         parts = design_samples(board, 20_000, seed=5)
@@ -101,6 +105,7 @@ def test_chunked_run_equals_one_chunk() -> None:
     for name, s in whole.quantities.items():
         for key, value in s.items():
             assert parts.quantities[name][key] == pytest.approx(value, rel=1e-12, abs=1e-15)
+            assert default.quantities[name][key] == pytest.approx(value, rel=1e-12, abs=1e-15)
 
 
 def test_absurd_sample_counts_are_refused() -> None:

@@ -35,7 +35,7 @@ import numpy as np
 
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
 from reconcile.engine.batch import bytes_per_board
-from reconcile.engine.budget import MIB, budget_bytes, chunks, rows_per_chunk
+from reconcile.engine.budget import MIB, THROUGHPUT_ROWS, budget_bytes, chunks, rows_per_chunk
 from reconcile.errors import InputError, SolveError
 from reconcile.inference.priors import build_space, prior_draws
 from reconcile.model.board import Board
@@ -165,7 +165,7 @@ def design_samples(
     drawn = np.empty((n_drive, space.size))
     passed = unsolved = 0
     row_bytes = bytes_per_board(circuit) + 8 * 4 * space.size
-    rows = rows_per_chunk(row_bytes, share=1.0 - RESULT_SHARE)
+    rows = rows_per_chunk(row_bytes, share=1.0 - RESULT_SHARE, at_most=THROUGHPUT_ROWS)
     done = 0
     for sl in chunks(n, rows):
         x = prior_draws(space, sl.stop - sl.start, rng)
