@@ -304,11 +304,21 @@ def diagnose(
         typer.Option(help="TOML file with [fault_weights] (prior weight per fault kind)."),
     ] = None,
     rows: Annotated[int, typer.Option(help="Hypotheses shown in the table.")] = 10,
+    max_faults: Annotated[
+        Optional[int],  # noqa: UP045
+        typer.Option(
+            "--max-faults",
+            help="1: single faults only; 2: pairs of faults too "
+            "(default: 2 when no single fault explains the readings, else 1).",
+        ),
+    ] = None,
     session: SessionOpt = None,
     store: StoreOpt = None,
 ) -> None:
-    """Say which single fault best explains the readings, and the check to confirm it."""
+    """Say which fault (or pair of faults) best explains the readings, and the check to
+    confirm it."""
     from reconcile.diagnosis.diagnose import diagnose as run_diagnosis
+    from reconcile.present.progress import step_progress
 
     inputs = AnalysisInputs.gather(board, readings, session, store, "diagnose")
     prior = None
@@ -316,7 +326,11 @@ def diagnose(
         from reconcile.diagnosis.weights import load_fault_weights
 
         prior = load_fault_weights(weights)
-    diag = run_diagnosis(inputs.board, inputs.readings, prior_weights=prior)
+    with step_progress("fitting pairs of faults", enabled=not json) as on_progress:
+        diag = run_diagnosis(
+            inputs.board, inputs.readings, prior_weights=prior, max_faults=max_faults,
+            on_progress=on_progress,
+        )
     out = diag.to_dict()
     recorded = inputs.record("diagnose", out)
     if json:

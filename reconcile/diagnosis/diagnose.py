@@ -59,6 +59,18 @@ meter, ½ ln(1 + JΣ_postJᵀ/u²), the most informative about the board under i
 Prior of a capacitor's ``missing``: it stands for open too, so its weight is
 ``missing + open`` (:mod:`reconcile.fault_weights`).
 
+Two faults at once (``max_faults=2``; by default only when no single fault explains the
+readings): pairs of faults over all parts, scored the same way with the prior weights'
+odds multiplied, the search pruned by :mod:`reconcile.diagnosis.pairs` (its module
+docstring states the rule). Where a single fault explains the readings it is the honest
+answer: a pair has more freedom and a lower prior, and is not searched unless asked.
+The next reading is then chosen to separate the leading pairs from the leading single
+faults (:data:`LEADING_PAIRS`, :data:`LEADING_SINGLES`).
+
+Decisive: the leading hypothesis has probability ≥ :data:`DECISIVE_P` and is
+``testable`` (the readings tell it from ``none``); a repair may follow it
+(:mod:`reconcile.pipeline.repair`).
+
 Where it lives: :mod:`reconcile.diagnosis.scoring` (the score and probabilities),
 :mod:`reconcile.diagnosis.checks` (the meter check of each hypothesis),
 :mod:`reconcile.diagnosis.separating` (the next reading); this module runs them.
@@ -66,6 +78,7 @@ Where it lives: :mod:`reconcile.diagnosis.scoring` (the score and probabilities)
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -73,6 +86,7 @@ import numpy as np
 from reconcile.data.readings import Reading
 from reconcile.diagnosis.fault_fit import fit_faults
 from reconcile.diagnosis.faults import single_faults
+from reconcile.diagnosis.pairs import PairSearch, fit_pairs
 from reconcile.diagnosis.scoring import Hypothesis, score_hypotheses
 from reconcile.diagnosis.separating import NextReading, separating_reading
 from reconcile.diagnosis.weights import fault_weights
@@ -86,6 +100,13 @@ from reconcile.model.board import Board
 __all__ = ["Diagnosis", "Hypothesis", "NextReading", "diagnose"]
 
 DISAGREEING_SHOWN = 3
+DECISIVE_P = 0.9
+"""A leading hypothesis at least this probable (and testable) is decisive."""
+LEADING_PAIRS = 4
+LEADING_SINGLES = 2
+"""With pairs searched, the next reading separates this many leading pairs from this
+many leading single faults."""
+MAX_FAULTS = (1, 2)
 
 
 @dataclass(frozen=True)
@@ -100,10 +121,26 @@ class Diagnosis:
     prior_weights: dict[str, float]
     n_readings: int
     summary: str
+    max_faults: int = 1
+    pair_search: PairSearch | None = None
 
     @property
     def top(self) -> Hypothesis:
         return self.hypotheses[0]
+
+    @property
+    def decisive(self) -> bool:
+        """The leader has probability ≥ :data:`DECISIVE_P` and is testable."""
+        return bool(self.top.probability >= DECISIVE_P and self.top.testable)
+
+    def by_label(self, label: str) -> Hypothesis:
+        """The hypothesis labelled ``label`` (``RE open``, ``CE missing + RF wrong-value``;
+        a pair in either order)."""
+        want = sorted(label.split(" + "))
+        for h in self.hypotheses:
+            if sorted(h.label.split(" + ")) == want:
+                return h
+        raise KeyError(f"no hypothesis {label}")
 
     def hypothesis(self, ref: str | None, fault: str) -> Hypothesis:
         """The hypothesis for ``ref`` and ``fault`` (a capacitor's ``open`` is its
@@ -128,6 +165,9 @@ class Diagnosis:
             "next_reading": self.next_reading.to_dict() if self.next_reading else None,
             "prior_weights": dict(self.prior_weights),
             "n_readings": self.n_readings,
+            "max_faults": self.max_faults,
+            "decisive": self.decisive,
+            "pair_search": self.pair_search.to_dict() if self.pair_search else None,
             "method": {
                 "score": "chi_square + complexity (Laplace approximation of the evidence)",
                 "consistency_p": P_CONSISTENT,
@@ -143,8 +183,10 @@ def diagnose(
     *,
     prior_weights: dict[str, float] | None = None,
     max_iterations: int | None = None,
+    max_faults: int | None = None,
+    on_progress: Callable[[int, int], None] | None = None,
 ) -> Diagnosis:
-    """Rank single-fault explanations of ``readings`` on ``board``.
+    """Rank fault explanations of ``readings`` on ``board``: single faults, and pairs.
 
     Parameters
     ----------
@@ -158,6 +200,11 @@ def diagnose(
     max_iterations
         Levenberg–Marquardt iterations per hypothesis (default
         :data:`reconcile.fault_fit.MAX_ITERATIONS`).
+    max_faults
+        1: single faults only; 2: pairs too. Default: 2 when no single fault explains
+        the readings, else 1.
+    on_progress
+        Called as ``on_progress(done, total)`` while pairs are fitted.
 
     Returns
     -------
@@ -168,6 +215,10 @@ def diagnose(
     InputError
         No reading the model can predict, or a bad prior weight.
     """
+    if max_faults is not None and (
+        isinstance(max_faults, bool) or max_faults not in MAX_FAULTS
+    ):
+        raise InputError(f"max faults must be 1 or 2, got {max_faults!r}", key="--max-faults")
     weights = fault_weights(prior_weights)
     obs = observations_from(readings)
     if not obs:
@@ -180,10 +231,20 @@ def diagnose(
     seeds = [none_fit.x, space.prior_mean]
     rest = fit_faults(faults[1:], obs, space, seeds=seeds, reference_chi2=none_fit.chi_square, **kw)
     fits = [none_fit, *rest]
-    hyps = score_hypotheses(board, fits, none_fit, weights, len(obs))
+    u = np.array([ob.uncertainty for ob in obs])
+    hyps = score_hypotheses(board, fits, none_fit, weights, len(obs), u)
+    single_explained = any(h.consistent for h in hyps)
+    k = max_faults if max_faults is not None else (1 if single_explained else 2)
+    search = None
+    if k == 2:
+        pair_fits, search = fit_pairs(
+            board, faults, fits, obs, space, weights,
+            max_iterations=max_iterations, on_progress=on_progress,
+        )
+        hyps = score_hypotheses(board, fits + pair_fits, none_fit, weights, len(obs), u)
     explained = any(h.consistent for h in hyps)
     disagreeing = _disagreeing(hyps[0], obs, explained)
-    nxt = separating_reading(board, hyps, obs)
+    nxt = separating_reading(board, _leading(hyps) if k == 2 else hyps, obs)
     return Diagnosis(
         board=board,
         hypotheses=tuple(hyps),
@@ -192,8 +253,18 @@ def diagnose(
         next_reading=nxt,
         prior_weights=weights,
         n_readings=len(obs),
-        summary=_summary(hyps, explained, disagreeing, len(obs)),
+        summary=_summary(hyps, explained, disagreeing, len(obs), k, single_explained, nxt),
+        max_faults=k,
+        pair_search=search,
     )
+
+
+def _leading(hyps: list[Hypothesis]) -> list[Hypothesis]:
+    """The leading pairs and the leading single faults (``none`` among them), best
+    first: the hypotheses the next reading should tell apart."""
+    pairs = [h for h in hyps if h.n_faults == 2][:LEADING_PAIRS]
+    singles = [h for h in hyps if h.n_faults < 2][:LEADING_SINGLES]
+    return sorted(pairs + singles, key=lambda h: -h.probability)
 
 
 # ------------------------------------------------------- readings and summary
@@ -222,8 +293,17 @@ def _disagreeing(top: Hypothesis, obs: list[Observation], explained: bool) -> li
     return out
 
 
-def _summary(hyps: list[Hypothesis], explained: bool, disagreeing: list[dict], n: int) -> str:
+def _summary(
+    hyps: list[Hypothesis],
+    explained: bool,
+    disagreeing: list[dict],
+    n: int,
+    max_faults: int = 1,
+    single_explained: bool = True,
+    nxt: NextReading | None = None,
+) -> str:
     top = hyps[0]
+    what = "no single fault" if max_faults == 1 else "no single fault nor pair of faults"
     if not explained:
         worst = ", ".join(
             f"{d['quantity']}{' at ' + d['at'] if d['at'] else ''} "
@@ -231,9 +311,19 @@ def _summary(hyps: list[Hypothesis], explained: bool, disagreeing: list[dict], n
             for d in disagreeing
         )
         return (
-            f"no single fault explains the readings: the best, {top.label}, leaves "
+            f"{what} explains the readings: the best, {top.label}, leaves "
             f"χ² = {top.chi_square:.3g} for {n} readings (p = {top.p_value:.2g}); "
             f"the readings that disagree most: {worst}"
         )
-    return f"most likely: {top.description} (probability {top.probability:.2f})"
-
+    text = f"most likely: {top.description} (probability {top.probability:.2f})"
+    if max_faults == 2 and not single_explained:
+        text = "no single fault explains the readings; " + text
+    close = [h for h in hyps[1:] if h.probability >= 0.1 * top.probability]
+    if max_faults == 2 and top.probability < DECISIVE_P and close:
+        text += (
+            f"; the readings cannot tell it from {close[0].label} "
+            f"(probability {close[0].probability:.2f})"
+        )
+        if nxt is not None:
+            text += f": read {nxt.label} next"
+    return text

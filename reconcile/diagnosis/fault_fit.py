@@ -277,7 +277,9 @@ class _Group:
         return any(ob.quantity in SMALL_SIGNAL_KEYS for ob in self.model.observations)
 
 
-def _seed_starts(group: _Group, seeds: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+def _seed_starts(
+    group: _Group, seeds: list[np.ndarray], own_seeds: list[list[np.ndarray]] | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Starting points and the hypothesis each belongs to.
 
     Every hypothesis starts from its best seed by initial objective (for a widened
@@ -293,7 +295,7 @@ def _seed_starts(group: _Group, seeds: list[np.ndarray]) -> tuple[np.ndarray, np
     owners: list[int] = []
     for i, f in enumerate(group.faults):
         widened = [keys.index(k) for k, _ in f.widened]
-        for seed in seeds:
+        for seed in seeds + (own_seeds[i] if own_seeds else []):
             cands.append(seed)
             owners.append(i)
             for j in widened:
@@ -496,6 +498,7 @@ def fit_faults(
     seeds: list[np.ndarray] | None = None,
     max_iterations: int = MAX_ITERATIONS,
     reference_chi2: float = np.inf,
+    own_seeds: list[list[np.ndarray]] | None = None,
 ) -> list[FaultFit]:
     """Fit every hypothesis in ``faults`` to the observations.
 
@@ -515,6 +518,9 @@ def fit_faults(
     reference_chi2
         The best χ² known beforehand (the ``none`` fit's), against which hopeless
         hypotheses are abandoned (:data:`ABANDON_MARGIN`).
+    own_seeds
+        Extra starting vectors per hypothesis (in the order of ``faults``), tried
+        besides ``seeds`` (a pair starts from its two single faults' fits too).
 
     Returns
     -------
@@ -528,7 +534,8 @@ def fit_faults(
     out: list[FaultFit | None] = [None] * len(faults)
     for members in order.values():
         base = _Group(faults[members[0]].board, [faults[i] for i in members], observations, space)
-        x0, start_owner = _seed_starts(base, [np.asarray(s, dtype=float) for s in seeds])
+        mine = [own_seeds[i] for i in members] if own_seeds else None
+        x0, start_owner = _seed_starts(base, [np.asarray(s, dtype=float) for s in seeds], mine)
         group = base.expanded(start_owner)
         x, f, jac, cost, converged, abandoned, iterations, decrement = _lm(
             group, x0, max_iterations, reference_chi2, start_owner

@@ -85,6 +85,10 @@ class Fault:
     aliases
         Other names the contract has for this hypothesis (``open`` for a capacitor's
         ``missing``).
+    members
+        For a hypothesis of several faults at once (kind ``pair``, built by
+        :func:`reconcile.diagnosis.pairs.combine`), the single faults it joins; empty
+        for a single fault.
     """
 
     ref: str
@@ -95,15 +99,28 @@ class Fault:
     part_readings: tuple[tuple[str, str, float], ...] = ()
     widened: tuple[tuple[str, float], ...] = ()
     aliases: tuple[str, ...] = ()
+    members: tuple[Fault, ...] = ()
+
+    @property
+    def parts(self) -> tuple[Fault, ...]:
+        """The single faults of this hypothesis (itself for a single fault, none for
+        ``none``)."""
+        if self.members:
+            return self.members
+        return () if self.kind == "none" else (self,)
 
     @property
     def label(self) -> str:
-        """``RE open``, ``Q1 reversed``, ``none``."""
+        """``RE open``, ``Q1 reversed``, ``none``, ``CE missing + RF wrong-value``."""
+        if self.members:
+            return " + ".join(m.label for m in self.members)
         return self.kind if not self.ref else f"{self.ref} {self.kind}"
 
     @property
     def description(self) -> str:
         """One phrase saying what the hypothesis means on the bench."""
+        if self.members:
+            return " and ".join(m.description for m in self.members)
         text = {
             "none": "no fault: every part within its tolerance, devices within their ranges",
             "open": "open: a cracked part, a lifted leg or a dry joint",

@@ -1,16 +1,27 @@
-"""Scoring single-fault hypotheses: Laplace evidence, prior weights, probabilities.
+"""Scoring fault hypotheses: Laplace evidence, prior weights, probabilities.
 
 The method is described in :mod:`reconcile.diagnosis.diagnose`: score(H) = χ²_min +
-ln det Σ_prior − ln det Σ_post, ln P(H | D) = −score/2 + ln w(kind) − normalisation. This
+ln det Σ_prior − ln det Σ_post, ln P(H | D) = −score/2 + ln w(H) − normalisation. This
 module turns the batched fits of :mod:`reconcile.diagnosis.fault_fit` into ranked
 :class:`Hypothesis` objects; the meter check of each comes from
 :mod:`reconcile.diagnosis.checks`.
+
+Prior weight of a hypothesis of several faults (:mod:`reconcile.diagnosis.pairs`): faults
+of different parts are taken as independent, so the prior odds of each against ``none``
+multiply: w(X and Y) = w(X)·w(Y)/w(none). With the invented defaults a pair of wrong
+values weighs 1.6 against a single wrong value's 4 and ``none``'s 10.
+
+Testable. A hypothesis is ``testable`` when the readings taken can tell it from
+``none``: its fitted predictions differ from the ``none`` fit's by at least
+:data:`TESTABLE_SIGMA` standard uncertainties in some reading. A fault no reading sees
+(a bleed resistor open with no reading across it) is not: its probability is its prior
+share, and nothing should be reworked on its account.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -32,6 +43,9 @@ _STATUS_NOTES = {
     "no-operating-point": "the engine found no operating point at the fit: probability set to 0",
 }
 _SERIES_FALLBACK = ("E24", "E12", "E6", "E48", "E96", "E192")
+TESTABLE_SIGMA = 1.0
+"""A hypothesis is testable when some reading's prediction under it differs from the
+``none`` fit's by at least this many standard uncertainties."""
 
 
 
@@ -71,10 +85,20 @@ class Hypothesis:
     aliases: tuple[str, ...]
     note: str
     fit: FaultFit = field(repr=False, compare=False)
+    faults: tuple[dict, ...] = ()
+    testable: bool = True
 
     @property
     def label(self) -> str:
+        """``RE open``, ``none``; for several faults ``CE missing + RF wrong-value``."""
+        if len(self.faults) > 1:
+            return " + ".join(f"{f['ref']} {f['fault']}" for f in self.faults)
         return self.fault if not self.ref else f"{self.ref} {self.fault}"
+
+    @property
+    def n_faults(self) -> int:
+        """How many faults the hypothesis joins (0 for ``none``)."""
+        return len(self.faults)
 
     @property
     def consistent(self) -> bool:
@@ -110,10 +134,12 @@ class Hypothesis:
             "same_as": list(self.same_as),
             "aliases": list(self.aliases),
             "note": self.note,
+            "faults": [dict(f) for f in self.faults],
+            "testable": self.testable,
         }
 
 
-def _complexity(fit: FaultFit) -> float:
+def complexity_term(fit: FaultFit) -> float:
     """ln det Σ_prior − ln det Σ_post over the free parameters (≥ 0 up to rounding)."""
     sd = fit.prior_sd[fit.free]
     sign, logdet = np.linalg.slogdet(fit.covariance)
@@ -122,21 +148,57 @@ def _complexity(fit: FaultFit) -> float:
     return max(float(np.sum(np.log(sd**2)) - logdet), 0.0)
 
 
-def _weight(fault: Fault, weights: dict[str, float]) -> float:
+def _single_weight(fault: Fault, weights: dict[str, float]) -> float:
     w = weights[fault.kind]
     for alias in fault.aliases:
         w += weights[alias]
     return w
 
 
-def score_hypotheses(board, fits, none_fit, weights, n_obs) -> list[Hypothesis]:
+def hypothesis_weight(fault: Fault, weights: dict[str, float]) -> float:
+    """The prior weight of a hypothesis: a single fault's own; for several faults the
+    product of their odds against ``none``, times ``none``'s weight (independent
+    faults; see the module docstring)."""
+    if not fault.members:
+        return _single_weight(fault, weights)
+    w = weights["none"]
+    for m in fault.members:
+        w *= _single_weight(m, weights) / weights["none"]
+    return w
+
+
+def _testable(ft: FaultFit, none_fit: FaultFit, uncertainty: np.ndarray) -> bool:
+    """Whether the readings taken can tell ``ft``'s hypothesis from ``none``
+    (:data:`TESTABLE_SIGMA`); a reading one of them cannot produce tells them apart."""
+    if ft.fault.kind == "none":
+        return True
+    a, b = ft.predicted, none_fit.predicted
+    with np.errstate(invalid="ignore"):
+        diff = np.abs(a - b) / uncertainty
+    diff = np.where(np.isnan(a) ^ np.isnan(b), np.inf, diff)
+    return bool(np.nanmax(diff, initial=0.0) >= TESTABLE_SIGMA)
+
+
+def score_hypotheses(
+    board: Board,
+    fits: list[FaultFit],
+    none_fit: FaultFit,
+    weights: dict[str, float],
+    n_obs: int,
+    uncertainty: np.ndarray | None = None,
+) -> list[Hypothesis]:
+    """Score, weigh and rank fitted hypotheses (single faults and pairs alike).
+
+    ``uncertainty`` holds the readings' standard uncertainties, for :attr:`testable`
+    (without it every hypothesis counts as testable).
+    """
     from scipy.special import chdtrc
 
     scores, logpost, notes = [], [], []
     for ft in fits:
-        cplx = _complexity(ft)
+        cplx = complexity_term(ft)
         score = ft.chi_square + cplx
-        w = _weight(ft.fault, weights)
+        w = hypothesis_weight(ft.fault, weights)
         note = _STATUS_NOTES.get(ft.status, "")
         if ft.status != "no-operating-point" and not math.isfinite(score):
             note = "no usable posterior covariance: probability set to 0"
@@ -155,45 +217,70 @@ def score_hypotheses(board, fits, none_fit, weights, n_obs) -> list[Hypothesis]:
     hyps = []
     for ft, (cplx, score), p, note in zip(fits, scores, prob, notes, strict=True):
         f = ft.fault
-        h_value = h_stderr = h_nearest = None
-        series = None
-        slip_k = 0
-        nominal = _nominal(board, f.ref)
-        if f.kind == "wrong-value":
-            h_value, h_stderr = ft.value(f.ref), ft.stderr(f.ref)
-            series = _series_of(board, f.ref)
-            h_nearest = nearest(h_value, series)
-            slip_k = _slip_decades(nominal, h_nearest, series)
+        parts = [_fault_entry(board, ft, m) for m in f.parts]
+        single = parts[0] if len(parts) == 1 else None
+        if f.members:
+            check_text = "; ".join(
+                f"{m.label}: {check(board, replace(ft, fault=m), none_fit, e['value'], e['nearest'], e['series'], e['slip_decades'])}"
+                for m, e in zip(f.members, parts, strict=True)
+            )
+            same_as: tuple[str, ...] = ()
+        else:
+            e = single or {}
+            check_text = check(board, ft, none_fit, e.get("value"), e.get("nearest"),
+                               e.get("series"), e.get("slip_decades", 0))
+            same_as = tuple(same.get((f.ref, f.kind), ()))
+        e = single or {}
+        slip_k = int(e.get("slip_decades", 0))
         hyps.append(
             Hypothesis(
-                ref=f.ref or None,
+                ref=(f.ref or None) if not f.members else None,
                 fault=f.kind,
-                value=h_value,
+                value=e.get("value"),
                 chi_square=ft.chi_square,
                 probability=float(p),
                 description=f.description,
-                prior_weight=_weight(f, weights),
+                prior_weight=hypothesis_weight(f, weights),
                 complexity=cplx,
                 score=score,
                 dof=n_obs,
                 p_value=float(chdtrc(n_obs, ft.chi_square)) if math.isfinite(score) else 0.0,
                 converged=ft.converged,
-                stderr=h_stderr,
-                nominal=nominal,
-                nearest=h_nearest,
-                series=series,
+                stderr=e.get("stderr"),
+                nominal=_nominal(board, f.ref) if not f.members else None,
+                nearest=e.get("nearest"),
+                series=e.get("series"),
                 decade_slip=bool(slip_k),
                 slip_decades=slip_k,
                 fitted=_fitted(ft),
-                check=check(board, ft, none_fit, h_value, h_nearest, series, slip_k),
-                same_as=tuple(same.get((f.ref, f.kind), ())),
+                check=check_text,
+                same_as=same_as,
                 aliases=f.aliases,
                 note=note,
                 fit=ft,
+                faults=tuple(
+                    {"ref": pe["ref"], "fault": pe["fault"], "value": pe["value"]}
+                    for pe in parts
+                ),
+                testable=True if uncertainty is None else _testable(ft, none_fit, uncertainty),
             )
         )
     hyps.sort(key=lambda h: (-h.probability, h.score if math.isfinite(h.score) else math.inf))
     return hyps
+
+
+def _fault_entry(board: Board, ft: FaultFit, fault: Fault) -> dict:
+    """One fault of a hypothesis as fitted: ref, kind, and for a wrong value the fitted
+    value, its standard error, the nearest standard value and any decade slip."""
+    out = {"ref": fault.ref, "fault": fault.kind, "value": None, "stderr": None,
+           "nearest": None, "series": None, "slip_decades": 0}
+    if fault.kind == "wrong-value":
+        value = ft.value(fault.ref)
+        series = _series_of(board, fault.ref)
+        near = nearest(value, series)
+        out.update(value=value, stderr=ft.stderr(fault.ref), nearest=near, series=series,
+                   slip_decades=_slip_decades(_nominal(board, fault.ref), near, series))
+    return out
 
 
 def _nominal(board: Board, ref: str) -> float | None:
@@ -247,9 +334,10 @@ def _fitted(ft: FaultFit) -> dict:
     """What the fitted board looks like: small signal, regions, parts pulled off."""
     out: dict = {k: v for k, v in ft.small_signal.items()}
     out["regions"] = dict(ft.regions)
+    faulted = {m.ref for m in ft.fault.parts}
     off = {}
     for j, fp in enumerate(ft.space.parameters):
-        if not ft.free[j] or fp.key == ft.fault.ref or fp.kind not in OFF_TOLERANCE_KINDS:
+        if not ft.free[j] or fp.key in faulted or fp.kind not in OFF_TOLERANCE_KINDS:
             continue
         if fp.tolerance_low is None or fp.tolerance_high is None:
             continue

@@ -36,3 +36,29 @@ def chunk_progress(
             progress.update(task, completed=done)
 
         yield update
+
+
+@contextlib.contextmanager
+def step_progress(
+    description: str, *, enabled: bool = True
+) -> Iterator[Callable[[int, int], None] | None]:
+    """Yield an ``on_progress(done, total)`` callback for work counted in steps whose
+    total is known only as it goes (the pair search of a diagnosis): a transient bar on
+    stderr, or None when disabled."""
+    if not enabled:
+        yield None
+        return
+    progress = Progress(
+        TextColumn("{task.description}"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        console=Console(stderr=True),
+        transient=True,
+    )
+    with progress:
+        task = progress.add_task(description, total=None)
+
+        def update(done: int, total: int) -> None:
+            progress.update(task, completed=done, total=total)
+
+        yield update

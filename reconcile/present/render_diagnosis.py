@@ -48,6 +48,10 @@ def _label(h: Hypothesis) -> str:
 
 
 def _fault_value(h: Hypothesis) -> str:
+    if h.n_faults > 1:
+        return "; ".join(
+            f"{f['ref']} {_value(f['value'], 'Ω')}" for f in h.faults if f["value"] is not None
+        )
     if h.fault != "wrong-value" or h.value is None:
         return ""
     text = f"{_value(h.value, 'Ω')} ± {_value(h.stderr, 'Ω')}"
@@ -176,6 +180,14 @@ def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3) -> Gro
         parts.append(
             f"[{STYLE_DIM}]no operating point (probability 0): "
             f"{', '.join(h.label for h in failed)}[/]"
+        )
+    if diag.pair_search is not None:
+        ps = diag.pair_search
+        parts.append(
+            f"[{STYLE_DIM}]Pairs of faults: {ps.fitted} of {ps.candidates} fitted exactly, "
+            f"the rest ranked below them by an optimistic score from the single fits "
+            f"(stopped by {ps.stopped_by}); a pair's prior is the product of its faults' "
+            f"odds against none.[/]"
         )
     parts.append(
         f"[{STYLE_DIM}]Probabilities use prior weights over fault kinds "
