@@ -215,13 +215,6 @@ class _Batch:
                     self.vq_fixed[:, tr, k] = self.v_fixed[:, x]
 
     # ------------------------------------------------------------------ pieces
-    def full_voltages(self, idx: np.ndarray, v_free: np.ndarray, scale: float = 1.0) -> np.ndarray:
-        size = self.circuit.n_nodes + 1
-        v = np.zeros((len(idx), size))
-        v[:, self.free] = v_free
-        v[:, self.fixed] = self.v_fixed[idx] * scale
-        return v
-
     def junctions(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """npn-frame vbe, vbc (M, nT) from full node voltages (M, size)."""
         q = self.circuit.transistor_nodes
