@@ -41,6 +41,7 @@ def _sections(text: str) -> dict[str, str]:
     return dict(parts)
 
 
+@pytest.mark.slow
 def test_report_has_every_section_with_an_embedded_plot(report_file):
     text = report_file.read_text(encoding="utf-8")
     sections = _sections(text)
@@ -51,6 +52,7 @@ def test_report_has_every_section_with_an_embedded_plot(report_file):
     assert "Bench safety" in text and "ESD" in text
 
 
+@pytest.mark.slow
 def test_report_needs_no_network(report_file):
     text = report_file.read_text(encoding="utf-8")
     assert not re.search(r'(src|href)="(https?:)?//', text)
@@ -87,6 +89,7 @@ def chromium() -> str:
     return path
 
 
+@pytest.mark.slow
 def test_report_renders_in_headless_chromium(report_file, chromium, tmp_path):
     url = report_file.resolve().as_uri()
     dom = subprocess.run(
