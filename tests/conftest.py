@@ -19,13 +19,10 @@ _marked: set[str] = set()
 
 
 def pytest_runtest_logreport(report: pytest.TestReport) -> None:
+    # reports carry the test's keywords (its markers among them), also from xdist workers
     _durations[report.nodeid] = _durations.get(report.nodeid, 0.0) + report.duration
-
-
-@pytest.hookimpl(tryfirst=True)
-def pytest_runtest_setup(item: pytest.Item) -> None:
-    if item.get_closest_marker("slow") is not None:
-        _marked.add(item.nodeid)
+    if "slow" in report.keywords:
+        _marked.add(report.nodeid)
 
 
 def pytest_terminal_summary(terminalreporter) -> None:
