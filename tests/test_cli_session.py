@@ -24,7 +24,8 @@ def run(*args: str, store: Path) -> subprocess.CompletedProcess:
 
 
 @pytest.mark.slow
-def test_session_round_trip_and_fit_from_session_equals_fit_from_file(tmp_path):
+def test_session_round_trip_and_fit_from_session_self_consistency(tmp_path):
+    # Self-consistency check: a fit from a session equals the fit from the same file.
     store = tmp_path / "s.sqlite"
     new = run(
         "session",
