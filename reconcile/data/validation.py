@@ -23,16 +23,27 @@ from __future__ import annotations
 
 import math
 import unicodedata
-from typing import TYPE_CHECKING
+from typing import Protocol
 
 from reconcile.data.csv_rows import MAX_CELL_CHARS
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.quantities import MIN_RELATIVE_UNCERTAINTY, REGISTRY
 
-if TYPE_CHECKING:
-    from reconcile.data.readings import Reading
-
 __all__ = ["check_reading", "reading_problems", "text_problem"]
+
+
+class Reading(Protocol):
+    """What the rule reads of a reading (:class:`reconcile.data.readings.Reading`; named
+    structurally so that this module does not import the readings module, which uses it)."""
+
+    quantity: str
+    at: str
+    value: float
+    uncertainty: float | None
+    instrument: str
+    note: str
+    device: str
+    line: int | None
 
 
 def _si(x: float, unit: str) -> str:
