@@ -528,6 +528,7 @@ def capture_simulated_demo(
     CaptureReport
     """
     from reconcile.capture.run import Capture
+    from reconcile.data.derived_readings import series_resistor_uncertainty
 
     if series_resistor_ohm is None:
         target = board.spec.targets.get("input_resistance")
@@ -540,7 +541,7 @@ def capture_simulated_demo(
         gain=gain and has_signal,
         input_resistance=input_resistance and has_signal,
         series_resistor_ohm=series_resistor_ohm,
-        series_resistor_u_ohm=series_tolerance * series_resistor_ohm / math.sqrt(3.0),
+        series_resistor_u_ohm=series_resistor_uncertainty(series_resistor_ohm, series_tolerance),
         show=show,
         **kwargs,
     )
