@@ -7,6 +7,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_data"
 
@@ -21,7 +23,9 @@ def run(*args: str, store: Path) -> subprocess.CompletedProcess:
     )
 
 
-def test_session_round_trip_and_fit_from_session_equals_fit_from_file(tmp_path):
+@pytest.mark.slow
+def test_session_round_trip_and_fit_from_session_self_consistency(tmp_path):
+    # Self-consistency check: a fit from a session equals the fit from the same file.
     store = tmp_path / "s.sqlite"
     new = run(
         "session",

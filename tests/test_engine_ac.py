@@ -76,7 +76,7 @@ def test_pi_capacitance_follows_the_transition_frequency() -> None:
                                                                            rel=1e-12)
 
 
-def test_without_ft_and_c_mu_nothing_changes_at_any_frequency() -> None:
+def test_without_ft_and_c_mu_nothing_changes_self_consistency() -> None:
     # Self-consistency check: a board without device capacitances gives the same
     # response as the signal-frequency solve of a board at that frequency.
     p = dict(CE)
@@ -89,7 +89,7 @@ def test_without_ft_and_c_mu_nothing_changes_at_any_frequency() -> None:
 
 
 @pytest.mark.parametrize("name", SAMPLES)
-def test_batched_over_samples_and_frequencies_in_chunks(name: str, monkeypatch) -> None:
+def test_chunks_of_samples_and_frequencies_self_consistency(name: str, monkeypatch) -> None:
     # Self-consistency check: (samples x frequencies) in one call, cut into chunks of
     # 7 rows (as a small memory budget would), equals one frequency at a time.
     from reconcile.engine import small_signal

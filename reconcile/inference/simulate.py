@@ -10,12 +10,8 @@ from __future__ import annotations
 import numpy as np
 
 from reconcile.model.board import Board
-from reconcile.model.quantities import REGISTRY
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
-
-#: quantity -> SI unit, from the registry (kept for older imports)
-UNITS = {q.name: q.unit for q in REGISTRY.values()}
 
 
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
