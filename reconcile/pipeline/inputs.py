@@ -168,10 +168,6 @@ class AnalysisInputs:
         return dataclasses.replace(self, options=dataclasses.replace(self.options, **changes))
 
     # ------------------------------------------------------------ using
-    @property
-    def has_readings(self) -> bool:
-        return self.readings is not None
-
     def reading_list(self) -> list[Reading]:
         """The readings as a fresh list (the analyses take lists); [] in design mode."""
         return list(self.readings or ())
