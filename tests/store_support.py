@@ -3,9 +3,11 @@ process runner. Imported by ``test_store.py`` and by the writer child ``store_wr
 
 from __future__ import annotations
 
+import contextlib
 import os
 import pwd
-from collections.abc import Callable
+import secrets
+from collections.abc import Callable, Iterator
 
 from reconcile.data.readings import Reading
 
@@ -97,3 +99,47 @@ def run_unprivileged(job: Callable[[], str]) -> str:
     os.close(read_end)
     os.waitpid(pid, 0)
     return b"".join(chunks).decode("utf-8")
+
+
+PG_URL = os.environ.get("RECONCILE_TEST_PG_URL", "")
+
+
+def pg_unavailable(reason: str) -> None:
+    """Skip a PostgreSQL test locally; fail it under ``CI=true``."""
+    import pytest
+
+    if os.environ.get("CI") == "true":
+        pytest.fail(f"{reason}; with CI=true the PostgreSQL store tests must run")
+    pytest.skip(f"{reason}: PostgreSQL store tests skipped (.ci/postgres.sh starts a server)")
+
+
+def pg_admin_url():
+    import sqlalchemy as sa
+
+    return sa.make_url(PG_URL).set(drivername="postgresql+psycopg")
+
+
+@contextlib.contextmanager
+def pg_database() -> Iterator[str]:
+    """A new, empty PostgreSQL database on the server of RECONCILE_TEST_PG_URL, as a URL
+    (with its password, if any); dropped afterwards."""
+    import pytest
+    import sqlalchemy as sa
+
+    if not PG_URL:
+        pg_unavailable("RECONCILE_TEST_PG_URL is not set")
+    admin = sa.create_engine(
+        pg_admin_url(), isolation_level="AUTOCOMMIT", connect_args={"connect_timeout": 5})
+    name = "reconcile_t_" + secrets.token_hex(6)
+    try:
+        with admin.connect() as conn:
+            conn.exec_driver_sql(f'CREATE DATABASE "{name}"')
+    except sa.exc.OperationalError as exc:
+        admin.dispose()
+        pytest.fail(f"PostgreSQL server in RECONCILE_TEST_PG_URL is not reachable: {exc}")
+    try:
+        yield pg_admin_url().set(database=name).render_as_string(hide_password=False)
+    finally:
+        with admin.connect() as conn:
+            conn.exec_driver_sql(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+        admin.dispose()

@@ -114,6 +114,7 @@ def test_lot_bad_option_is_exit_2():
     assert out.returncode == 2 and "--current" in out.stderr
 
 
+@pytest.mark.slow
 def test_trim_json_contract_and_design_mode():
     out = run(
         "trim", str(SAMPLES / "line_receiver_cb.toml"), str(SAMPLES / "line_receiver_built.csv"),
@@ -147,6 +148,7 @@ def test_diagnose_json_contract():
     assert probs == sorted(probs, reverse=True)
 
 
+@pytest.mark.slow
 def test_demo_tells_the_whole_story_inside_its_folder(tmp_path):
     out_dir = tmp_path / "demo"
     out = run("demo", "--json", "--out", str(out_dir))

@@ -7,6 +7,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_data"
 
@@ -21,6 +23,7 @@ def run(*args: str, store: Path) -> subprocess.CompletedProcess:
     )
 
 
+@pytest.mark.slow
 def test_session_round_trip_and_fit_from_session_equals_fit_from_file(tmp_path):
     store = tmp_path / "s.sqlite"
     new = run(

@@ -138,6 +138,7 @@ def _rank(diag, ref: str, kind: str) -> int:
 
 
 # ---------------------------------------------------------------------- accuracy
+@pytest.mark.slow
 def test_injected_single_faults_found() -> None:
     """Top-1 right in >= 90 % and top-3 in >= 98 % of visible injected single faults,
     over four topologies (common base, split-emitter common emitter, npn + pnp two
@@ -160,6 +161,7 @@ def test_injected_single_faults_found() -> None:
     assert top3 >= 0.98, misses
 
 
+@pytest.mark.slow
 def test_fault_free_boards_rank_none_first() -> None:
     """Boards built within tolerance rank ``none`` first in >= 90 % of cases."""
     firsts = []

@@ -30,6 +30,9 @@ from scipy import stats
 from reconcile.inference.fitting import fit_board
 from reconcile.inference.simulate import full_plan
 
+# every test shares the module's fixture of 200 fits (about 9 s, more on a loaded machine)
+pytestmark = pytest.mark.slow
+
 #: (sample board, readings added to :func:`full_plan`)
 CASES = (
     ("line_receiver_cb", (("resistance", "RE"),)),

@@ -12,6 +12,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_data"
 
@@ -44,6 +46,7 @@ def test_session_list_and_show_print_markup_like_text_as_typed(tmp_path):
     assert "[rev/B]" in shown.stdout and ":smile: $x^$ \\" in shown.stdout
 
 
+@pytest.mark.slow
 def test_ascii_terminal_degrades_instead_of_crashing(tmp_path):
     # PYTHONIOENCODING=ascii: characters such as ± and Ω must not raise UnicodeEncodeError.
     out = run(

@@ -41,6 +41,7 @@ def _sections(text: str) -> dict[str, str]:
     return dict(parts)
 
 
+@pytest.mark.slow
 def test_report_has_every_section_with_an_embedded_plot(report_file):
     text = report_file.read_text(encoding="utf-8")
     sections = _sections(text)
@@ -51,6 +52,7 @@ def test_report_has_every_section_with_an_embedded_plot(report_file):
     assert "Bench safety" in text and "ESD" in text
 
 
+@pytest.mark.slow
 def test_report_needs_no_network(report_file):
     text = report_file.read_text(encoding="utf-8")
     assert not re.search(r'(src|href)="(https?:)?//', text)
@@ -87,6 +89,7 @@ def chromium() -> str:
     return path
 
 
+@pytest.mark.slow
 def test_report_renders_in_headless_chromium(report_file, chromium, tmp_path):
     url = report_file.resolve().as_uri()
     dom = subprocess.run(
@@ -116,3 +119,17 @@ def test_report_renders_in_headless_chromium(report_file, chromium, tmp_path):
     pixels = mpimg.imread(shot)
     assert pixels.shape[0] >= 3000 and pixels.shape[1] >= 1000
     assert float(pixels[..., :3].std()) > 0.05  # not a blank page
+
+
+def test_report_embeds_the_parsed_board_not_the_file_with_its_comments(report_file):
+    text = report_file.read_text(encoding="utf-8")
+    source = (SAMPLES / "line_receiver_cb.toml").read_text(encoding="utf-8")
+    comments = [line.split("#", 1)[1].strip() for line in source.splitlines() if "#" in line]
+    assert comments, "the sample board should have comments for this check"
+    for comment in comments:
+        assert comment not in text, comment
+    board = load_board(SAMPLES / "line_receiver_cb.toml")
+    board_part = _sections(text)["board"]
+    assert "comments are not copied" in board_part
+    for r in board.resistors.values():  # the values as read, in ohms (self-consistency)
+        assert f"&quot;ohms&quot;: {r.ohms!r}" in board_part, r.ref

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import json
 import os
-import secrets
 import signal
 import socket
 import sqlite3
@@ -30,6 +29,7 @@ from store_support import (
     BOARD_TOML,
     READINGS_CSV,
     numbered_reading,
+    pg_database,
     run_unprivileged,
 )
 
@@ -42,40 +42,14 @@ from reconcile.store.schema import SCHEMA_VERSION
 
 TESTS = Path(__file__).resolve().parent
 WRITER = TESTS / "store_writer.py"
-PG_URL = os.environ.get("RECONCILE_TEST_PG_URL", "")
 
 
 # ----------------------------------------------------------------------------- fixtures
-def _pg_unavailable(reason: str) -> None:
-    if os.environ.get("CI") == "true":
-        pytest.fail(f"{reason}; with CI=true the PostgreSQL store tests must run")
-    pytest.skip(f"{reason}: PostgreSQL store tests skipped (.ci/postgres.sh starts a server)")
-
-
-def _pg_admin_url() -> sa.URL:
-    return sa.make_url(PG_URL).set(drivername="postgresql+psycopg")
-
-
 @pytest.fixture
 def pg_location() -> Iterator[str]:
     """A new, empty PostgreSQL database for one test; dropped afterwards."""
-    if not PG_URL:
-        _pg_unavailable("RECONCILE_TEST_PG_URL is not set")
-    admin = sa.create_engine(
-        _pg_admin_url(), isolation_level="AUTOCOMMIT", connect_args={"connect_timeout": 5})
-    name = "reconcile_t_" + secrets.token_hex(6)
-    try:
-        with admin.connect() as conn:
-            conn.exec_driver_sql(f'CREATE DATABASE "{name}"')
-    except sa.exc.OperationalError as exc:
-        admin.dispose()
-        pytest.fail(f"PostgreSQL server in RECONCILE_TEST_PG_URL is not reachable: {exc}")
-    try:
-        yield _pg_admin_url().set(database=name).render_as_string(hide_password=False)
-    finally:
-        with admin.connect() as conn:
-            conn.exec_driver_sql(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
-        admin.dispose()
+    with pg_database() as url:
+        yield url
 
 
 @pytest.fixture(params=["sqlite", pytest.param("postgresql", marks=pytest.mark.postgres)])

@@ -362,6 +362,7 @@ def _case(k: int, rng: np.random.Generator) -> tuple[Board, Board, list]:
     return board, truth, plan
 
 
+@pytest.mark.slow
 def test_top_option_fixes_the_true_board() -> None:
     # Synthetic built boards that miss spec (truth known), readings with noise, fitted,
     # trimmed; the top option is fitted to the TRUE board (new parts drawn within their

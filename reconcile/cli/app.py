@@ -499,6 +499,7 @@ def main() -> None:
     purpose is caught here.
     """
     from reconcile.present.console import tolerate_narrow_encoding
+    from reconcile.store.redact import redact  # stdlib only; no password is ever printed
 
     tolerate_narrow_encoding()
     try:
@@ -506,7 +507,7 @@ def main() -> None:
     except ReconcileError as err:
         if _state["debug"]:
             raise
-        sys.stderr.write(f"reconcile: {err}\n")
+        sys.stderr.write(f"reconcile: {redact(str(err))}\n")
         sys.exit(err.exit_code)
     except KeyboardInterrupt:
         sys.stderr.write("reconcile: interrupted\n")
@@ -517,7 +518,8 @@ def main() -> None:
         if _state["debug"]:
             raise
         name = getattr(err, "filename", None)
-        sys.stderr.write(f"reconcile: {str(name) + ': ' if name else ''}{err.strerror or err}\n")
+        where = redact(str(name)) + ": " if name else ""
+        sys.stderr.write(f"reconcile: {where}{redact(str(err.strerror or err))}\n")
         sys.exit(2)
 
 

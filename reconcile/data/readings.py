@@ -32,10 +32,10 @@ import io
 import math
 import os
 import re
-from collections.abc import Iterable, Iterator
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 
-from reconcile.data import csv_dialect
+from reconcile.data import csv_dialect, csv_rows
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.text_files import read_text
@@ -218,17 +218,12 @@ def readings_from_text(
     dialect = _dialect(text, path)
     if notices is not None and dialect.notice:
         notices.append(f"{path}: {dialect.notice}")
-    rows = _csv_rows(text, dialect.delimiter)
-    header = next(rows, None)
-    if header is None:
-        raise InputErrors([InputError(
-            "no header line: the first line must be " + ",".join(COLUMNS[:7]), path=path
-        )])
-    header_line, header_cells = header
+    split = csv_rows.read_rows(text, path, delimiter=dialect.delimiter)
+    header_line, header_cells = split.header(",".join(COLUMNS[:7]), path)
     index = _header_index(header_cells, header_line, path)
-    errors: list[InputError] = []
+    errors: list[InputError] = list(split.errors)
     readings: list[Reading] = []
-    for line, cells in rows:
+    for line, cells in split.body:
         if len(cells) > len(header_cells) and any(c.strip() for c in cells[len(header_cells):]):
             errors.append(InputError(
                 f"row has {len(cells)} cells but the header has {len(header_cells)}: "
@@ -254,36 +249,17 @@ def readings_from_text(
         if reading is not None:
             readings.append(reading)
     if errors:
-        raise InputErrors(errors)
+        raise InputErrors(sorted(errors, key=lambda e: e.line or 0))
     return readings
 
 
 def _dialect(text: str, path: str) -> csv_dialect.Dialect:
     """The separator and decimal mark, decided by the header line."""
-    for number, line in enumerate(text.splitlines(), start=1):
-        stripped = line.strip()
-        if stripped and not stripped.startswith("#"):
-            return csv_dialect.detect(line, COLUMNS, path=path, line=number)
-    return csv_dialect.COMMA
-
-
-def _csv_rows(text: str, delimiter: str = ",") -> Iterator[tuple[int, list[str]]]:
-    """(line number, cells) for every row that is not a comment or blank."""
-    start: list[int | None] = [None]
-
-    def lines() -> Iterator[str]:
-        for number, line in enumerate(text.splitlines(keepends=True), start=1):
-            if start[0] is None:
-                stripped = line.strip()
-                if not stripped or stripped.startswith("#"):
-                    continue
-                start[0] = number
-            yield line
-
-    for cells in csv.reader(lines(), delimiter=delimiter):
-        number, start[0] = start[0], None
-        if any(c.strip() for c in cells):
-            yield number or 0, cells
+    found = csv_rows.first_line(text)
+    if found is None:
+        return csv_dialect.COMMA
+    number, line = found
+    return csv_dialect.detect(line, COLUMNS, path=path, line=number)
 
 
 def _suggest(word: str, choices: Iterable[str]) -> str:

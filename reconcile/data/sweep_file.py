@@ -46,6 +46,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from reconcile.data import csv_rows
 from reconcile.data.readings import COUNTS_FULL_SCALE, DEFAULT_UNCERTAINTY, UncertaintyRule
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.text_files import read_text
@@ -114,13 +115,11 @@ class SweepSet:
 # ------------------------------------------------------------------------ loading
 def is_sweep_text(text: str) -> bool:
     """True when the first non-comment line is a sweep header (has vbe, ic and ib)."""
-    for line in text.removeprefix("\ufeff").splitlines():
-        s = line.strip()
-        if not s or s.startswith("#"):
-            continue
-        names = {c.strip().lower() for c in next(csv.reader([s]))}
-        return {"vbe", "ic", "ib"} <= names
-    return False
+    found = csv_rows.first_line(text)
+    if found is None:
+        return False
+    names = {c.strip().strip('"').lower() for c in found[1].split(",")}
+    return {"vbe", "ic", "ib"} <= names
 
 
 def load_sweeps(path: str | os.PathLike[str], *, temperature_k: float | None = None) -> SweepSet:
@@ -250,26 +249,17 @@ def sweeps_from_text(
 ) -> SweepSet:
     """Parse sweep CSV text; see :func:`load_sweeps`."""
     t_default = DEFAULT_TEMPERATURE_K if temperature_k is None else float(temperature_k)
-    lines = text.removeprefix("\ufeff").splitlines()
-    numbered = [
-        (i + 1, ln) for i, ln in enumerate(lines) if ln.strip() and not ln.lstrip().startswith("#")
-    ]
-    if not numbered:
-        raise InputErrors([InputError(
-            "no header line: the first line must be " + ",".join(SWEEP_COLUMNS[:4]), path=path
-        )])
-    rows = csv.reader([ln for _, ln in numbered])
-    header = [c.strip().lower() for c in next(rows)]
-    index = _header_index(header, numbered[0][0], path)
+    split = csv_rows.read_rows(text, path)
+    header_line, header_cells = split.header(",".join(SWEEP_COLUMNS[:4]), path)
+    header = [c.strip().lower() for c in header_cells]
+    index = _header_index(header, header_line, path)
 
-    errors: list[InputError] = []
+    errors: list[InputError] = list(split.errors)
     names: list[str] = []
     cols = {c: [] for c in ("vbe", "ic", "ib", "u_vbe", "u_ic", "u_ib", "vce", "t")}
     line_of: list[int] = []
-    for (line, _), cells in zip(numbered[1:], rows, strict=True):
-        cells = [c.strip() for c in cells]
-        if not any(cells):
-            continue
+    for line, row in split.body:
+        cells = [c.strip() for c in row]
         device, values, t, problems = _parse_row(cells, index, t_default)
         if problems:
             errors.extend(InputError(p, path=path, line=line) for p in problems)
@@ -280,7 +270,7 @@ def sweeps_from_text(
             cols[name].append(values[name])
         cols["t"].append(t)
     if errors:
-        raise InputErrors(errors)
+        raise InputErrors(sorted(errors, key=lambda e: e.line or 0))
     if not names:
         raise InputErrors([InputError("the sweep file has no points", path=path)])
     return _assemble(names, {k: np.asarray(v, dtype=float) for k, v in cols.items()},

@@ -150,11 +150,6 @@ class Diagnosis:
                 return h
         raise KeyError(f"no hypothesis {ref} {fault}")
 
-    def rank(self, ref: str | None, fault: str) -> int:
-        """1-based rank of a hypothesis."""
-        target = self.hypothesis(ref, fault)
-        return next(i for i, h in enumerate(self.hypotheses, start=1) if h is target)
-
     def to_dict(self) -> dict:
         """The contract's ``diagnose`` JSON object (plus method details)."""
         return {

@@ -192,8 +192,19 @@ def score_hypotheses(
     ``uncertainty`` holds the readings' standard uncertainties, for :attr:`testable`
     (without it every hypothesis counts as testable).
     """
-    from scipy.special import chdtrc
+    scores, prob, notes = _posterior(fits, weights)
+    same = _same_node_shorts(board)
+    hyps = [
+        _hypothesis(board, ft, none_fit, weights, n_obs, uncertainty, cplx, score, p, note, same)
+        for ft, (cplx, score), p, note in zip(fits, scores, prob, notes, strict=True)
+    ]
+    hyps.sort(key=lambda h: (-h.probability, h.score if math.isfinite(h.score) else math.inf))
+    return hyps
 
+
+def _posterior(fits: list[FaultFit], weights: dict[str, float]):
+    """Each fit's (complexity, score), its posterior probability among ``fits``, and a
+    note for a fit that cannot be scored."""
     scores, logpost, notes = [], [], []
     for ft in fits:
         cplx = complexity_term(ft)
@@ -213,60 +224,68 @@ def score_hypotheses(
         top = lp[finite].max()
         e = np.where(finite, np.exp(lp - top), 0.0)
         prob = e / e.sum()
-    same = _same_node_shorts(board)
-    hyps = []
-    for ft, (cplx, score), p, note in zip(fits, scores, prob, notes, strict=True):
-        f = ft.fault
-        parts = [_fault_entry(board, ft, m) for m in f.parts]
-        single = parts[0] if len(parts) == 1 else None
-        if f.members:
-            check_text = "; ".join(
-                f"{m.label}: {check(board, replace(ft, fault=m), none_fit, e['value'], e['nearest'], e['series'], e['slip_decades'])}"
-                for m, e in zip(f.members, parts, strict=True)
-            )
-            same_as: tuple[str, ...] = ()
-        else:
-            e = single or {}
-            check_text = check(board, ft, none_fit, e.get("value"), e.get("nearest"),
-                               e.get("series"), e.get("slip_decades", 0))
-            same_as = tuple(same.get((f.ref, f.kind), ()))
-        e = single or {}
-        slip_k = int(e.get("slip_decades", 0))
-        hyps.append(
-            Hypothesis(
-                ref=(f.ref or None) if not f.members else None,
-                fault=f.kind,
-                value=e.get("value"),
-                chi_square=ft.chi_square,
-                probability=float(p),
-                description=f.description,
-                prior_weight=hypothesis_weight(f, weights),
-                complexity=cplx,
-                score=score,
-                dof=n_obs,
-                p_value=float(chdtrc(n_obs, ft.chi_square)) if math.isfinite(score) else 0.0,
-                converged=ft.converged,
-                stderr=e.get("stderr"),
-                nominal=_nominal(board, f.ref) if not f.members else None,
-                nearest=e.get("nearest"),
-                series=e.get("series"),
-                decade_slip=bool(slip_k),
-                slip_decades=slip_k,
-                fitted=_fitted(ft),
-                check=check_text,
-                same_as=same_as,
-                aliases=f.aliases,
-                note=note,
-                fit=ft,
-                faults=tuple(
-                    {"ref": pe["ref"], "fault": pe["fault"], "value": pe["value"]}
-                    for pe in parts
-                ),
-                testable=True if uncertainty is None else _testable(ft, none_fit, uncertainty),
-            )
+    return scores, prob, notes
+
+
+def _hypothesis(board: Board, ft: FaultFit, none_fit: FaultFit, weights: dict[str, float],
+                n_obs: int, uncertainty: np.ndarray | None, cplx: float, score: float,
+                p: float, note: str, same: dict) -> Hypothesis:
+    """One scored fit as the :class:`Hypothesis` the user reads."""
+    from scipy.special import chdtrc
+
+    f = ft.fault
+    parts = [_fault_entry(board, ft, m) for m in f.parts]
+    e = parts[0] if len(parts) == 1 else {}
+    check_text, same_as = _check_text(board, ft, none_fit, parts, same)
+    slip_k = int(e.get("slip_decades", 0))
+    return Hypothesis(
+        ref=(f.ref or None) if not f.members else None,
+        fault=f.kind,
+        value=e.get("value"),
+        chi_square=ft.chi_square,
+        probability=float(p),
+        description=f.description,
+        prior_weight=hypothesis_weight(f, weights),
+        complexity=cplx,
+        score=score,
+        dof=n_obs,
+        p_value=float(chdtrc(n_obs, ft.chi_square)) if math.isfinite(score) else 0.0,
+        converged=ft.converged,
+        stderr=e.get("stderr"),
+        nominal=_nominal(board, f.ref) if not f.members else None,
+        nearest=e.get("nearest"),
+        series=e.get("series"),
+        decade_slip=bool(slip_k),
+        slip_decades=slip_k,
+        fitted=_fitted(ft),
+        check=check_text,
+        same_as=same_as,
+        aliases=f.aliases,
+        note=note,
+        fit=ft,
+        faults=tuple({"ref": pe["ref"], "fault": pe["fault"], "value": pe["value"]}
+                     for pe in parts),
+        testable=True if uncertainty is None else _testable(ft, none_fit, uncertainty),
+    )
+
+
+def _check_text(board: Board, ft: FaultFit, none_fit: FaultFit, parts: list[dict],
+                same: dict) -> tuple[str, tuple[str, ...]]:
+    """The meter check of a hypothesis (one per member of a pair), and the other
+    hypotheses it cannot be told from (shorts across the same two nodes)."""
+    f = ft.fault
+    if f.members:
+        text = "; ".join(
+            f"{m.label}: "
+            + check(board, replace(ft, fault=m), none_fit, e["value"], e["nearest"],
+                    e["series"], e["slip_decades"])
+            for m, e in zip(f.members, parts, strict=True)
         )
-    hyps.sort(key=lambda h: (-h.probability, h.score if math.isfinite(h.score) else math.inf))
-    return hyps
+        return text, ()
+    e = parts[0] if len(parts) == 1 else {}
+    text = check(board, ft, none_fit, e.get("value"), e.get("nearest"), e.get("series"),
+                 e.get("slip_decades", 0))
+    return text, tuple(same.get((f.ref, f.kind), ()))
 
 
 def _fault_entry(board: Board, ft: FaultFit, fault: Fault) -> dict:

@@ -95,60 +95,24 @@ def solve_batch(
     """Solve every sample of ``params`` on ``circuit``."""
     batch = _Batch(circuit, params)
     state = solve_dc(circuit, params, initial, batch=batch)
-    all_idx = np.arange(params.n_samples)
     v = state.v
     vbe_n, vbc_n = batch.junctions(v)
-    if batch.final_system is not None:
-        jac_ff, rhs, valid = batch.final_system
-        redo = np.flatnonzero(~valid)
-        if len(redo):
-            jac_ff[redo], rhs[redo] = batch.linear_system(redo, vbe_n[redo], vbc_n[redo])
-    else:
-        jac_ff, rhs = batch.linear_system(all_idx, vbe_n, vbc_n)
+    jac_ff, rhs = _final_linear_system(batch, params, vbe_n, vbc_n)
     # At the linearisation point the linear model is exact: KCL error = J·v − rhs.
     kcl_free = (jac_ff @ v[:, circuit.free, None])[:, :, 0] - rhs
     leaving_fixed = batch.current_out_of_fixed(v)  # (N, n_fixed) through branches
-
-    q = circuit.transistor_nodes
-    pol = circuit.polarity
-    n_t = q.shape[0]
-    if n_t:
-        st = batch.device_state(all_idx, vbe_n, vbc_n)
-        ic = pol * st.ic
-        ib = pol * st.ib
-        ie = -(ic + ib)
-        vc, vb, ve = v[:, q[:, 0]], v[:, q[:, 1]], v[:, q[:, 2]]
-        gm = st.dic_dvbe + st.dic_dvbc
-        # over: a subnormal conductance (deep reverse bias, VA = inf) overflows to inf
-        with np.errstate(divide="ignore", over="ignore"):
-            rpi = 1.0 / (st.dib_dvbe + st.dib_dvbc)
-            ro = 1.0 / (-st.dic_dvbc)
-        ro = np.where(np.abs(ro) > RO_INFINITE_OHMS, np.inf, ro)
-        power = vc * ic + vb * ib + ve * ie
-        region = devices.region_codes(vbe_n, vbc_n)
-        vbe, vce = vb - ve, vc - ve
-        for t in range(n_t):
-            for k, current in enumerate((ic[:, t], ib[:, t], ie[:, t])):
-                x = batch.q_fixed[t, k]
-                if x >= 0:
-                    leaving_fixed[:, x] += current
-    else:
-        shape = (params.n_samples, 0)
-        ic = ib = ie = gm = rpi = ro = power = vbe = vce = np.zeros(shape)
-        region = np.zeros(shape, dtype=np.int8)
+    tr = _transistor_outputs(batch, circuit, params, v, vbe_n, vbc_n, leaving_fixed)
 
     rn = circuit.resistor_nodes
     dv = v[:, rn[:, 0]] - v[:, rn[:, 1]] if len(rn) else np.zeros((params.n_samples, 0))
     i_r = dv / params.resistor_ohms
-    p_r = dv * i_r
-    supply_current = leaving_fixed[:, : len(circuit.supply_refs)]
     kcl = np.max(np.abs(kcl_free), axis=1) if len(circuit.free) else np.zeros(params.n_samples)
     if len(batch.floating_rows):
         # The DC tie of floating nodes is not part of the board's small-signal model.
         jac_ff[:, batch.floating_rows, batch.floating_rows] -= FLOAT_SIEMENS
     linear = ss = None
     if small_signal and circuit.input_node is not None and circuit.output_node is not None:
-        linear = LinearModel(circuit, params, jac_ff, gm)
+        linear = LinearModel(circuit, params, jac_ff, tr["gm"])
         ss = linear.at_signal_frequency()
         if not np.all(state.converged):
             bad = ~state.converged
@@ -159,20 +123,59 @@ def solve_batch(
         params=params,
         state=state,
         node_v=v[:, : circuit.n_nodes].copy(),
-        ic=ic,
-        ib=ib,
-        ie=ie,
-        vbe=vbe,
-        vce=vce,
-        region=region,
-        gm=gm,
-        rpi=rpi,
-        ro=ro,
-        transistor_power=power,
-        supply_current=supply_current,
+        **tr,
+        supply_current=leaving_fixed[:, : len(circuit.supply_refs)],
         resistor_current=i_r,
-        resistor_power=p_r,
+        resistor_power=dv * i_r,
         kcl_residual=kcl,
         small_signal=ss,
         linear=linear,
     )
+
+
+def _final_linear_system(batch: _Batch, params: Parameters, vbe_n: np.ndarray,
+                         vbc_n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """The Newton system at the solution: reused from the last iteration where it was
+    built at the final point, rebuilt for the rest."""
+    if batch.final_system is not None:
+        jac_ff, rhs, valid = batch.final_system
+        redo = np.flatnonzero(~valid)
+        if len(redo):
+            jac_ff[redo], rhs[redo] = batch.linear_system(redo, vbe_n[redo], vbc_n[redo])
+        return jac_ff, rhs
+    return batch.linear_system(np.arange(params.n_samples), vbe_n, vbc_n)
+
+
+def _transistor_outputs(batch: _Batch, circuit: Circuit, params: Parameters, v: np.ndarray,
+                        vbe_n: np.ndarray, vbc_n: np.ndarray,
+                        leaving_fixed: np.ndarray) -> dict[str, np.ndarray]:
+    """Terminal currents, junction voltages, region, gm, rπ, ro and power of every
+    transistor (the BatchSolution fields of that name); adds the terminal currents that
+    leave the fixed nodes to ``leaving_fixed`` in place."""
+    q = circuit.transistor_nodes
+    pol = circuit.polarity
+    n_t = q.shape[0]
+    if not n_t:
+        shape = (params.n_samples, 0)
+        zero = np.zeros(shape)
+        return dict(ic=zero, ib=zero, ie=zero, vbe=zero, vce=zero,
+                    region=np.zeros(shape, dtype=np.int8), gm=zero, rpi=zero, ro=zero,
+                    transistor_power=zero)
+    st = batch.device_state(np.arange(params.n_samples), vbe_n, vbc_n)
+    ic = pol * st.ic
+    ib = pol * st.ib
+    ie = -(ic + ib)
+    vc, vb, ve = v[:, q[:, 0]], v[:, q[:, 1]], v[:, q[:, 2]]
+    # over: a subnormal conductance (deep reverse bias, VA = inf) overflows to inf
+    with np.errstate(divide="ignore", over="ignore"):
+        rpi = 1.0 / (st.dib_dvbe + st.dib_dvbc)
+        ro = 1.0 / (-st.dic_dvbc)
+    ro = np.where(np.abs(ro) > RO_INFINITE_OHMS, np.inf, ro)
+    for t in range(n_t):
+        for k, current in enumerate((ic[:, t], ib[:, t], ie[:, t])):
+            x = batch.q_fixed[t, k]
+            if x >= 0:
+                leaving_fixed[:, x] += current
+    return dict(ic=ic, ib=ib, ie=ie, vbe=vb - ve, vce=vc - ve,
+                region=devices.region_codes(vbe_n, vbc_n), gm=st.dic_dvbe + st.dic_dvbc,
+                rpi=rpi, ro=ro, transistor_power=vc * ic + vb * ib + ve * ie)

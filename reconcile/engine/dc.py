@@ -96,6 +96,55 @@ _DEVICE_PATTERN = {
 }
 
 
+def _branch_stamps(branch: np.ndarray, pos_free: np.ndarray, pos_fixed: np.ndarray,
+                   slot_of: np.ndarray, n_f: int, n_x: int) -> tuple[_Scatter, _Scatter, _Scatter]:
+    """The branch stamps: conductances into the free-node matrix slots, the fixed nodes'
+    pull on each free node (one source per (branch, fixed node)), and the current leaving
+    each fixed node through each branch."""
+    ff, fx, out_x = ([], [], []), ([], [], []), ([], [], [])
+    for b, (i, j) in enumerate(branch.tolist()):
+        for p, sp in ((i, 1.0), (j, -1.0)):
+            if pos_fixed[p] >= 0:
+                # current leaving fixed node p through branch b: sp * i_b
+                out_x[0].append(pos_fixed[p])
+                out_x[1].append(b)
+                out_x[2].append(sp)
+                continue
+            for q, sq in ((i, 1.0), (j, -1.0)):
+                if pos_free[q] >= 0:
+                    ff[0].append(slot_of[pos_free[p] * n_f + pos_free[q]])
+                    ff[1].append(b)
+                    ff[2].append(sp * sq)
+                else:
+                    fx[0].append(pos_free[p])
+                    fx[1].append(b * n_x + pos_fixed[q])
+                    fx[2].append(-sp * sq)
+    return _Scatter(*ff), _Scatter(*fx), _Scatter(*out_x)
+
+
+def _device_stamps(q_free: np.ndarray, slot_of: np.ndarray, n_f: int) -> tuple[_Scatter, _Scatter]:
+    """The transistor stamps: the four partials of each device into the free-node matrix
+    slots (:data:`_DEVICE_PATTERN`), and the terminal currents into the free rows."""
+    jac, cur = ([], [], []), ([], [], [])
+    for tr in range(q_free.shape[0]):
+        for k in range(3):
+            pk = q_free[tr, k]
+            if pk < 0:
+                continue
+            cur[0].append(pk)
+            cur[1].append(tr * 3 + k)
+            cur[2].append(-1.0)
+            for j in range(3):
+                pj = q_free[tr, j]
+                if pj < 0:
+                    continue
+                for partial, sign in _DEVICE_PATTERN[(k, j)]:
+                    jac[0].append(slot_of[pk * n_f + pj])
+                    jac[1].append(tr * 4 + partial)
+                    jac[2].append(sign)
+    return _Scatter(*jac), _Scatter(*cur)
+
+
 class _Batch:
     """Everything per sample that Newton iterations need, computed once.
 
@@ -141,27 +190,8 @@ class _Batch:
         self.store_of = slot_of
         self.n_store = n_f * n_f if self.sparse is None else self.sparse.n_slots
         self.diag_store = slot_of[np.arange(n_f) * (n_f + 1)]
-        ff, fx, out_x = ([], [], []), ([], [], []), ([], [], [])
-        for b, (i, j) in enumerate(branch.tolist()):
-            for p, sp in ((i, 1.0), (j, -1.0)):
-                if pos_fixed[p] >= 0:
-                    # current leaving fixed node p through branch b: sp * i_b
-                    out_x[0].append(pos_fixed[p])
-                    out_x[1].append(b)
-                    out_x[2].append(sp)
-                    continue
-                for q, sq in ((i, 1.0), (j, -1.0)):
-                    if pos_free[q] >= 0:
-                        ff[0].append(slot_of[pos_free[p] * n_f + pos_free[q]])
-                        ff[1].append(b)
-                        ff[2].append(sp * sq)
-                    else:
-                        fx[0].append(pos_free[p])
-                        fx[1].append(b * n_x + pos_fixed[q])
-                        fx[2].append(-sp * sq)
-        self._branch_ff = _Scatter(*ff)
-        self._branch_fx = _Scatter(*fx)
-        self._branch_out_fixed = _Scatter(*out_x)
+        self._branch_ff, self._branch_fx, self._branch_out_fixed = _branch_stamps(
+            branch, pos_free, pos_fixed, slot_of, n_f, n_x)
         self.g_ff = np.zeros((n, self.n_store))
         self._branch_ff.add_to(self.g_ff, g)
         self.floating_rows = pos_free[circuit.dc_floating]
@@ -187,25 +217,7 @@ class _Batch:
         n_t = q.shape[0]
         self.q_free = pos_free[q] if n_t else np.zeros((0, 3), dtype=np.intp)
         self.q_fixed = pos_fixed[q] if n_t else np.zeros((0, 3), dtype=np.intp)
-        jac, cur = ([], [], []), ([], [], [])
-        for tr in range(n_t):
-            for k in range(3):
-                pk = self.q_free[tr, k]
-                if pk < 0:
-                    continue
-                cur[0].append(pk)
-                cur[1].append(tr * 3 + k)
-                cur[2].append(-1.0)
-                for j in range(3):
-                    pj = self.q_free[tr, j]
-                    if pj < 0:
-                        continue
-                    for partial, sign in _DEVICE_PATTERN[(k, j)]:
-                        jac[0].append(slot_of[pk * n_f + pj])
-                        jac[1].append(tr * 4 + partial)
-                        jac[2].append(sign)
-        self._device_jac = _Scatter(*jac)
-        self._device_cur = _Scatter(*cur)
+        self._device_jac, self._device_cur = _device_stamps(self.q_free, slot_of, n_f)
         # Fixed voltage at each transistor terminal (0 where the terminal is free).
         self.vq_fixed = np.zeros((n, n_t, 3))
         for tr in range(n_t):
@@ -215,13 +227,6 @@ class _Batch:
                     self.vq_fixed[:, tr, k] = self.v_fixed[:, x]
 
     # ------------------------------------------------------------------ pieces
-    def full_voltages(self, idx: np.ndarray, v_free: np.ndarray, scale: float = 1.0) -> np.ndarray:
-        size = self.circuit.n_nodes + 1
-        v = np.zeros((len(idx), size))
-        v[:, self.free] = v_free
-        v[:, self.fixed] = self.v_fixed[idx] * scale
-        return v
-
     def junctions(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """npn-frame vbe, vbc (M, nT) from full node voltages (M, size)."""
         q = self.circuit.transistor_nodes

@@ -140,28 +140,45 @@ def dc_sensitivity(
 
 
 def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
-    n = params.n_samples
-    size = circuit.n_nodes + 1
-    p = len(cols)
     v = np.array(state.v, dtype=float)
     v[:, circuit.gnd] = 0.0
-    free = circuit.free
-    fixed = np.concatenate([circuit.supply_nodes, [circuit.gnd]]).astype(np.intp)
-    n_s = len(circuit.supply_refs)
-    branch = circuit.branch_nodes
     g = np.concatenate(
         [1.0 / params.resistor_ohms, params.capacitor_leak_siemens, params.probe_siemens], axis=1
     )
-    n_r, n_c = len(circuit.resistor_refs), len(circuit.capacitor_refs)
+    dfdp, dv_fixed = _parameter_partials(circuit, params, v, g, cols)
+    j_rows = _node_rows(circuit, params, v, g)
+    dv = _node_derivatives(circuit, params, state, dfdp, dv_fixed, j_rows)
+    d_sup, d_res = _current_derivatives(circuit, params, v, cols, dfdp, j_rows, dv)
+    bad = ~np.asarray(state.converged, dtype=bool)
+    out_v = dv[:, :circuit.n_nodes, :]
+    if bad.any():
+        out_v[bad] = np.nan
+        d_sup[bad] = np.nan
+        d_res[bad] = np.nan
+    return out_v, d_sup, d_res
 
-    # ∂F/∂p over all nodes (N, size, P) and ∂F/∂v over the fixed nodes' rows and columns.
-    dfdp = np.zeros((n, size, p))
-    dv_fixed = np.zeros((n, size, p))  # dv/dp of fixed nodes (supplies: 1 at their own)
-    col_of = {c: k for k, c in enumerate(cols)}
+
+def _junction_voltages(circuit: Circuit, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """npn-frame vbe, vbc (N, nT) from full node voltages."""
     q = circuit.transistor_nodes
     pol = circuit.polarity
-    vbe = pol * (v[:, q[:, 1]] - v[:, q[:, 2]]) if len(q) else np.zeros((n, 0))
-    vbc = pol * (v[:, q[:, 1]] - v[:, q[:, 0]]) if len(q) else np.zeros((n, 0))
+    if not len(q):
+        return np.zeros((len(v), 0)), np.zeros((len(v), 0))
+    return pol * (v[:, q[:, 1]] - v[:, q[:, 2]]), pol * (v[:, q[:, 1]] - v[:, q[:, 0]])
+
+
+def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarray,
+                        cols) -> tuple[np.ndarray, np.ndarray]:
+    """∂F/∂p over all nodes (N, size, P), and dv/dp of the fixed nodes (supplies: 1 at
+    their own node)."""
+    n, size, p = params.n_samples, circuit.n_nodes + 1, len(cols)
+    branch = circuit.branch_nodes
+    n_r = len(circuit.resistor_refs)
+    dfdp = np.zeros((n, size, p))
+    dv_fixed = np.zeros((n, size, p))
+    q = circuit.transistor_nodes
+    pol = circuit.polarity
+    vbe, vbc = _junction_voltages(circuit, v)
     partials = _device_partials(circuit, params, vbe, vbc) if len(q) else {}
     for k, (name, j) in enumerate(cols):
         if name in ("resistor_ohms", "capacitor_leak_siemens"):
@@ -181,11 +198,16 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
             dic, dib = partials[name]
             _add_terminals(dfdp[:, :, k], q[j], pol[j] * dic[:, j], pol[j] * dib[:, j])
         else:
-            raise KeyError(f"no DC sensitivity for parameter field {name!r}")
+            raise KeyError(f"no DC sensitivity for parameter field {name!r} (one of {FIELDS})")
+    return dfdp, dv_fixed
 
-    # ∂F/∂v for the rows of every node (branches, then the transistors' conductances).
-    # Only the free block is solved against; it is the engine's own Newton matrix.
-    j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
+
+def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarray) -> np.ndarray:
+    """∂F/∂v for the rows of every node (N, size, size): the branches, then the
+    transistors' conductances. Its free block is the engine's own Newton matrix."""
+    n, size = params.n_samples, circuit.n_nodes + 1
+    branch = circuit.branch_nodes
+    q = circuit.transistor_nodes
     j_rows = np.zeros((n, size, size))
     inc = np.zeros((len(branch), size))
     if len(branch):
@@ -194,6 +216,7 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
         inc[rb, branch[:, 1]] -= 1.0
     j_rows += np.einsum("bi,nb,bj->nij", inc, g, inc, optimize=True)
     if len(q):
+        vbe, vbc = _junction_voltages(circuit, v)
         t_ = params.temperature[:, None]
         n_vt = params.n * devices.thermal_voltage(t_)
         is_t = devices.saturation_current(params.IS, t_, params.xti, params.bandgap)
@@ -208,7 +231,16 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
     if len(circuit.dc_floating):
         fl = circuit.dc_floating
         j_rows[:, fl, fl] += FLOAT_SIEMENS
+    return j_rows
 
+
+def _node_derivatives(circuit: Circuit, params: Parameters, state: DCState, dfdp: np.ndarray,
+                      dv_fixed: np.ndarray, j_rows: np.ndarray) -> np.ndarray:
+    """dv/dp of every node (N, size, P) by the implicit function theorem."""
+    n = params.n_samples
+    free = circuit.free
+    fixed = np.concatenate([circuit.supply_nodes, [circuit.gnd]]).astype(np.intp)
+    j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
     rhs = dfdp[:, free, :] + np.einsum("nij,njp->nip", j_rows[:, free][:, :, fixed],
                                        dv_fixed[:, fixed, :])
     dv = dv_fixed.copy()
@@ -225,28 +257,26 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
     dv[:, circuit.gnd, :] = 0.0
     if len(circuit.dc_floating):
         dv[:, circuit.dc_floating, :] = 0.0  # no DC voltage to speak of
+    return dv
 
+
+def _current_derivatives(circuit: Circuit, params: Parameters, v: np.ndarray, cols,
+                         dfdp: np.ndarray, j_rows: np.ndarray, dv: np.ndarray):
+    """d(supply current)/dp (N, nS, P) and d(resistor current)/dp (N, nR, P)."""
+    n, p = params.n_samples, len(cols)
     sup = circuit.supply_nodes
-    if n_s:
+    if len(circuit.supply_refs):
         d_sup = np.einsum("nij,njp->nip", j_rows[:, sup, :], dv) + dfdp[:, sup, :]
     else:
         d_sup = np.zeros((n, 0, p))
     rn = circuit.resistor_nodes
-    if n_r:
-        d_dv = dv[:, rn[:, 0], :] - dv[:, rn[:, 1], :]
-        d_res = d_dv / params.resistor_ohms[:, :, None]
-        for k, (name, j) in enumerate(cols):
-            if name == "resistor_ohms":
-                d_res[:, j, k] -= (v[:, rn[j, 0]] - v[:, rn[j, 1]]) / params.resistor_ohms[:, j] ** 2
-    else:
-        d_res = np.zeros((n, 0, p))
-    bad = ~np.asarray(state.converged, dtype=bool)
-    out_v = dv[:, :circuit.n_nodes, :]
-    if bad.any():
-        out_v[bad] = np.nan
-        d_sup[bad] = np.nan
-        d_res[bad] = np.nan
-    return out_v, d_sup, d_res
+    if not len(circuit.resistor_refs):
+        return d_sup, np.zeros((n, 0, p))
+    d_res = (dv[:, rn[:, 0], :] - dv[:, rn[:, 1], :]) / params.resistor_ohms[:, :, None]
+    for k, (name, j) in enumerate(cols):
+        if name == "resistor_ohms":
+            d_res[:, j, k] -= (v[:, rn[j, 0]] - v[:, rn[j, 1]]) / params.resistor_ohms[:, j] ** 2
+    return d_sup, d_res
 
 
 def _add_terminals(target: np.ndarray, nodes: np.ndarray, d_ic: np.ndarray, d_ib: np.ndarray):

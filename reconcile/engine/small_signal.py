@@ -239,13 +239,3 @@ class LinearModel:
         va = v[:, a] if a >= 0 else 0.0
         vb = v[:, b] if b >= 0 else 0.0
         return np.asarray(va - vb, dtype=float)
-
-
-def analyse(circuit: Circuit, params: Parameters, jac_ff: np.ndarray,
-            gm: np.ndarray | None = None) -> SmallSignal | None:
-    """Small-signal block at each sample's ``[signal]`` frequency; None without [signal]."""
-    if circuit.input_node is None or circuit.output_node is None:
-        return None
-    if gm is None:
-        gm = np.zeros((params.n_samples, len(circuit.transistor_refs)))
-    return LinearModel(circuit, params, jac_ff, gm).at_signal_frequency()

@@ -254,84 +254,36 @@ def _supply_parameter(ref: str, col: int, s) -> FreeParameter:
 
 
 def _transistor_parameters(ref: str, col: int, d) -> list[FreeParameter]:
-    """A transistor's IS and beta, and VA and n where the board gives them a range."""
-    out: list[FreeParameter] = []
-    add = out.append
+    """A transistor's IS and beta, and VA and n where the board gives them a range.
+
+    Positional fields of each :class:`FreeParameter`: key, kind, ref, column, transform,
+    prior mean and sd and the hard bounds (internal coordinates), nominal, unit, and the
+    band the board gives.
+    """
     is_sd = _range_sd(d.IS.value, d.IS.low, d.IS.high, math.log10) or DEFAULT_LOG10_IS_SD
     lo = (d.IS.low or d.IS.value / 10) / 100
     hi = (d.IS.high or d.IS.value * 10) * 100
-    add(
-        FreeParameter(
-            f"{ref}.IS",
-            "IS",
-            ref,
-            col,
-            "log10",
-            math.log10(d.IS.value),
-            is_sd,
-            math.log10(lo),
-            math.log10(hi),
-            d.IS.value,
-            "A",
-            d.IS.low,
-            d.IS.high,
-        )
-    )
+    out = [
+        FreeParameter(f"{ref}.IS", "IS", ref, col, "log10", math.log10(d.IS.value), is_sd,
+                      math.log10(lo), math.log10(hi), d.IS.value, "A", d.IS.low, d.IS.high),
+    ]
     b_sd = _range_sd(d.beta.value, d.beta.low, d.beta.high, math.log) or DEFAULT_LN_BETA_SD
-    add(
-        FreeParameter(
-            f"{ref}.beta",
-            "beta",
-            ref,
-            col,
-            "log",
-            math.log(d.beta.value),
-            b_sd,
-            0.0,
-            math.log(1e5),
-            d.beta.value,
-            "",
-            d.beta.low,
-            d.beta.high,
-        )
+    out.append(
+        FreeParameter(f"{ref}.beta", "beta", ref, col, "log", math.log(d.beta.value), b_sd,
+                      0.0, math.log(1e5), d.beta.value, "", d.beta.low, d.beta.high)
     )
     if d.VA.has_range and math.isfinite(d.VA.value):
         va_sd = _range_sd(d.VA.value, d.VA.low, d.VA.high, math.log)
-        add(
-            FreeParameter(
-                f"{ref}.VA",
-                "VA",
-                ref,
-                col,
-                "log",
-                math.log(d.VA.value),
-                va_sd,
-                math.log(d.VA.low / 10),
-                math.log(d.VA.high * 10),
-                d.VA.value,
-                "V",
-                d.VA.low,
-                d.VA.high,
-            )
+        out.append(
+            FreeParameter(f"{ref}.VA", "VA", ref, col, "log", math.log(d.VA.value), va_sd,
+                          math.log(d.VA.low / 10), math.log(d.VA.high * 10), d.VA.value, "V",
+                          d.VA.low, d.VA.high)
         )
     if d.n.has_range:
         n_sd = _range_sd(d.n.value, d.n.low, d.n.high, float)
-        add(
-            FreeParameter(
-                f"{ref}.n",
-                "n",
-                ref,
-                col,
-                "linear",
-                d.n.value,
-                n_sd,
-                0.5,
-                3.0,
-                d.n.value,
-                "",
-                d.n.low,
-                d.n.high,
-            )
+        out.append(
+            FreeParameter(f"{ref}.n", "n", ref, col, "linear", d.n.value, n_sd, 0.5, 3.0,
+                          d.n.value, "", d.n.low, d.n.high)
         )
     return out
 

@@ -11,12 +11,9 @@ import numpy as np
 
 from reconcile.model.board import Board
 from reconcile.inference.catalogue import GUIDED_CAPTURE_BENCH, readings_one_could_take
-from reconcile.model.quantities import REGISTRY, QuantityKind
+from reconcile.model.quantities import QuantityKind
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
-
-#: quantity -> SI unit, from the registry (kept for older imports)
-UNITS = {q.name: q.unit for q in REGISTRY.values()}
 
 
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:

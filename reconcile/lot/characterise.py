@@ -255,13 +255,7 @@ def _assemble(
     outlier, scores = lot_stats.find_outliers(variables, usable, o.outlier_z)
     used = usable & ~outlier
     summary = lot_stats.summarise(names, beta, log10_is, n, used, n_fitted=n_fitted)
-    for i in np.flatnonzero(outlier):
-        flags[i].insert(0, "outlier")
-    for i in range(len(names)):
-        if o.spec_low is not None and beta[i] < o.spec_low:
-            flags[i].append("low-beta")
-        if o.spec_high is not None and beta[i] > o.spec_high:
-            flags[i].append("high-beta")
+    _flag_devices(flags, outlier, beta, o)
     vbe, vbe_se = lot_stats.vbe_at_current(
         ln_is, n, cov, o.current_a, temperature_k, xti=xti, bandgap_ev=bandgap_ev
     )
@@ -275,21 +269,51 @@ def _assemble(
         beta_ratio=o.beta_ratio, set_size=o.set_size,
     )
     cpk = lot_stats.capability(beta[used], o.spec_low, o.spec_high)
+    comment = _table_comment(summary, len(names), mode)
+    table = lot_stats.device_table(o.device_name, summary, extra=table_extra, comment=comment)
+    out = _device_estimates(names, beta, ln_beta_se, ln_is, n, cov, n_fitted, vbe, vbe_se,
+                            flags, chi, dof, points, polarity, labels, scores, r_series)
+    return LotResult(
+        mode=mode, devices=out, summary=summary,
+        outliers=tuple(names[i] for i in np.flatnonzero(outlier)), bins=bins, pairs=pairs,
+        cpk=cpk, device_table=table, options=o, temperature_k=float(temperature_k),
+        fit_info=fit_info, sweeps=sweeps, extraction=extraction,
+    )
+
+
+def _flag_devices(flags: list[list[str]], outlier: np.ndarray, beta: np.ndarray,
+                  o: LotOptions) -> None:
+    """Add the ``outlier``, ``low-beta`` and ``high-beta`` flags in place."""
+    for i in np.flatnonzero(outlier):
+        flags[i].insert(0, "outlier")
+    for i in range(len(flags)):
+        if o.spec_low is not None and beta[i] < o.spec_low:
+            flags[i].append("low-beta")
+        if o.spec_high is not None and beta[i] > o.spec_high:
+            flags[i].append("high-beta")
+
+
+def _table_comment(summary, n_devices: int, mode: str) -> str:
+    """The comment written above the lot's ``[devices]`` table."""
     left_out = ""
     if summary.excluded:
         more = " ..." if len(summary.excluded) > 8 else ""
         left_out = f"; left out: {', '.join(summary.excluded[:8])}{more}"
-    comment = (
-        f"From a lot of {len(names)} devices ({summary.used} used{left_out}), "
+    return (
+        f"From a lot of {n_devices} devices ({summary.used} used{left_out}), "
         f"{mode} measurements.\n"
         "value: geometric mean (n: mean); low/high: two standard deviations of ln beta,\n"
         "log10 IS and n either side, read back by the priors as the lot's own spread."
     )
-    table = lot_stats.device_table(o.device_name, summary, extra=table_extra, comment=comment)
+
+
+def _device_estimates(names, beta, ln_beta_se, ln_is, n, cov, n_fitted, vbe, vbe_se, flags,
+                      chi, dof, points, polarity, labels, scores,
+                      r_series) -> dict[str, DeviceEstimate]:
+    """One :class:`DeviceEstimate` per device, by name."""
     is_val = np.exp(ln_is)
     is_se = is_val * np.sqrt(np.maximum(cov[:, 0, 0], 0.0))
     n_se = np.sqrt(np.maximum(cov[:, 1, 1], 0.0))
-    score_names = list(scores)
 
     def optional(values: np.ndarray | None, i: int) -> float | None:
         return None if values is None or not np.isfinite(values[i]) else float(values[i])
@@ -304,15 +328,10 @@ def _assemble(
             vbe_v=float(vbe[i]), vbe_stderr_v=float(vbe_se[i]), flags=tuple(flags[i]),
             chi_square=float(chi[i]), dof=int(dof[i]), points=int(points[i]),
             polarity="npn" if polarity[i] > 0 else "pnp", bin=labels[i],
-            robust_z={k: float(scores[k][i]) for k in score_names},
+            robust_z={k: float(scores[k][i]) for k in scores},
             r_series_ohm=optional(r_value, i), r_series_stderr=optional(r_se, i),
         )
-    return LotResult(
-        mode=mode, devices=out, summary=summary,
-        outliers=tuple(names[i] for i in np.flatnonzero(outlier)), bins=bins, pairs=pairs,
-        cpk=cpk, device_table=table, options=o, temperature_k=float(temperature_k),
-        fit_info=fit_info, sweeps=sweeps, extraction=extraction,
-    )
+    return out
 
 
 # ---------------------------------------------------------------------- the inputs
@@ -468,7 +487,7 @@ def run_lot(
     """
     from reconcile.model.board_loader import load_board
     from reconcile.data.readings import load_readings
-    from reconcile.data.sweep_file import is_sweep_text, sweeps_from_text
+    from reconcile.data.sweep_file import is_sweep_text
 
     options = LotOptions(
         bins=parse_bins(bins), vbe_limit_v=float(vbe_limit), beta_ratio=float(beta_ratio),
@@ -478,21 +497,8 @@ def run_lot(
     path, text = read_text(readings_path, "readings file")
     board = load_board(jig_path) if jig_path is not None else None
     if is_sweep_text(text):
-        va, xti, eg, t_default = math.inf, 3.0, 1.11, temperature_k
-        if board is not None:
-            from reconcile.lot.jig_fit import socket_of
-
-            ref = socket_of(board, socket)
-            dev = board.device_of(ref)
-            va, xti, eg = dev.VA.value, dev.is_temp_exponent, dev.bandgap
-            t_default = board.temperature if temperature_k is None else temperature_k
-        if early_voltage is not None:
-            if not early_voltage > 0:
-                raise InputError("the Early voltage must be positive (inf for none)",
-                                 key="--early-voltage")
-            va = float(early_voltage)
-        sweeps = sweeps_from_text(text, path=path, temperature_k=t_default)
-        return characterise_sweeps(sweeps, options=options, va_v=va, xti=xti, bandgap_ev=eg)
+        return _run_sweeps(text, path, board, options, socket=socket,
+                           temperature_k=temperature_k, early_voltage=early_voltage)
     if board is None:
         raise InputError(
             "this is not a sweep file (no vbe, ic, ib columns), so it needs the jig board "
@@ -507,3 +513,26 @@ def run_lot(
         if err.key == "socket":
             raise
         raise err.located(path=path) from None
+
+
+def _run_sweeps(text: str, path, board: Board | None, options: LotOptions, *,
+                socket: str | None, temperature_k: float | None,
+                early_voltage: float | None) -> LotResult:
+    """``run_lot`` for a sweep file: the device constants from the jig where one is given."""
+    from reconcile.data.sweep_file import sweeps_from_text
+
+    va, xti, eg, t_default = math.inf, 3.0, 1.11, temperature_k
+    if board is not None:
+        from reconcile.lot.jig_fit import socket_of
+
+        ref = socket_of(board, socket)
+        dev = board.device_of(ref)
+        va, xti, eg = dev.VA.value, dev.is_temp_exponent, dev.bandgap
+        t_default = board.temperature if temperature_k is None else temperature_k
+    if early_voltage is not None:
+        if not early_voltage > 0:
+            raise InputError("the Early voltage must be positive (inf for none)",
+                             key="--early-voltage")
+        va = float(early_voltage)
+    sweeps = sweeps_from_text(text, path=path, temperature_k=t_default)
+    return characterise_sweeps(sweeps, options=options, va_v=va, xti=xti, bandgap_ev=eg)

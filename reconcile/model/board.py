@@ -11,7 +11,6 @@ Node names are strings; ``"gnd"`` is the 0 V reference (the loader refuses ``"0"
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -87,10 +86,6 @@ class Device:
     # ft (Hz) and c_mu (F) are the optional hybrid-π capacitances (docs/formats.md
     # §6.3): ft = inf and c_mu = 0 mean no device capacitance (contract version 1).
 
-    @property
-    def has_capacitance(self) -> bool:
-        return math.isfinite(self.ft.value) or self.c_mu.value > 0.0
-
 
 @dataclass(frozen=True)
 class Transistor:
@@ -127,10 +122,6 @@ class Bench:
     voltmeter_ohms: float = 10e6
     probe_ohms: float = float("inf")
     probe_farads: float = 0.0
-
-    @property
-    def has_probe(self) -> bool:
-        return math.isfinite(self.probe_ohms) or self.probe_farads > 0.0
 
 
 @dataclass(frozen=True)

@@ -46,6 +46,29 @@ class ReportData:
     lot_result: Any = field(default=None, repr=False, compare=False)
 
 
+def board_as_read(board: Board) -> str:
+    """The board as the loader read it (every part and setting, values in SI units), as
+    indented JSON text: what the report shows instead of the board file, so that the
+    file's comments (and anything else written between its keys) are never copied."""
+    import dataclasses
+    import json
+    import math
+
+    def plain(obj: Any) -> Any:
+        if isinstance(obj, dict):
+            return {str(k): plain(v) for k, v in obj.items()}
+        if isinstance(obj, list | tuple):
+            return [plain(v) for v in obj]
+        if isinstance(obj, float) and not math.isfinite(obj):
+            return str(obj)  # "inf": no Early effect, no probe
+        return obj
+
+    fields = dataclasses.asdict(board)
+    for private in ("source_path", "source_text"):
+        fields.pop(private, None)
+    return json.dumps(plain(fields), indent=1, ensure_ascii=False, allow_nan=False)
+
+
 def _sha(text: str) -> str:
     return hashlib.sha256(text.encode("utf-8")).hexdigest()
 

@@ -8,6 +8,7 @@ from rich.table import Table
 from reconcile.engine.solution import BoardSolution
 from reconcile.model.quantities import REGISTRY
 from reconcile.present.console import make_console
+from reconcile.present.escape import markup
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -22,95 +23,105 @@ def _si(x: float | None, unit: str) -> str:
 
 
 def solution_tables(sol: BoardSolution) -> Group:
-    """Node voltages, transistors, supplies, resistors, small signal and spec check."""
-    parts = []
+    """Node voltages, transistors, supplies, resistors, small signal and spec check.
+
+    Node names and part refs are the user's text: escaped for rich markup."""
+    parts: list = [_nodes_table(sol)]
+    if sol.transistors:
+        parts.append(_transistors_table(sol))
+    parts += [_supplies_table(sol), _resistors_table(sol)]
+    if sol.small_signal is not None:
+        parts.append(_small_signal_table(sol.small_signal))
+    if sol.spec_checks:
+        parts.append(_spec_table(sol))
+    parts += [f"[{STYLE_WARN}]warning:[/] {markup(w)}" for w in sol.warnings]
+    return Group(*parts)
+
+
+def _nodes_table(sol: BoardSolution) -> Table:
     nodes = Table(title="Node voltages", title_justify="left")
     nodes.add_column("node")
     nodes.add_column("voltage", justify="right")
     for name, v in sol.nodes.items():
-        nodes.add_row(name, "no DC path" if v is None else numbers.si(v, "V", 5))
-    parts.append(nodes)
+        nodes.add_row(markup(name), "no DC path" if v is None else numbers.si(v, "V", 5))
+    return nodes
 
-    if sol.transistors:
-        q = Table(title="Transistors", title_justify="left")
-        q.add_column("")
-        for ref in sol.transistors:
-            q.add_column(ref, justify="right")
-        ts = list(sol.transistors.values())
 
-        def row(label: str, fmt) -> None:
-            q.add_row(label, *(fmt(t) for t in ts))
+def _transistors_table(sol: BoardSolution) -> Table:
+    q = Table(title="Transistors", title_justify="left")
+    q.add_column("")
+    for ref in sol.transistors:
+        q.add_column(markup(ref), justify="right")
+    ts = list(sol.transistors.values())
 
-        row("polarity", lambda t: t["polarity"])
-        row(
-            "region",
-            lambda t: (
-                f"[{STYLE_OK if t['region'] == 'forward-active' else STYLE_BAD}]{t['region']}[/]"
-            ),
-        )
-        row("IC", lambda t: _si(t["ic"], "A"))
-        row("IB", lambda t: _si(t["ib"], "A"))
-        row("VBE", lambda t: f"{t['vbe']:.4f} V")
-        row("VCE", lambda t: f"{t['vce']:.3f} V")
-        row("gm", lambda t: _si(t["gm"], "S"))
-        row("rπ", lambda t: _si(t["rpi"], "Ω"))
-        row("ro", lambda t: _si(t["ro"], "Ω"))
-        row("dissipation", lambda t: _si(t["power"], "W"))
-        parts.append(q)
+    def row(label: str, fmt) -> None:
+        q.add_row(label, *(fmt(t) for t in ts))
 
+    def region(t: dict) -> str:
+        style = STYLE_OK if t["region"] == "forward-active" else STYLE_BAD
+        return f"[{style}]{t['region']}[/]"
+
+    row("polarity", lambda t: t["polarity"])
+    row("region", region)
+    row("IC", lambda t: _si(t["ic"], "A"))
+    row("IB", lambda t: _si(t["ib"], "A"))
+    row("VBE", lambda t: f"{t['vbe']:.4f} V")
+    row("VCE", lambda t: f"{t['vce']:.3f} V")
+    row("gm", lambda t: _si(t["gm"], "S"))
+    row("rπ", lambda t: _si(t["rpi"], "Ω"))
+    row("ro", lambda t: _si(t["ro"], "Ω"))
+    row("dissipation", lambda t: _si(t["power"], "W"))
+    return q
+
+
+def _supplies_table(sol: BoardSolution) -> Table:
     s = Table(title="Supplies", title_justify="left")
     for col in ("ref", "voltage", "current"):
         s.add_column(col, justify="right" if col != "ref" else "left")
     for ref, sup in sol.supplies.items():
-        s.add_row(ref, numbers.si(sup["volts"], "V"), _si(sup["current"], "A"))
-    parts.append(s)
+        s.add_row(markup(ref), numbers.si(sup["volts"], "V"), _si(sup["current"], "A"))
+    return s
 
+
+def _resistors_table(sol: BoardSolution) -> Table:
     r = Table(title="Resistors", title_justify="left")
     for col in ("ref", "value", "current", "power", "rating"):
         r.add_column(col, justify="right" if col != "ref" else "left")
     for ref, res in sol.resistors.items():
         rating = res["rating"]
-        over = rating is not None and res["power"] > rating
-        r.add_row(
-            ref,
-            _si(res["ohms"], "Ω"),
-            _si(res["current"], "A"),
-            f"[{STYLE_BAD if over else ''}]{_si(res['power'], 'W')}[/]"
-            if over
-            else _si(res["power"], "W"),
-            _si(rating, "W") if rating is not None else "-",
+        power = _si(res["power"], "W")
+        if rating is not None and res["power"] > rating:
+            power = f"[{STYLE_BAD}]{power}[/]"
+        r.add_row(markup(ref), _si(res["ohms"], "Ω"), _si(res["current"], "A"), power,
+                  _si(rating, "W") if rating is not None else "-")
+    return r
+
+
+def _small_signal_table(ss: dict) -> Table:
+    t = Table(title=f"Small signal at {_si(ss['frequency'], 'Hz')}", title_justify="left")
+    t.add_column("quantity")
+    t.add_column("value", justify="right")
+    for q in REGISTRY.values():
+        if q.small_signal and q.name in ss:
+            t.add_row(q.label, numbers.si(ss[q.name], q.unit, q.digits))
+    return t
+
+
+def _spec_table(sol: BoardSolution) -> Table:
+    sp = Table(title="Spec", title_justify="left")
+    for col in ("quantity", "target", "allowed", "value", "margin", "result"):
+        sp.add_column(col, justify="left" if col in ("quantity", "result") else "right")
+    for c in sol.spec_checks:
+        unit = REGISTRY[c.quantity].unit if c.quantity in REGISTRY else ""
+        sp.add_row(
+            markup(c.quantity),
+            _si(c.target, unit),
+            f"{_si(c.low, unit)} … {_si(c.high, unit)}",
+            _si(c.value, unit),
+            numbers.percent(c.margin),
+            f"[{STYLE_OK}]meets[/]" if c.met else f"[{STYLE_BAD}]misses[/]",
         )
-    parts.append(r)
-
-    ss = sol.small_signal
-    if ss is not None:
-        t = Table(title=f"Small signal at {_si(ss['frequency'], 'Hz')}", title_justify="left")
-        t.add_column("quantity")
-        t.add_column("value", justify="right")
-        for q in REGISTRY.values():
-            if q.small_signal and q.name in ss:
-                t.add_row(q.label, numbers.si(ss[q.name], q.unit, q.digits))
-        parts.append(t)
-
-    checks = sol.spec_checks
-    if checks:
-        sp = Table(title="Spec", title_justify="left")
-        for col in ("quantity", "target", "allowed", "value", "margin", "result"):
-            sp.add_column(col, justify="left" if col in ("quantity", "result") else "right")
-        for c in checks:
-            unit = "Ω" if c.quantity.endswith("resistance") else ""
-            sp.add_row(
-                c.quantity,
-                _si(c.target, unit),
-                f"{_si(c.low, unit)} … {_si(c.high, unit)}",
-                _si(c.value, unit),
-                numbers.percent(c.margin),
-                f"[{STYLE_OK}]meets[/]" if c.met else f"[{STYLE_BAD}]misses[/]",
-            )
-        parts.append(sp)
-    for w in sol.warnings:
-        parts.append(f"[{STYLE_WARN}]warning:[/] {w}")
-    return Group(*parts)
+    return sp
 
 
 def print_solution(sol: BoardSolution, console: Console | None = None) -> None:

@@ -16,7 +16,7 @@ from reconcile import __version__
 from reconcile.data.readings import standard_uncertainty
 from reconcile.model.board import Board
 from reconcile.present import numbers
-from reconcile.pipeline.report import SECTIONS, ReportData, collect_report
+from reconcile.pipeline.report import SECTIONS, ReportData, board_as_read, collect_report
 
 __all__ = ["CAUTIONS", "SECTIONS", "ReportData", "build_report", "draw_figures",
            "render_html", "write_report"]
@@ -185,12 +185,13 @@ def _board_section(d: ReportData) -> str:
     )
     if b.spec.min_vce is not None:
         spec += f"<li>min |VCE|: {_num(b.spec.min_vce, 'V')}</li>"
-    text = _e(b.source_text or "")
+    text = _e(board_as_read(b))
     return (
         _table(["ref", "kind", "nodes", "value", "tolerance", "rating"], rows)
         + (f"<p>Spec:</p><ul>{spec}</ul>" if spec else "")
         + _img(d.plots.get("board"), "operating point")
-        + f"<details><summary>board file</summary><pre>{text}</pre></details>"
+        + "<details><summary>board as read (parsed values in SI units; the board "
+        f"file's comments are not copied)</summary><pre>{text}</pre></details>"
     )
 
 

@@ -20,6 +20,7 @@ from sqlalchemy.engine import Connection, Engine
 
 from reconcile import __version__
 from reconcile.errors import InputError, StoreError
+from reconcile.store.redact import looks_like_keywords, redact
 from reconcile.store.schema import (
     _OUR_TABLES,
     MIGRATIONS,
@@ -37,66 +38,110 @@ BUSY_TIMEOUT_S = 5.0
 
 
 def default_store_path() -> Path:
-    """``$RECONCILE_STORE`` if set, else ``sessions.sqlite`` in the user's data folder."""
-    env = os.environ.get(STORE_ENV)
-    if env:
-        return Path(env).expanduser()
+    """``sessions.sqlite`` in the user's data folder (``$RECONCILE_STORE``, a path or a
+    URL, overrides it; see :func:`open_engine`)."""
     import platformdirs
 
     return Path(platformdirs.user_data_dir("reconcile")) / DEFAULT_FILE_NAME
 
 
-
 def open_engine(
     location: str | os.PathLike[str] | None, *, busy_timeout_s: float, connect_timeout_s: float
 ) -> tuple[Engine, str]:
-    """The SQLAlchemy engine for a store location, and the location as it may be printed."""
+    """The SQLAlchemy engine for a store location, and the location as it may be printed
+    (every password replaced by ``***``, see :mod:`reconcile.store.redact`)."""
     if location is None:
-        path = default_store_path()
+        env = os.environ.get(STORE_ENV, "").strip()
+        if env and ("://" in env or looks_like_keywords(env)):
+            return open_engine(env, busy_timeout_s=busy_timeout_s,
+                               connect_timeout_s=connect_timeout_s)
+        path = Path(env).expanduser() if env else default_store_path()
         try:
             path.parent.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise StoreError(f"cannot create the store folder {path.parent}: {exc}") from exc
-        engine, label = _sqlite_engine(path, busy_timeout_s), str(path)
-    else:
-        text = os.fspath(location)
-        if "://" in text:
-            engine, label = _url_engine(text, busy_timeout_s, connect_timeout_s)
-        else:
-            path = Path(text).expanduser()
-            engine, label = _sqlite_engine(path, busy_timeout_s), str(path)
-    return engine, label
+        return _sqlite_engine(path, busy_timeout_s), redact(str(path))
+    text = os.fspath(location)
+    if looks_like_keywords(text):
+        return _postgres_engine(_keywords_url(text), connect_timeout_s)
+    if "://" in text:
+        return _url_engine(text, busy_timeout_s, connect_timeout_s)
+    path = Path(text).expanduser()
+    return _sqlite_engine(path, busy_timeout_s), redact(str(path))
+
+
+def _bad_location(text: str, why: str) -> InputError:
+    return InputError(f"store {redact(text)!r} cannot be read: {redact(why)}", key="store")
 
 
 def _url_engine(text: str, busy_s: float, connect_s: float) -> tuple[Engine, str]:
     try:
         url = sa.engine.make_url(text)
-    except sa.exc.ArgumentError as exc:
-        raise InputError(f"store URL {text!r} cannot be read: {exc}", key="store") from exc
+        port = url.port  # a bad port or a broken IPv6 literal fails here or above
+    except (sa.exc.ArgumentError, ValueError, TypeError) as exc:
+        why = "not a URL" if isinstance(exc, sa.exc.ArgumentError) else (
+            "bad port or host (an IPv6 address goes in brackets: [::1]:5432)")
+        raise _bad_location(text, why) from None
+    if port is not None and not 0 < port < 65536:
+        raise _bad_location(text, f"port {port} is not between 1 and 65535")
+    if "@" in (url.host or ""):
+        raise _bad_location(text, "'@' after the user name: write an '@' in a password as %40")
     backend = url.get_backend_name()
     if backend == "sqlite":
         if not url.database or url.database == ":memory:":
             raise InputError("an in-memory store keeps nothing: give a file", key="store")
-        return _sqlite_engine(Path(url.database).expanduser(), busy_s), url.database
+        path = Path(url.database).expanduser()
+        return _sqlite_engine(path, busy_s), redact(str(path))
     if backend in ("postgresql", "postgres"):
         if url.drivername.partition("+")[2] not in ("", "psycopg"):
             raise InputError(
-                f"store URL driver {url.drivername!r} is not supported: "
+                f"store URL driver {redact(url.drivername)!r} is not supported: "
                 "use postgresql:// or postgresql+psycopg://", key="store")
-        url = url.set(drivername="postgresql+psycopg")
-        label = url.render_as_string(hide_password=True)
-        _require_psycopg(label)
-        engine = sa.create_engine(
-            url,
-            # libpq counts whole seconds and reads anything under 2 as 2
-            connect_args={"connect_timeout": max(2, math.ceil(connect_s)),
-                          "application_name": "reconcile"},
-            pool_pre_ping=False,
-        )
-        return engine, label
+        return _postgres_engine(url, connect_s)
     raise InputError(
-        f"store URL {url.render_as_string(hide_password=True)!r}: unsupported database "
-        f"{backend!r}; give a file path, sqlite:///PATH or postgresql://...", key="store")
+        f"store URL {_label(url)!r}: unsupported database "
+        f"{redact(backend)!r}; give a file path, sqlite:///PATH or postgresql://...",
+        key="store")
+
+
+def _label(url: sa.URL) -> str:
+    """A URL as it may be printed: no password in its user-info or its query."""
+    return redact(url.render_as_string(hide_password=True))
+
+
+def _keywords_url(text: str) -> sa.URL:
+    """A libpq keyword string (``host=h dbname=d user=u``) as a PostgreSQL URL."""
+    _require_psycopg(redact(text))
+    from psycopg import conninfo
+
+    try:
+        keys = dict(conninfo.conninfo_to_dict(text))
+    except Exception as exc:  # psycopg.ProgrammingError; its text may quote the string
+        raise _bad_location(text, _one_line(exc)) from None
+    try:
+        port = int(keys.pop("port")) if "port" in keys else None
+    except (TypeError, ValueError):
+        raise _bad_location(text, "the port is not a number") from None
+    return sa.URL.create(
+        "postgresql+psycopg", username=keys.pop("user", None),
+        password=keys.pop("password", None), host=keys.pop("host", None), port=port,
+        database=keys.pop("dbname", None), query={k: str(v) for k, v in keys.items()})
+
+
+def _postgres_engine(url: sa.URL, connect_s: float) -> tuple[Engine, str]:
+    url = url.set(drivername="postgresql+psycopg")
+    label = _label(url)
+    if url.port is not None and not 0 < url.port < 65536:
+        raise _bad_location(label, f"port {url.port} is not between 1 and 65535")
+    _require_psycopg(label)
+    engine = sa.create_engine(
+        url,
+        # libpq counts whole seconds and reads anything under 2 as 2
+        connect_args={"connect_timeout": max(2, math.ceil(connect_s)),
+                      "application_name": "reconcile"},
+        pool_pre_ping=False,
+    )
+    return engine, label
 
 
 def _require_psycopg(label: str) -> None:
@@ -171,7 +216,7 @@ class Database:
         self.close()
 
     def _store_error(self, exc: sa.exc.DBAPIError) -> StoreError:
-        detail = _one_line(exc.orig if exc.orig is not None else exc)
+        detail = redact(_one_line(exc.orig if exc.orig is not None else exc))
         low = detail.lower()
         where = f"store {self.location}"
         if self.is_sqlite:

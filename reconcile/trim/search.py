@@ -105,35 +105,11 @@ def build_context(
     if mode == "design":  # exactly the drawn values, not exp(ln R) with its float noise
         drawn = np.array([board.resistors[r].ohms for r in circuit.resistor_refs])[None, :]
         base_params = base_params.with_values(resistor_ohms=drawn)
-    n_p, n_r = space.size, len(circuit.resistor_refs)
+    n_r = len(circuit.resistor_refs)
     h = FD_STEP_OF_PRIOR_SD * space.prior_sd
-    xs = np.repeat(x[None, :], 1 + 2 * n_p, axis=0)
-    for j in range(n_p):
-        xs[1 + j, j] += h[j]
-        xs[1 + n_p + j, j] -= h[j]
-    params = space.to_parameters(xs)
-    r = np.repeat(base_params.resistor_ohms, 2 * n_r, axis=0)
-    for c in range(n_r):
-        r[c, c] *= math.exp(FD_STEP_LN_R)
-        r[n_r + c, c] *= math.exp(-FD_STEP_LN_R)
-    col_params = base_params.repeat(2 * n_r).with_values(resistor_ohms=r)
-    sol = solve_batch(circuit, Parameters.concatenate([params, col_params]))
+    sol = solve_batch(circuit, _probe_boards(space, x, base_params, h, n_r))
     base = _take(sol, 0)
-    watched = [np.nan_to_num(sol.quantity(name), nan=0.0) for name in names]
-    if spec.min_vce is not None:
-        watched += list((circuit.polarity * sol.vce).T)
-    sens = np.zeros((len(watched), n_p))
-    sens_col = np.zeros((len(watched), n_r))
-    off = 1 + 2 * n_p
-    for i, q in enumerate(watched):
-        sens[i] = (q[1 : 1 + n_p] - q[1 + n_p : off]) / (2.0 * h)
-        sens_col[i] = (q[off : off + n_r] - q[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
-    v = sol.state.v
-    v_sens = (v[1 : 1 + n_p] - v[1 + n_p : off]) / (2.0 * h[:, None])
-    v_sens_col = (v[off : off + n_r] - v[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
-    for j, fp in enumerate(space.parameters):
-        if fp.kind == "resistor":
-            v_sens[j] = 0.0
+    sens, sens_col, v_sens, v_sens_col = _central_differences(sol, board, circuit, space, h)
     cov_sens = covariance @ sens.T
     var0 = np.einsum("qp,pq->q", sens, cov_sens)
     param_of_col = np.full(n_r, -1, dtype=np.intp)
@@ -173,6 +149,49 @@ def build_context(
         v_sens=v_sens,
         v_sens_col=v_sens_col,
     )
+
+
+def _probe_boards(space: ParameterSpace, x: np.ndarray, base_params: Parameters,
+                  h: np.ndarray, n_r: int) -> Parameters:
+    """The built board, then ±h along each free parameter, then each resistor column
+    stepped by ±FD_STEP_LN_R in ln R (1 + 2P + 2nR boards)."""
+    n_p = space.size
+    xs = np.repeat(x[None, :], 1 + 2 * n_p, axis=0)
+    for j in range(n_p):
+        xs[1 + j, j] += h[j]
+        xs[1 + n_p + j, j] -= h[j]
+    params = space.to_parameters(xs)
+    r = np.repeat(base_params.resistor_ohms, 2 * n_r, axis=0)
+    for c in range(n_r):
+        r[c, c] *= math.exp(FD_STEP_LN_R)
+        r[n_r + c, c] *= math.exp(-FD_STEP_LN_R)
+    col_params = base_params.repeat(2 * n_r).with_values(resistor_ohms=r)
+    return Parameters.concatenate([params, col_params])
+
+
+def _central_differences(sol: BatchSolution, board: Board, circuit: Circuit,
+                         space: ParameterSpace, h: np.ndarray):
+    """Sensitivities of the watched quantities (spec targets, then each VCE when the
+    spec limits it) and of the node voltages, per free parameter and per resistor column,
+    from the boards of :func:`_probe_boards`."""
+    spec = board.spec
+    n_p, n_r = space.size, len(circuit.resistor_refs)
+    watched = [np.nan_to_num(sol.quantity(name), nan=0.0) for name in spec.targets]
+    if spec.min_vce is not None:
+        watched += list((circuit.polarity * sol.vce).T)
+    sens = np.zeros((len(watched), n_p))
+    sens_col = np.zeros((len(watched), n_r))
+    off = 1 + 2 * n_p
+    for i, q in enumerate(watched):
+        sens[i] = (q[1 : 1 + n_p] - q[1 + n_p : off]) / (2.0 * h)
+        sens_col[i] = (q[off : off + n_r] - q[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
+    v = sol.state.v
+    v_sens = (v[1 : 1 + n_p] - v[1 + n_p : off]) / (2.0 * h[:, None])
+    v_sens_col = (v[off : off + n_r] - v[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
+    for j, fp in enumerate(space.parameters):
+        if fp.kind == "resistor":
+            v_sens[j] = 0.0
+    return sens, sens_col, v_sens, v_sens_col
 
 
 def _take(sol: BatchSolution, i: int) -> BatchSolution:
