@@ -224,7 +224,9 @@ def test_stored_reading_carries_identity_and_gum_uncertainty(store):
     assert meter.transport.sent[:2] == ["*CLS", "*IDN?"]  # IEEE 488.2 common commands
 
 
-def test_gain_and_input_resistance_match_the_engine_on_a_noiseless_bench(store):
+def test_noiseless_bench_gain_and_input_resistance_self_consistency(store):
+    # Self-consistency check: the capture's derived readings against the engine that
+    # drives the simulated bench.
     # Series-resistor method (voltage divider, from memory): for a resistive input,
     # Rs·V2/(V1 − V2) = Rin exactly; gain = V_out/V_in is the engine's gain.
     board = _line_receiver()

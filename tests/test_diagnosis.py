@@ -1,10 +1,11 @@
 """Tests for ``reconcile.diagnosis`` (single-fault diagnosis) and its helpers.
 
 Outside references: Bayes' theorem (posterior odds = prior odds × likelihood ratio,
-common practice); the project's lmfit-based MAP fit :func:`reconcile.fitting.fit_board`
-(scipy's trust-region reflective least squares) as an independent minimiser of the same
-objective; IEC 60063 (E24 contains 4.7; a decade slip keeps the mantissa); common
-practice for bench faults (open, short, wrong value, missing, reversed part).
+common practice); IEC 60063 (E24 contains 4.7; a decade slip keeps the mantissa); common
+practice for bench faults (open, short, wrong value, missing, reversed part). The
+comparison of the batched fit with the project's lmfit-based MAP fit
+(:func:`reconcile.inference.fitting.fit_board`, scipy's trust-region reflective least
+squares) is a self-consistency check: two minimisers of ours on one objective.
 
 Synthetic truth: every case is a board as it might really be built (each part drawn
 within its tolerance, devices from their priors: ``tests/fit_support.draw_truth``) with
@@ -246,10 +247,10 @@ def test_invisible_fault_gets_its_prior_odds() -> None:
         assert rb_open.complexity == pytest.approx(none.complexity, abs=0.05)
 
 
-def test_batched_fit_matches_lmfit() -> None:
-    """The batched Levenberg–Marquardt reaches the χ² of the lmfit-based MAP fit, for
-    ``none`` on a sound board and for an open resistor on a board with RE open (same
-    objective, independent minimiser)."""
+def test_batched_fit_matches_lmfit_fit_self_consistency() -> None:
+    """Self-consistency check: the batched Levenberg–Marquardt reaches the χ² of the
+    lmfit-based MAP fit (another minimiser of ours, same objective), for ``none`` on a
+    sound board and for an open resistor on a board with RE open."""
     board = sample_board("line_receiver_cb")
     rng = np.random.default_rng(61)
     truth = draw_truth(board, rng)

@@ -2,7 +2,8 @@
 
 Outside references: first-order network algebra (Horowitz & Hill, "The Art of
 Electronics", chapter 1, from memory) for the probe-loaded RC network; the hybrid-pi
-relation 2π·ft = gm/(Cπ + Cμ) (Sedra & Smith, "Microelectronic Circuits", from memory).
+relation 2π·ft = gm/(Cπ + Cμ) (Sedra & Smith, "Microelectronic Circuits", from memory),
+with gm from an mpmath solve and mpmath.diff, never from the engine.
 The other checks compare the engine with itself and are named self-consistency checks.
 """
 
@@ -10,13 +11,16 @@ from __future__ import annotations
 
 import math
 
+import mpmath
 import numpy as np
 import pytest
+from scipy import constants
 
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
 from reconcile.errors import InputErrors
 from reconcile.model.board_loader import board_from_text, load_board
 
+from tests.test_engine_reference import MP_DIGITS, _mp_bias, _mp_is_t
 from tests.test_sweep_reference import CE, _ce_text
 
 SAMPLES = ("preamp_ce", "line_receiver_cb", "two_stage_npn_pnp", "sensor_preamp")
@@ -69,14 +73,35 @@ def test_probe_keys_are_checked() -> None:
 
 
 def test_pi_capacitance_follows_the_transition_frequency() -> None:
-    # Reference: 2π·ft = gm/(Cπ + Cμ) of the hybrid-pi model (Sedra & Smith, from memory).
+    # Reference: 2π·ft = gm/(Cπ + Cμ) of the hybrid-pi model (Sedra & Smith, from memory),
+    # with gm found without the engine: the bias point of the mpmath Thevenin solve at
+    # 40 digits (tests/test_engine_reference._mp_bias) and gm = dIC/dVBE at fixed VCE by
+    # mpmath.diff of the contract's device equations there.
     sol = _solved(_ce_text(CE))
-    c_pi = sol.linear.c_pi()[0, 0]
-    assert 2 * math.pi * CE["ft"] * (c_pi + CE["c_mu"]) == pytest.approx(sol.gm[0, 0],
-                                                                           rel=1e-12)
+    dev = sol.linear.params
+    p = {"polarity": "npn", "VCC": CE["vcc"], "R1": CE["r1"], "R2": CE["r2"], "RC": CE["rc"],
+         "RE": CE["re1"] + CE["re2"], "IS": CE["IS"], "beta": CE["beta"], "VA": CE["VA"],
+         "beta_r": float(dev.beta_r[0, 0]), "n": float(dev.n[0, 0]),
+         "xti": float(dev.xti[0, 0]), "Eg": float(dev.bandgap[0, 0]),
+         "T": float(dev.temperature[0])}
+    bias = _mp_bias(p)
+    with mpmath.workdps(MP_DIGITS):
+        mpf = mpmath.mpf
+        n_vt = mpf(p["n"]) * mpf(constants.k) * mpf(p["T"]) / mpf(constants.e)
+        is_t = _mp_is_t(p["IS"], p["T"], p["xti"], p["Eg"])
+
+        def ic(u, w):
+            i_f, i_r = is_t * (mpmath.exp(u / n_vt) - 1), is_t * (mpmath.exp(w / n_vt) - 1)
+            return (i_f - i_r) * (1 - w / mpf(p["VA"])) - i_r / mpf(p["beta_r"])
+
+        u, w = mpf(bias["u"]), mpf(bias["w"])
+        gm = mpmath.diff(lambda x: ic(u + x, w + x), 0)  # VBE and VBC move together
+        c_pi = gm / (2 * mpmath.pi * mpf(CE["ft"])) - mpf(CE["c_mu"])
+    assert float(c_pi) > 0
+    assert sol.linear.c_pi()[0, 0] == pytest.approx(float(c_pi), rel=1e-9)
 
 
-def test_without_ft_and_c_mu_nothing_changes_at_any_frequency() -> None:
+def test_without_ft_and_c_mu_nothing_changes_self_consistency() -> None:
     # Self-consistency check: a board without device capacitances gives the same
     # response as the signal-frequency solve of a board at that frequency.
     p = dict(CE)
@@ -89,7 +114,7 @@ def test_without_ft_and_c_mu_nothing_changes_at_any_frequency() -> None:
 
 
 @pytest.mark.parametrize("name", SAMPLES)
-def test_batched_over_samples_and_frequencies_in_chunks(name: str, monkeypatch) -> None:
+def test_chunks_of_samples_and_frequencies_self_consistency(name: str, monkeypatch) -> None:
     # Self-consistency check: (samples x frequencies) in one call, cut into chunks of
     # 7 rows (as a small memory budget would), equals one frequency at a time.
     from reconcile.engine import small_signal

@@ -5,7 +5,9 @@ gmin / source stepping fallbacks.
 Outside reference for every answer: Kirchhoff's current law, checked at every node with
 a sum written here from the solved node voltages and terminal currents (to 1e-12 A);
 and the contract's region rule (formats.md: a junction is forward-biased above 0.4 V).
-A batched answer must also equal the answer for the same sample solved on its own.
+A batched answer must also equal the answer for the same sample solved on its own, and
+each fallback path the unpatched answer: those comparisons of the engine with itself are
+self-consistency checks, named so.
 """
 
 from __future__ import annotations
@@ -165,9 +167,10 @@ def test_huge_is_device_conducts_below_the_region_threshold() -> None:
 
 
 @pytest.mark.parametrize("temperature_k", [233.15, 398.15])
-def test_temperature_override_matches_board_temperature(temperature_k: float) -> None:
-    # Reference: the contract: IS(T) and VT = kT/q at the junction temperature; solving
-    # at T via the override and via the board's [conditions] must agree exactly.
+def test_temperature_override_matches_board_temperature_self_consistency(temperature_k: float) -> None:
+    # Self-consistency check (two ways to set the temperature): IS(T) and VT = kT/q at
+    # the junction temperature; solving at T via the override and via the board's
+    # [conditions] must agree exactly.
     celsius = f"{temperature_k - 273.15:.2f} C"
     a = solve_one(stage(), temperature=temperature_k)
     b = solve_one(stage(temperature=celsius))
@@ -371,8 +374,9 @@ def test_monte_carlo_batch_converges_and_satisfies_kcl(monte_carlo_2000) -> None
 
 
 @pytest.mark.slow
-def test_monte_carlo_every_sample_matches_its_own_solve(monte_carlo_2000) -> None:
-    # Reference: each of the 2000 samples solved alone (N = 1, cold start), to 1e-9.
+def test_monte_carlo_every_sample_matches_its_own_solve_self_consistency(monte_carlo_2000) -> None:
+    # Self-consistency check: each of the 2000 samples solved alone (N = 1, cold
+    # start), to 1e-9.
     # About 5 s: 2000 single solves.
     _, circuit, p, sol = monte_carlo_2000
     _compare_alone(circuit, p, sol, range(p.n_samples))
@@ -395,8 +399,9 @@ FALLBACK_BOARDS = ["saturated-large-rc", "reversed-transistor", "hot-125C", "cut
 
 
 @pytest.mark.parametrize("name", FALLBACK_BOARDS)
-def test_gmin_stepping_path_gives_the_same_answer(name: str, monkeypatch) -> None:
-    # Reference: the unpatched solution (KCL-checked); with the warm and cold Newton
+def test_gmin_stepping_path_self_consistency(name: str, monkeypatch) -> None:
+    # Self-consistency check: the unpatched solution (KCL-checked elsewhere); with the
+    # warm and cold Newton
     # limited to one iteration every sample must go through gmin stepping.
     board = HARD_BOARDS[name][0]
     want = solve_one(board)
@@ -417,8 +422,9 @@ def _all_failed(out):
 
 
 @pytest.mark.parametrize("name", FALLBACK_BOARDS)
-def test_source_stepping_path_gives_the_same_answer(name: str, monkeypatch) -> None:
-    # Reference: the unpatched solution (KCL-checked); cold Newton cut to one iteration
+def test_source_stepping_path_self_consistency(name: str, monkeypatch) -> None:
+    # Self-consistency check: the unpatched solution (KCL-checked elsewhere); cold
+    # Newton cut to one iteration
     # and gmin stepping made to fail, so only source stepping can find the answer.
     board = HARD_BOARDS[name][0]
     want = solve_one(board)
@@ -432,8 +438,9 @@ def test_source_stepping_path_gives_the_same_answer(name: str, monkeypatch) -> N
     np.testing.assert_allclose(got.node_v, want.node_v, rtol=1e-9, atol=1e-12)
 
 
-def test_warm_start_failures_fall_back_to_cold_start(monkeypatch) -> None:
-    # Reference: each sample solved alone. With one warm iteration allowed, a spread
+def test_warm_start_failures_fall_back_to_cold_start_self_consistency(monkeypatch) -> None:
+    # Self-consistency check: each sample solved alone; reference: KCL. With one warm
+    # iteration allowed, a spread
     # batch (seeded from sample 0) fails the warm start and is restarted cold.
     board, circuit, p = _monte_carlo(64, seed=3)
     want = solve_batch(circuit, p)

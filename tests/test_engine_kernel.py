@@ -62,7 +62,7 @@ def test_compiled_path_matches_mpmath_bias(name: str, monkeypatch) -> None:
 
 
 @pytest.mark.parametrize("board", ["preamp_ce", "two_stage_npn_pnp", "line_receiver_cb"])
-def test_compiled_and_numpy_paths_agree(board: str, monkeypatch) -> None:
+def test_compiled_and_numpy_paths_agree_self_consistency(board: str, monkeypatch) -> None:
     # Self-consistency check: the compiled kernel and the numpy path on the same 3 000
     # prior draws give the same operating points (to 1e-12 V), the same small signal (to
     # 1e-11 relative) and the same Newton iteration counts.

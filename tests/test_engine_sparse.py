@@ -63,7 +63,7 @@ def test_zero_pivot_gives_nan_for_that_sample_only() -> None:
     assert np.all(np.isfinite(np.delete(x, 2, axis=0)))
 
 
-def test_large_board_sparse_and_dense_paths_agree(monkeypatch) -> None:
+def test_large_board_sparse_and_dense_paths_agree_self_consistency(monkeypatch) -> None:
     # Self-consistency check: an 8-stage board (34 free nodes, above the threshold)
     # solved with the fixed-pattern factorisation and, with the threshold raised, with
     # dense LAPACK: same operating points and small signal. Reference: KCL holds at

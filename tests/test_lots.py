@@ -8,8 +8,9 @@ References named beside each check:
 - sampling error of a mean, σ/√N, and the chi-square interval of a normal sample's
   variance, (N−1)s²/σ² ~ χ²(N−1) (any statistics textbook, from memory; quantiles from
   scipy.stats); mean of a log-normal exp(μ + s²/2) and its sd mean·√(exp(s²) − 1) (same);
-- the batched jig fit against reconcile.fitting.fit_board (lmfit / scipy least_squares),
-  one device at a time;
+- the batched jig fit against reconcile.inference.fitting.fit_board (lmfit / scipy
+  least_squares), one device at a time: a self-consistency check (two optimisers of
+  ours), named so;
 - ln IC linear in VBE with slope 1/(n·VT): the contract's device model (formats.md,
   section 2), evaluated with mpmath at 40 digits; VBE at a current by mpmath.findroot;
 - modified z-score 0.6745·(x − median)/MAD > 3.5 (Iglewicz and Hoaglin, 1993; from memory);
@@ -114,8 +115,9 @@ def test_jig_lot_mean_and_spread_within_sampling_error(jig_lot):
     assert abs(s.log10_is_mean - jig_lot["mu_i"]) <= 3 * jig_lot["s_i"] / math.sqrt(n)
 
 
-def test_jig_batched_fit_agrees_with_fit_board_loop(jig, jig_lot):
-    # Same MAP objective, solved one device at a time by reconcile.fitting (lmfit).
+def test_jig_batched_fit_agrees_with_fit_board_loop_self_consistency(jig, jig_lot):
+    # Self-consistency check: the same MAP objective solved one device at a time by
+    # reconcile.inference.fitting (lmfit), another optimiser of ours.
     from reconcile.inference.fitting import fit_board
     from reconcile.lot.jig_fit import fit_jig
 

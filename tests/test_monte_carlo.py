@@ -90,7 +90,7 @@ def test_drivers_are_spearman_rank_correlations() -> None:
     assert top == {"RC", "RE1"}
 
 
-def test_chunked_run_equals_one_chunk(monkeypatch) -> None:
+def test_chunked_run_equals_one_chunk_self_consistency(monkeypatch) -> None:
     # Self-consistency check: a tiny memory budget (many chunks) gives the same result
     # as the default budget with the throughput cap lifted (one chunk) for the same seed.
     board = load_board(PREAMP)
