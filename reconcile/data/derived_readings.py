@@ -33,6 +33,7 @@ __all__ = [
     "check_series_resistor",
     "gain_from_ac",
     "input_resistance_series_method",
+    "series_resistor_uncertainty",
 ]
 
 SERIES_RESISTOR_RANGE_OHM = (1.0, 1e9)
@@ -215,27 +216,15 @@ def input_resistance_series_method(
         ``v1 <= v2`` (impossible for a resistive load: the leads may be swapped),
         ``v2 <= 0``, ``r_series <= 0``, a negative uncertainty, or ``|r| > 1``.
     """
-    a = _volts(v1, "v1")
-    b = _volts(v2, "v2")
+    a, b = _volts(v1, "v1"), _volts(v2, "v2")
     rs = check_series_resistor(r_series)
-    ua = _uncertainty(u_v1, "u_v1")
-    ub = _uncertainty(u_v2, "u_v2")
+    ua, ub = _uncertainty(u_v1, "u_v1"), _uncertainty(u_v2, "u_v2")
     urs = _uncertainty(u_r_series, "u_r_series")
     r = _correlation(correlation)
-    if b <= 0:
-        raise InputError(f"the board-input voltage V2 must be > 0 V, got {b:g} V", key="v2")
-    if a <= b:
-        raise InputError(
-            f"V1 (generator side of the series resistor, {a:g} V) must be greater than "
-            f"V2 (board input, {b:g} V) for a resistive load; the probe leads may be "
-            "swapped between the two points",
-            key="v1",
-        )
+    _check_series_readings(a, b)
     d = a - b
     rin = rs * b / d
-    c_rs = b / d
-    c_v1 = -rin / d
-    c_v2 = rs * a / d / d
+    c_rs, c_v1, c_v2 = b / d, -rin / d, rs * a / d / d
     variance = (
         _square(c_rs * urs)
         + _square(c_v1 * ua)
@@ -246,7 +235,35 @@ def input_resistance_series_method(
                    "V1, V2, the series resistor and their uncertainties")
 
 
+def _check_series_readings(a: float, b: float) -> None:
+    """Refuse series-resistor readings no resistive input can give (V1 <= V2: the
+    probe leads are likely swapped)."""
+    if b <= 0:
+        raise InputError(f"the board-input voltage V2 must be > 0 V, got {b:g} V", key="v2")
+    if a <= b:
+        raise InputError(
+            f"V1 (generator side of the series resistor, {a:g} V) must be greater than "
+            f"V2 (board input, {b:g} V) for a resistive load; the probe leads may be "
+            "swapped between the two points",
+            key="v1",
+        )
+
+
 def _square(x: float) -> float:
     """x², inf where it overflows (``**`` raises OverflowError there)."""
     return x * x
 
+
+def series_resistor_uncertainty(r_series: float, tolerance: float) -> float:
+    """Standard uncertainty of a series resistor known only by its tolerance, ohm.
+
+    The tolerance ``t`` (a fraction: 0.01 for 1 %) is read as the half-width of a
+    rectangular distribution, so ``u = t·R/√3`` (JCGM 100:2008 4.3.7). This is the one
+    copy of the rule: the ``derive`` command, the capture run and the simulated bench
+    all call it.
+    """
+    rs = _number(r_series, "r_series")
+    t = _number(tolerance, "tolerance")
+    if t < 0:
+        raise InputError(f"a tolerance cannot be negative, got {tolerance!r}", key="tolerance")
+    return abs(rs) * t / math.sqrt(3.0)
