@@ -73,6 +73,24 @@ def run_unprivileged(job: Callable[[], str]) -> str:
     return b"".join(chunks).decode("utf-8")
 
 
+@contextlib.contextmanager
+def shared_folder(prefix: str = "reconcile-store-"):
+    """A folder outside pytest's private tmp tree, so an unprivileged child can reach it;
+    emptied and removed afterwards (whatever mode a test left it in)."""
+    import tempfile
+    from pathlib import Path
+
+    folder = Path(tempfile.mkdtemp(prefix=prefix))
+    folder.chmod(0o755)
+    try:
+        yield folder
+    finally:
+        folder.chmod(0o755)
+        for item in folder.iterdir():
+            item.unlink()
+        folder.rmdir()
+
+
 PG_URL = os.environ.get("RECONCILE_TEST_PG_URL", "")
 
 

@@ -81,7 +81,9 @@ def test_session_round_trip_and_fit_from_session_self_consistency(tmp_path):
 
 
 def test_unknown_session_is_exit_2(tmp_path):
-    out = run("session", "show", "S-AAAAAAAA", store=tmp_path / "s.sqlite")
+    store = tmp_path / "s.sqlite"
+    assert run("session", "new", str(SAMPLES / "line_receiver_cb.toml"), store=store).returncode == 0
+    out = run("session", "show", "S-AAAAAAAA", store=store)
     assert out.returncode == 2
     assert "S-AAAAAAAA" in out.stderr and "Traceback" not in out.stderr
 

@@ -18,7 +18,6 @@ import sqlite3
 import stat
 import subprocess
 import sys
-import tempfile
 import time
 from collections.abc import Iterator
 from pathlib import Path
@@ -31,6 +30,7 @@ from store_support import (
     numbered_reading,
     pg_database,
     run_unprivileged,
+    shared_folder,
 )
 
 from reconcile.store import connection as store_module
@@ -360,15 +360,8 @@ def test_a_locked_store_is_a_clear_error(tmp_path, board):
 @pytest.fixture
 def shared_dir() -> Iterator[Path]:
     """A folder outside pytest's private tmp tree, so an unprivileged child can reach it."""
-    folder = Path(tempfile.mkdtemp(prefix="reconcile-store-"))
-    folder.chmod(0o755)
-    try:
+    with shared_folder() as folder:
         yield folder
-    finally:
-        folder.chmod(0o755)
-        for item in folder.iterdir():
-            item.unlink()
-        folder.rmdir()
 
 
 def test_a_read_only_store_file_is_a_clear_error(shared_dir, board):

@@ -76,6 +76,7 @@ def test_redact_keeps_text_without_passwords():
         assert redact(text) == text
 
 
+@pytest.mark.slow  # four processes
 @pytest.mark.parametrize("form", list(_forms("h", 1, "d")))
 def test_an_unreachable_store_never_prints_its_password(form):
     location = _forms("127.0.0.1", _closed_port(), "sessions")[form]
@@ -106,6 +107,7 @@ def test_a_malformed_store_url_is_one_line_exit_2(url, why):
     assert done.stdout == ""
 
 
+@pytest.mark.slow  # nine processes
 @pytest.mark.postgres
 def test_a_reachable_store_shows_no_password_in_json_or_tables(tmp_path):
     if not PG_URL:

@@ -11,6 +11,7 @@ import contextlib
 import math
 import os
 from collections.abc import Iterator
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Self
 
@@ -35,6 +36,40 @@ STORE_ENV = "RECONCILE_STORE"
 
 CONNECT_TIMEOUT_S = 5.0
 BUSY_TIMEOUT_S = 5.0
+"""How long a writer waits for another's lock, in s: SQLite's busy_timeout, PostgreSQL's
+lock_timeout (``$RECONCILE_STORE_LOCK_TIMEOUT`` overrides it)."""
+STATEMENT_TIMEOUT_S = 60.0
+"""How long one PostgreSQL statement may run, in s: its statement_timeout
+(``$RECONCILE_STORE_STATEMENT_TIMEOUT`` overrides it)."""
+LOCK_TIMEOUT_ENV = "RECONCILE_STORE_LOCK_TIMEOUT"
+STATEMENT_TIMEOUT_ENV = "RECONCILE_STORE_STATEMENT_TIMEOUT"
+MAX_TIMEOUT_S = 86_400.0
+
+
+def timeout_from_env(name: str, default: float) -> float:
+    """A timeout in seconds from environment variable ``name`` (``default`` if unset)."""
+    text = os.environ.get(name, "").strip()
+    if not text:
+        return default
+    try:
+        value = float(text.removesuffix("s").strip())
+    except ValueError:
+        value = math.nan
+    if not 0.0 < value <= MAX_TIMEOUT_S:  # also refuses NaN
+        raise InputError(
+            f"{redact(text)!r} is not a timeout: give seconds, more than 0 and at most "
+            f"{MAX_TIMEOUT_S:g}", key=name)
+    return value
+
+
+@dataclass(frozen=True)
+class Waits:
+    """How long a store connection waits, in s, and whether it only reads."""
+
+    busy_s: float = BUSY_TIMEOUT_S
+    connect_s: float = CONNECT_TIMEOUT_S
+    statement_s: float = STATEMENT_TIMEOUT_S
+    read_only: bool = False
 
 
 def default_store_path() -> Path:
@@ -45,36 +80,42 @@ def default_store_path() -> Path:
     return Path(platformdirs.user_data_dir("reconcile")) / DEFAULT_FILE_NAME
 
 
-def open_engine(
-    location: str | os.PathLike[str] | None, *, busy_timeout_s: float, connect_timeout_s: float
-) -> tuple[Engine, str]:
+def open_engine(location: str | os.PathLike[str] | None, waits: Waits) -> tuple[Engine, str]:
     """The SQLAlchemy engine for a store location, and the location as it may be printed
-    (every password replaced by ``***``, see :mod:`reconcile.store.redact`)."""
+    (every password replaced by ``***``, see :mod:`reconcile.store.redact`).
+
+    A read-only open (``waits.read_only``) of an SQLite file that does not exist raises
+    :class:`MissingStore` and creates nothing."""
     if location is None:
         env = os.environ.get(STORE_ENV, "").strip()
         if env and ("://" in env or looks_like_keywords(env)):
-            return open_engine(env, busy_timeout_s=busy_timeout_s,
-                               connect_timeout_s=connect_timeout_s)
+            return open_engine(env, waits)
         path = Path(env).expanduser() if env else default_store_path()
-        try:
-            path.parent.mkdir(parents=True, exist_ok=True)
-        except OSError as exc:
-            raise StoreError(f"cannot create the store folder {path.parent}: {exc}") from exc
-        return _sqlite_engine(path, busy_timeout_s), redact(str(path))
+        if not waits.read_only:
+            try:
+                path.parent.mkdir(parents=True, exist_ok=True)
+            except OSError as exc:
+                raise StoreError(
+                    f"cannot create the store folder {redact(str(path.parent))}: {exc}") from exc
+        return _sqlite_engine(path, waits), redact(str(path))
     text = os.fspath(location)
     if looks_like_keywords(text):
-        return _postgres_engine(_keywords_url(text), connect_timeout_s)
+        return _postgres_engine(_keywords_url(text), waits)
     if "://" in text:
-        return _url_engine(text, busy_timeout_s, connect_timeout_s)
+        return _url_engine(text, waits)
     path = Path(text).expanduser()
-    return _sqlite_engine(path, busy_timeout_s), redact(str(path))
+    return _sqlite_engine(path, waits), redact(str(path))
+
+
+class MissingStore(InputError):
+    """A command that only reads was given an SQLite store file that does not exist."""
 
 
 def _bad_location(text: str, why: str) -> InputError:
     return InputError(f"store {redact(text)!r} cannot be read: {redact(why)}", key="store")
 
 
-def _url_engine(text: str, busy_s: float, connect_s: float) -> tuple[Engine, str]:
+def _url_engine(text: str, waits: Waits) -> tuple[Engine, str]:
     try:
         url = sa.engine.make_url(text)
         port = url.port  # a bad port or a broken IPv6 literal fails here or above
@@ -91,13 +132,13 @@ def _url_engine(text: str, busy_s: float, connect_s: float) -> tuple[Engine, str
         if not url.database or url.database == ":memory:":
             raise InputError("an in-memory store keeps nothing: give a file", key="store")
         path = Path(url.database).expanduser()
-        return _sqlite_engine(path, busy_s), redact(str(path))
+        return _sqlite_engine(path, waits), redact(str(path))
     if backend in ("postgresql", "postgres"):
         if url.drivername.partition("+")[2] not in ("", "psycopg"):
             raise InputError(
                 f"store URL driver {redact(url.drivername)!r} is not supported: "
                 "use postgresql:// or postgresql+psycopg://", key="store")
-        return _postgres_engine(url, connect_s)
+        return _postgres_engine(url, waits)
     raise InputError(
         f"store URL {_label(url)!r}: unsupported database "
         f"{redact(backend)!r}; give a file path, sqlite:///PATH or postgresql://...",
@@ -128,20 +169,33 @@ def _keywords_url(text: str) -> sa.URL:
         database=keys.pop("dbname", None), query={k: str(v) for k, v in keys.items()})
 
 
-def _postgres_engine(url: sa.URL, connect_s: float) -> tuple[Engine, str]:
+def _postgres_engine(url: sa.URL, waits: Waits) -> tuple[Engine, str]:
     url = url.set(drivername="postgresql+psycopg")
     label = _label(url)
     if url.port is not None and not 0 < url.port < 65536:
         raise _bad_location(label, f"port {url.port} is not between 1 and 65535")
     _require_psycopg(label)
+    # Every session waits at most busy_s for a lock and statement_s for a statement; set
+    # in the start-up packet, so no transaction is needed. The URL's own options follow,
+    # so a URL may still override them.
+    options = (f"-c lock_timeout={_ms(waits.busy_s)} "
+               f"-c statement_timeout={_ms(waits.statement_s)}")
+    query = dict(url.query)
+    if "options" in query:
+        given = query.pop("options")
+        options += " " + (" ".join(given) if isinstance(given, tuple) else given)
     engine = sa.create_engine(
-        url,
+        url.set(query=query),
         # libpq counts whole seconds and reads anything under 2 as 2
-        connect_args={"connect_timeout": max(2, math.ceil(connect_s)),
-                      "application_name": "reconcile"},
+        connect_args={"connect_timeout": max(2, math.ceil(waits.connect_s)),
+                      "application_name": "reconcile", "options": options},
         pool_pre_ping=False,
     )
     return engine, label
+
+
+def _ms(seconds: float) -> int:
+    return max(1, round(seconds * 1000))
 
 
 def _require_psycopg(label: str) -> None:
@@ -155,14 +209,23 @@ def _require_psycopg(label: str) -> None:
         )
 
 
-def _sqlite_engine(path: Path, busy_s: float) -> Engine:
+def _sqlite_engine(path: Path, waits: Waits) -> Engine:
+    shown = redact(str(path))
     if path.is_dir():
-        raise StoreError(f"store {path} is a folder; give a file name such as {DEFAULT_FILE_NAME}")
+        raise StoreError(f"store {shown} is a folder; give a file name such as {DEFAULT_FILE_NAME}")
+    if waits.read_only and not path.exists():
+        raise MissingStore(
+            f"no store at {shown} (a mistyped path?); 'reconcile session new' starts one",
+            key="store")
     if not path.parent.is_dir():
-        raise StoreError(f"cannot open store {path}: folder {path.parent} does not exist")
-    engine = sa.create_engine(
-        sa.URL.create("sqlite", database=str(path)), connect_args={"timeout": busy_s})
-    busy_ms = max(0, round(busy_s * 1000))
+        raise StoreError(f"cannot open store {shown}: folder {redact(str(path.parent))} "
+                         "does not exist")
+    busy_ms = max(0, round(waits.busy_s * 1000))
+    if waits.read_only:
+        engine = _sqlite_reader(path, waits.busy_s)
+    else:
+        engine = sa.create_engine(
+            sa.URL.create("sqlite", database=str(path)), connect_args={"timeout": waits.busy_s})
 
     @event.listens_for(engine, "connect")
     def _on_connect(dbapi_conn: Any, _record: Any) -> None:
@@ -173,8 +236,9 @@ def _sqlite_engine(path: Path, busy_s: float) -> Engine:
         try:
             cur.execute(f"PRAGMA busy_timeout={busy_ms}")
             cur.execute("PRAGMA foreign_keys=ON")
-            cur.execute("PRAGMA journal_mode=WAL")
-            cur.execute("PRAGMA synchronous=NORMAL")
+            if not waits.read_only:  # a reader keeps the file's journal mode
+                cur.execute("PRAGMA journal_mode=WAL")
+                cur.execute("PRAGMA synchronous=NORMAL")
         finally:
             cur.close()
 
@@ -189,6 +253,24 @@ def _sqlite_engine(path: Path, busy_s: float) -> Engine:
     return engine
 
 
+def _sqlite_reader(path: Path, busy_s: float) -> Engine:
+    """A read-only SQLite engine: ``mode=ro``, or, where the file's folder cannot take
+    the WAL's side files, ``immutable=1`` (SQLite then reads the file as it is, without
+    locks; what another writer has not yet checkpointed into it is not seen)."""
+    import sqlite3
+    from urllib.parse import quote
+
+    base = "file:" + quote(str(path.resolve()), safe="/")
+    immutable = not os.access(path.parent, os.W_OK) and not (
+        path.with_name(path.name + "-shm").exists())
+
+    def connect() -> sqlite3.Connection:
+        uri = base + ("?mode=ro&immutable=1" if immutable else "?mode=ro")
+        return sqlite3.connect(uri, uri=True, timeout=busy_s, check_same_thread=False)
+
+    return sa.create_engine("sqlite://", creator=connect)
+
+
 # ---------------------------------------------------------------------------- errors
 def _one_line(exc: BaseException) -> str:
     return " ".join(str(exc).split())
@@ -198,11 +280,15 @@ class Database:
     """An open connection pool to a store: transactions, error translation, the schema's
     version and upgrades. :class:`reconcile.store.repository.Store` adds what is stored."""
 
-    def __init__(self, engine: Engine, location: str, *, busy_timeout_s: float) -> None:
+    def __init__(self, engine: Engine, location: str, waits: Waits) -> None:
         self._engine = engine
-        self._busy_timeout_s = busy_timeout_s
+        self._waits = waits
+        self._busy_timeout_s = waits.busy_s
         self.location = location
         self.is_sqlite = engine.dialect.name == "sqlite"
+        self.read_only = waits.read_only
+        self.empty = False
+        """A read-only open of a store that holds no tables yet (nothing was created)."""
 
     # ------------------------------------------------------------ plumbing
     def close(self) -> None:
@@ -231,6 +317,15 @@ class Database:
             if "not a database" in low or "malformed" in low:
                 return StoreError(f"{where} is not a readable SQLite store: {detail}")
             return StoreError(f"{where}: {detail}")
+        state = getattr(exc.orig, "sqlstate", None)
+        if state == "55P03":  # lock_not_available: lock_timeout ran out
+            return StoreError(
+                f"{where} is locked by another process (waited {self._busy_timeout_s:g} s, "
+                f"${LOCK_TIMEOUT_ENV}); try again when it has finished")
+        if state == "57014":  # query_canceled: statement_timeout ran out
+            return StoreError(
+                f"{where}: a statement ran longer than {self._waits.statement_s:g} s "
+                f"(${STATEMENT_TIMEOUT_ENV}); try again, or allow longer")
         if isinstance(exc, sa.exc.OperationalError) and (
             "connection" in low or "connect" in low or "timeout" in low
         ):
@@ -296,6 +391,9 @@ class Database:
         with self._read() as conn:
             version = self._version(conn)
         self._refuse_newer(version)
+        if self.read_only:  # reads work on every older version: nothing is written
+            self.empty = version == 0
+            return
         if version == SCHEMA_VERSION:
             return
         with self._write() as conn:

@@ -39,8 +39,13 @@ from reconcile.model.board import Board
 from reconcile.store.connection import (
     BUSY_TIMEOUT_S,
     CONNECT_TIMEOUT_S,
+    LOCK_TIMEOUT_ENV,
+    STATEMENT_TIMEOUT_ENV,
+    STATEMENT_TIMEOUT_S,
     Database,
+    Waits,
     open_engine,
+    timeout_from_env,
 )
 from reconcile.store.schema import (
     _ENDED,
@@ -186,8 +191,10 @@ class SessionView:
 def open_store(
     location: str | os.PathLike[str] | None = None,
     *,
-    busy_timeout_s: float = BUSY_TIMEOUT_S,
+    busy_timeout_s: float | None = None,
     connect_timeout_s: float = CONNECT_TIMEOUT_S,
+    statement_timeout_s: float | None = None,
+    read_only: bool = False,
 ) -> Store:
     """Open (creating or upgrading where needed) a session store.
 
@@ -198,10 +205,18 @@ def open_store(
         an SQLite store, or a database URL: ``sqlite:///path``, ``postgresql://...``
         (reached with the psycopg driver).
     busy_timeout_s
-        How long an SQLite writer waits for another process' lock, in s.
+        How long a writer waits for another process' lock, in s (SQLite's busy_timeout,
+        PostgreSQL's lock_timeout); default ``$RECONCILE_STORE_LOCK_TIMEOUT`` or 5 s.
     connect_timeout_s
         How long to wait for a database server to answer, in s (whole seconds, at
         least 2: libpq's rule).
+    statement_timeout_s
+        How long one PostgreSQL statement may run, in s (its statement_timeout);
+        default ``$RECONCILE_STORE_STATEMENT_TIMEOUT`` or 60 s.
+    read_only
+        Only read: nothing is created or upgraded, a missing SQLite file is a
+        :class:`~reconcile.store.connection.MissingStore` error, and a file in a folder
+        that cannot take SQLite's side files is read as it is (``immutable``).
 
     Raises
     ------
@@ -211,9 +226,15 @@ def open_store(
         The store cannot be reached, read or written, is not a reconcile store, or has a
         newer schema than this code knows.
     """
-    engine, label = open_engine(location, busy_timeout_s=busy_timeout_s,
-                                connect_timeout_s=connect_timeout_s)
-    store = Store(engine, label, busy_timeout_s=busy_timeout_s)
+    waits = Waits(
+        busy_s=(timeout_from_env(LOCK_TIMEOUT_ENV, BUSY_TIMEOUT_S)
+                if busy_timeout_s is None else busy_timeout_s),
+        connect_s=connect_timeout_s,
+        statement_s=(timeout_from_env(STATEMENT_TIMEOUT_ENV, STATEMENT_TIMEOUT_S)
+                     if statement_timeout_s is None else statement_timeout_s),
+        read_only=read_only)
+    engine, label = open_engine(location, waits)
+    store = Store(engine, label, waits)
     try:
         store._prepare_schema()
     except BaseException:
@@ -280,6 +301,10 @@ class Store(Database):
         session row until the transaction ends; SQLite's write lock does that already.
         """
         sid = session_id.strip().upper()
+        if self.empty:
+            raise InputError(
+                f"no session {session_id!r} in store {self.location} (it holds no sessions)",
+                key="session")
         query = _Q_SESSION
         if lock and not self.is_sqlite:
             query = _Q_SESSION_SHARED if lock == "share" else _Q_SESSION_EXCLUSIVE
@@ -483,6 +508,9 @@ class Store(Database):
 
     def analysis(self, analysis_id: int) -> AnalysisRecord:
         """One recorded analysis, with its result."""
+        if self.empty:
+            raise InputError(f"no analysis {analysis_id} in store {self.location}",
+                             key="analysis")
         with self._read() as conn:
             row = conn.execute(
                 sa.select(T_ANALYSES).where(T_ANALYSES.c.id == int(analysis_id))).first()
@@ -493,6 +521,8 @@ class Store(Database):
     # ------------------------------------------------------------ listing
     def list_sessions(self) -> list[SessionSummary]:
         """Every session, oldest first."""
+        if self.empty:
+            return []
         with self._read() as conn:
             rows = conn.execute(_summary_query()).all()
         return [_summary(row) for row in rows]

@@ -22,10 +22,12 @@ StoreLocation: TypeAlias = "str | os.PathLike[str] | None"
 """``None`` (the default store), an SQLite file path, or a database URL."""
 
 
-def _open(store: StoreLocation) -> Store:
+def _open(store: StoreLocation, *, read_only: bool = False) -> Store:
+    """Open the store; a command that only reads opens it read-only (creating nothing:
+    a mistyped path is an error, not a new empty store)."""
     from reconcile.store.repository import open_store
 
-    return open_store(store)
+    return open_store(store, read_only=read_only)
 
 
 def new_session(
@@ -118,21 +120,35 @@ def retract_reading(
 
 def export_session(session_id: str, *, store: StoreLocation = None) -> str:
     """``session export``: the session's current readings as a readings file (text)."""
-    with _open(store) as db:
+    with _open(store, read_only=True) as db:
         return db.export_csv(session_id)
 
 
 def list_sessions(*, store: StoreLocation = None) -> dict[str, Any]:
     """``session list``: ``{"store": LOCATION, "sessions": [{session, board_title, serial,
-    operator, started, ended, readings, analyses}, ...]}``, oldest first."""
-    with _open(store) as db:
+    operator, started, ended, readings, analyses}, ...]}``, oldest first.
+
+    The default store, before any session was started, lists no sessions (and is not
+    created)."""
+    from reconcile.store.connection import MissingStore
+
+    try:
+        db = _open(store, read_only=True)
+    except MissingStore:
+        from reconcile.store.connection import STORE_ENV, default_store_path
+
+        if store is not None or os.environ.get(STORE_ENV, "").strip():
+            raise  # a path the user gave
+
+        return {"store": str(default_store_path()), "sessions": []}
+    with db:
         return {"store": db.location, "sessions": [s.to_dict() for s in db.list_sessions()]}
 
 
 def show_session(session_id: str, *, store: StoreLocation = None) -> dict[str, Any]:
     """``session show``: metadata, current readings and the analyses recorded (without
     their results); see :meth:`reconcile.store.SessionView.to_dict`."""
-    with _open(store) as db:
+    with _open(store, read_only=True) as db:
         return db.show_session(session_id).to_dict()
 
 
@@ -148,7 +164,7 @@ def end_session(
 def show_analysis(analysis_id: int, *, store: StoreLocation = None) -> dict[str, Any]:
     """One recorded analysis with its result: ``{"id", "kind", "created", "tool_version",
     "inputs_sha256", "result"}``."""
-    with _open(store) as db:
+    with _open(store, read_only=True) as db:
         return db.analysis(analysis_id).to_dict()
 
 
@@ -159,7 +175,7 @@ def analysis_inputs(
     readings, and the digest of both to record with the result."""
     from reconcile.data.digest import inputs_sha256
 
-    with _open(store) as db:
+    with _open(store, read_only=True) as db:
         board, readings = db.session_inputs(session_id)
     return board, readings, inputs_sha256(board, readings)
 
