@@ -45,13 +45,14 @@ from __future__ import annotations
 import math
 import os
 import re
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 from reconcile.data.accuracy import DEFAULT_OVER_RANGE, AccuracySpec, RangeTable
 from reconcile.errors import InputError, InputErrors
+from reconcile.model.text_files import read_text
+from reconcile.model.toml_lines import parse_toml
 
 from reconcile.instruments.commands import ROLES, actions_for, template_problem
 
@@ -84,7 +85,6 @@ _TOP_KEYS = ("instrument", "commands", "accuracy", "limits", "scanner", "channel
 _SPEC_KEYS = ("range", "percent_of_reading", "percent_of_range", "floor")
 _CHANNEL_ID = re.compile(r"[A-Za-z0-9!._-]+")
 _NODE = re.compile(r"[^\s/,]+")
-_TOML_LINE = re.compile(r"at line (\d+)")
 
 
 @dataclass(frozen=True)
@@ -149,18 +149,10 @@ class InstrumentProfile:
             The file is missing, is not TOML, or has problems (all reported together).
         """
         name = os.fspath(path)
-        try:
-            with open(name, "rb") as handle:
-                data = tomllib.load(handle)
-        except FileNotFoundError as exc:
-            raise InputError("instrument file not found", path=name) from exc
-        except OSError as exc:
-            raise InputError(f"cannot read instrument file: {exc.strerror}", path=name) from exc
-        except tomllib.TOMLDecodeError as exc:
-            match = _TOML_LINE.search(str(exc))
-            line = int(match.group(1)) if match else None
-            raise InputError(f"not valid TOML: {exc}", path=name, line=line) from exc
-        return cls.from_dict(data, path=name)
+        if not os.path.exists(name):
+            raise InputError("instrument file not found", path=name)
+        name, text = read_text(name, "instrument file")
+        return cls.from_dict(parse_toml(text, name), path=name)
 
     @classmethod
     def from_dict(cls, data: Mapping[str, Any], path: str | None = None) -> InstrumentProfile:

@@ -14,7 +14,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from reconcile.cli.output import check_plot_path, emit_json
+from reconcile.cli.output import check_count, check_plot_path, emit_json
 from reconcile.errors import InputError, ReconcileError
 
 app = typer.Typer(
@@ -109,6 +109,7 @@ def solve(
                              key="--plot")
         check_plot_path(plot)
     b = load_board(board)
+    check_count(seed, "--seed")
     if samples != 0:  # 0, the default, is no Monte Carlo
         from reconcile.analysis.monte_carlo import check_samples
 
@@ -191,6 +192,8 @@ def fit(
     from reconcile.pipeline.analyses import fit_step
     from reconcile.pipeline.inputs import AnalysisOptions
 
+    if plot is not None:
+        check_plot_path(plot)
     inputs = _gather(board, readings, session, store, "fit", AnalysisOptions(model_meter=meter_model))
     outcome = fit_step(inputs)
     result = outcome.to_dict()
@@ -266,6 +269,8 @@ def lot(
     """Characterise a transistor lot from jig readings or sweeps: spread, outliers, pairs."""
     from reconcile.lot.characterise import run_lot
 
+    if plot is not None:
+        check_plot_path(plot)
     jig, data = (first, readings) if readings is not None else (None, first)
     result = run_lot(
         jig,
@@ -322,6 +327,7 @@ def diagnose(
     from reconcile.pipeline.inputs import AnalysisOptions
     from reconcile.present.progress import step_progress
 
+    check_count(rows, "--rows", minimum=1)
     prior = None
     if weights is not None:
         from reconcile.diagnosis.weights import load_fault_weights
@@ -360,6 +366,11 @@ def trim(
     from reconcile.pipeline.analyses import trim_step
     from reconcile.pipeline.inputs import AnalysisOptions
 
+    if plot is not None:
+        check_plot_path(plot)
+    for value, option, minimum in ((max_changes, "--max-changes", 1), (top, "--top", 1),
+                                   (samples, "--samples", 0), (seed, "--seed", 0)):
+        check_count(value, option, minimum=minimum)
     options = AnalysisOptions(max_changes=max_changes, top=top, trim_samples=samples, seed=seed)
     inputs = _gather(board, readings, session, store, "trim", options, readings_optional=True)
     outcome = trim_step(inputs)
@@ -459,6 +470,19 @@ def demo(
     run_demo(json_output=json, out_dir=out)
 
 
+def _check_arguments(args: list[str]) -> None:
+    """Refuse an argument that is not UTF-8 (Python hands its bytes over as lone
+    surrogates, which no file, store or terminal can take): one line naming it."""
+    for number, arg in enumerate(args, start=1):
+        try:
+            arg.encode("utf-8")
+        except UnicodeEncodeError:
+            raw = arg.encode("utf-8", "surrogateescape")
+            raise InputError(
+                f"argument {number} ({raw!r}) is not UTF-8 text; type it again in UTF-8 "
+                "(or rename the file)") from None
+
+
 def main() -> None:
     """Console-script entry point with the project's single error handler.
 
@@ -469,8 +493,30 @@ def main() -> None:
     from reconcile.store.redact import redact  # stdlib only; no password is ever printed
 
     tolerate_narrow_encoding()
+    # typer >= 0.26 carries its own click (typer._click); older typer uses click itself
     try:
-        app()
+        from typer._click import exceptions as _usage
+    except ImportError:  # pragma: no cover - depends on the typer release
+        from click import exceptions as _usage
+    try:
+        _check_arguments(sys.argv[1:])
+        code = app(standalone_mode=False)
+        sys.exit(code if isinstance(code, int) else 0)
+    except typer.Abort:
+        sys.stderr.write("reconcile: interrupted\n")
+        sys.exit(130)
+    except _usage.NoArgsIsHelpError as err:
+        err.show()  # no arguments: the help, as click shows it
+        sys.exit(err.exit_code)
+    except _usage.UsageError as err:
+        # a usage error is bad input like any other: one line, exit 2
+        where = err.ctx.command_path if err.ctx is not None else "reconcile"
+        message = " ".join(err.format_message().split())
+        sys.stderr.write(f"reconcile: {message} (see '{where} --help')\n")
+        sys.exit(2)
+    except _usage.ClickException as err:
+        sys.stderr.write(f"reconcile: {' '.join(err.format_message().split())}\n")
+        sys.exit(2)
     except ReconcileError as err:
         if _state["debug"]:
             raise

@@ -34,3 +34,12 @@ def check_plot_path(path) -> None:
                          path=str(p), key="--plot")
     if not p.parent.is_dir():
         raise InputError("the folder for the plot does not exist", path=str(p), key="--plot")
+
+
+def check_count(value: int, option: str, *, minimum: int = 0) -> int:
+    """Refuse, before any work, a count or seed option below ``minimum`` (one line, exit 2)."""
+    from reconcile.errors import InputError
+
+    if value < minimum:
+        raise InputError(f"must be at least {minimum}, got {value}", key=option)
+    return value

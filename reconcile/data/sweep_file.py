@@ -49,6 +49,7 @@ import numpy as np
 from reconcile.data import csv_rows
 from reconcile.data.readings import COUNTS_FULL_SCALE, DEFAULT_UNCERTAINTY, UncertaintyRule
 from reconcile.errors import InputError, InputErrors
+from reconcile.model.quantities import MIN_RELATIVE_UNCERTAINTY
 from reconcile.model.text_files import read_text
 from reconcile.model.values import ZERO_CELSIUS_K, parse_tolerance, parse_value
 
@@ -65,6 +66,12 @@ SWEEP_COLUMNS = ("device", "vbe", "ic", "ib", "u_vbe", "u_ic", "u_ib", "vce", "t
 _REQUIRED = ("device", "vbe", "ic", "ib")
 _KIND = {"vbe": "volts", "ic": "amps", "ib": "amps", "u_vbe": "volts", "u_ic": "amps",
          "u_ib": "amps", "vce": "volts"}
+
+#: Magnitudes a nonzero sweep value may have, V or A (docs/formats.md §3.1): a forward
+#: biased silicon junction reads well under 2 V; no source-measure unit resolves a femtoamp
+#: point into a fit, and a small-signal lot sweep stays far below 10 A.
+SWEEP_LIMITS = {"vbe": (1e-6, 2.0), "ic": (1e-15, 10.0), "ib": (1e-15, 10.0),
+                "vce": (0.0, 1000.0)}
 
 DEFAULT_TEMPERATURE_K = ZERO_CELSIUS_K + 25.0
 """Temperature of rows with no ``temperature`` cell: 25 C."""
@@ -220,6 +227,13 @@ def _parse_row(
             continue
         if not math.isfinite(values[name]):
             problems.append(f"{name} value {text_cell!r} must be finite")
+            continue
+        low, high = SWEEP_LIMITS[name]
+        if values[name] != 0.0 and not low <= abs(values[name]) <= high:
+            unit = "V" if _KIND[name] == "volts" else "A"
+            problems.append(f"{name} {text_cell!r} is beyond what a transistor sweep reads "
+                            f"(|{name}| from {low:g} {unit} to {high:g} {unit}; "
+                            "docs/formats.md §3.1)")
     for name, of in (("u_vbe", "vbe"), ("u_ic", "ic"), ("u_ib", "ib")):
         text_cell = cell(name)
         if not text_cell:
@@ -233,6 +247,9 @@ def _parse_row(
         if not (u > 0.0 and math.isfinite(u)):
             problems.append(f"{name} {text_cell!r} must be a positive standard uncertainty, "
                             "or blank for the default")
+        elif u < max(1e-18, MIN_RELATIVE_UNCERTAINTY * abs(values.get(of, 0.0))):
+            problems.append(f"{name} {text_cell!r} is below 1e-9 of the reading (and 1e-18); "
+                            "no instrument resolves that (docs/formats.md §3.3)")
         values[name] = u
     t_cell = cell("temperature")
     t = t_default

@@ -30,12 +30,12 @@ from __future__ import annotations
 
 import math
 import os
-import tomllib
 from collections.abc import Mapping
 from types import MappingProxyType
 
 from reconcile.errors import InputError
-from reconcile.model.toml_lines import TomlLines, syntax_error_line
+from reconcile.model.text_files import read_text
+from reconcile.model.toml_lines import TomlLines, parse_toml
 
 __all__ = ["DEFAULT_FAULT_WEIGHTS", "FAULT_KINDS", "fault_weights", "load_fault_weights"]
 
@@ -116,16 +116,8 @@ def load_fault_weights(path: str | os.PathLike[str]) -> dict[str, float]:
         The file cannot be read or parsed, has no ``[fault_weights]`` table, or holds a
         bad entry (see :func:`fault_weights`).
     """
-    where = os.fspath(path)
-    try:
-        with open(where, encoding="utf-8") as handle:
-            text = handle.read()
-    except OSError as err:
-        raise InputError(f"cannot read fault weights: {err.strerror}", path=where) from err
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(f"not valid TOML: {err}", path=where, line=syntax_error_line(err)) from err
+    where, text = read_text(path, "fault weights file")
+    data = parse_toml(text, where)
     table = data.get(_TABLE)
     if not isinstance(table, dict):
         raise InputError(f"no [{_TABLE}] table", path=where, key=_TABLE)

@@ -27,7 +27,6 @@ from __future__ import annotations
 import difflib
 import math
 import os
-import tomllib
 from collections.abc import Iterable
 from typing import Any
 
@@ -48,7 +47,7 @@ from reconcile.model.board import (
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.quantities import REGISTRY
 from reconcile.model.text_files import read_text
-from reconcile.model.toml_lines import Key, TomlLines, syntax_error_line
+from reconcile.model.toml_lines import Key, TomlLines, parse_toml
 from reconcile.model.values import parse_value
 
 __all__ = ["board_from_text", "load_board"]
@@ -111,6 +110,22 @@ def _listing(names: Iterable[str]) -> str:
     return ", ".join(names) if names else "none"
 
 
+#: Magnitudes a finite, nonzero board value may have, by value kind, SI units
+#: (docs/formats.md §2.4): far outside any discrete board, so that only nonsense (an
+#: overflowing 1e308, a prefix slip by many decades) is refused before the engine sees it.
+BOARD_LIMITS: dict[str, tuple[float, float]] = {
+    "ohms": (1e-6, 1e15),
+    "farads": (1e-18, 1e3),
+    "volts": (1e-12, 1e5),
+    "amps": (1e-30, 1e3),
+    "watts": (1e-9, 1e6),
+    "hertz": (1e-6, 1e12),
+    "seconds": (1e-12, 1e6),
+    "temperature": (1.0, 2000.0),
+    "plain": (1e-12, 1e12),
+}
+
+
 class _Checker:
     """Collects problems, each located by key path and line."""
 
@@ -126,12 +141,18 @@ class _Checker:
 
     def value(self, key: Key, raw: Any, kind: str) -> float | None:
         try:
-            return parse_value(raw, kind)
+            number = parse_value(raw, kind)
         except InputError as err:
             self.errors.append(
                 err.located(path=self.path, key=".".join(key), line=self.lines.find(key))
             )
             return None
+        low, high = BOARD_LIMITS.get(kind, (0.0, math.inf))
+        if math.isfinite(number) and number != 0.0 and not low <= abs(number) <= high:
+            self.error(key, f"{'.'.join(key)} = {raw!r} is beyond the physical limits of a "
+                       f"board file ({low:g} to {high:g} in SI; docs/formats.md §2.4)")
+            return None
+        return number
 
     def table(self, key: Key, raw: Any, what: str) -> dict[str, Any] | None:
         if isinstance(raw, dict):
@@ -252,12 +273,9 @@ def board_from_text(text: str, path: str = "<text>") -> Board:
     """
     text = text.removeprefix("\ufeff")
     try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as err:
-        line = syntax_error_line(err)
-        raise InputErrors(
-            [InputError(f"TOML syntax error: {err}", path=path, line=line)]
-        ) from err
+        data = parse_toml(text, path, syntax="TOML syntax error")
+    except InputError as err:
+        raise InputErrors([err]) from err
     check = _Checker(path, text)
     board = _build(data, check, path, text)
     if check.errors:

@@ -4,8 +4,14 @@ from __future__ import annotations
 
 import re
 import tomllib
+from typing import Any
 
-__all__ = ["Key", "TomlLines", "syntax_error_line"]
+from reconcile.errors import InputError
+
+__all__ = ["MAX_TOML_DEPTH", "Key", "TomlLines", "parse_toml", "syntax_error_line"]
+
+MAX_TOML_DEPTH = 16
+"""Deepest nesting of tables and arrays an input file may have (ours need four)."""
 
 #: A key path, e.g. ``("resistors", "R1", "ohms")``.
 Key = tuple[str, ...]
@@ -29,6 +35,49 @@ def syntax_error_line(err: tomllib.TOMLDecodeError) -> int | None:
     """The line number in a :class:`tomllib.TOMLDecodeError` message, if it has one."""
     found = _TOML_AT.search(str(err))
     return int(found.group(1)) if found else None
+
+
+def _depth(data: Any) -> int:
+    """How deeply tables and arrays nest in parsed TOML (iterative: no recursion limit)."""
+    deepest, stack = 0, [(data, 0)]
+    while stack:
+        value, depth = stack.pop()
+        if isinstance(value, dict):
+            children = list(value.values())
+        elif isinstance(value, list):
+            children = value
+        else:
+            continue
+        deepest = max(deepest, depth + 1)
+        if deepest > MAX_TOML_DEPTH:
+            break
+        stack.extend((child, depth + 1) for child in children)
+    return deepest
+
+
+def parse_toml(text: str, path: str, *, syntax: str = "not valid TOML") -> dict[str, Any]:
+    """Parse the TOML text of an input file (board, fault weights, instrument).
+
+    ``syntax`` starts the message of a syntax error.
+
+    Raises
+    ------
+    InputError
+        A syntax error (with its line), or tables and arrays nested deeper than
+        :data:`MAX_TOML_DEPTH` (so deep that the parser's recursion would give out, or
+        deeper than any input file of ours).
+    """
+    try:
+        data = tomllib.loads(text.removeprefix("\ufeff"))
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(f"{syntax}: {err}", path=path, line=syntax_error_line(err)) from err
+    except RecursionError:
+        data = None
+    if data is None or _depth(data) > MAX_TOML_DEPTH:
+        raise InputError(
+            f"tables and arrays are nested more than {MAX_TOML_DEPTH} deep; an input file "
+            "needs a few levels", path=path) from None
+    return data
 
 
 class TomlLines:

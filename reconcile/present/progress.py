@@ -52,7 +52,7 @@ def step_progress(
         TextColumn("{task.description}"),
         BarColumn(),
         MofNCompleteColumn(),
-        console=Console(stderr=True),
+        console=make_console(stderr=True),
         transient=True,
     )
     with progress:

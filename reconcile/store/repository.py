@@ -379,6 +379,9 @@ class Store(Database):
         return self._supersede(session_id, reading_id, row)
 
     def _supersede(self, session_id: str, reading_id: int, row: dict[str, Any]) -> int:
+        if not 1 <= int(reading_id) < 2**63:  # ids are positive 64-bit integers
+            raise InputError(f"session {session_id.strip().upper()} has no reading "
+                             f"{reading_id}", key="reading")
         try:
             with self._write() as conn:
                 sid = self._open_session(conn, session_id)
@@ -508,7 +511,7 @@ class Store(Database):
 
     def analysis(self, analysis_id: int) -> AnalysisRecord:
         """One recorded analysis, with its result."""
-        if self.empty:
+        if self.empty or not 1 <= int(analysis_id) < 2**63:
             raise InputError(f"no analysis {analysis_id} in store {self.location}",
                              key="analysis")
         with self._read() as conn:
