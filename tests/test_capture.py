@@ -369,12 +369,15 @@ def test_fault_stops_with_a_clear_message_and_resume_does_not_duplicate(
     assert [s.id for s in store.readings(sid)][:stored] == [s.id for s in first]
 
 
-def test_resume_skips_readings_typed_into_the_session_earlier(store, tmp_path):
+@pytest.mark.parametrize("typed_at", ["c", "c/gnd"])
+def test_resume_skips_readings_typed_into_the_session_earlier(store, typed_at):
+    # docs/formats.md §3: a voltage at "c" means V(c) − V(gnd), so "c/gnd" is the same
+    # reading (the catalogue's "not yet taken" rule, reconcile/inference/catalogue.py).
     board = _line_receiver()
     sid = _session(store, board)
     from reconcile.data.readings import Reading
 
-    store.add_reading(sid, Reading("voltage", "c", 8.6, "V", 0.01, note="typed"))
+    store.add_reading(sid, Reading("voltage", typed_at, 8.6, "V", 0.01, note="typed"))
     bench = SimulatedBench(board, np.random.default_rng(4))
     report = _capture(board, store, sid, bench, gain=False, input_resistance=False).run()
     assert [p.key for p in report.skipped_existing] == [("voltage", "c")]

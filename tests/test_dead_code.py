@@ -37,6 +37,8 @@ ALLOWED = {
     "pytestmark": "pytest module marker",
     "dps": "mpmath precision setting (tests)",
     "pg_location": "pytest fixture",
+    "pytest_runtest_logreport": "pytest hook (tests/conftest.py)",
+    "pytest_terminal_summary": "pytest hook (tests/conftest.py)",
     # result fields: part of the result a notebook user reads
     "prior_sd_ratio": "FitResult field (posterior sd / prior sd)",
     "beta_chi_square": "lot extraction result field",

@@ -7,9 +7,9 @@ quantity with gradient g by
     Δvar = (g·C·hᵀ)² / (h·C·hᵀ + u²)
 
 (the rank-one Kalman/Bayes update of a Gaussian posterior). Candidates are every
-reading not yet taken: each node voltage, each part measured out of circuit, each
-supply's and resistor's current, and the small-signal quantities. Each is given its
-default uncertainty (:data:`reconcile.readings.DEFAULT_UNCERTAINTY`). The score is the
+reading of the catalogue (:func:`reconcile.inference.catalogue.readings_one_could_take`)
+not yet taken, whatever it needs on the bench. Each is given its default uncertainty
+(the registry's rule, :mod:`reconcile.model.quantities`). The score is the
 mean relative reduction of the standard uncertainty over the spec quantities (or, with
 no spec, over every fitted parameter), so quantities on different scales count alike.
 """
@@ -20,6 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from reconcile.inference.catalogue import readings_one_could_take
 from reconcile.inference.fitting import FitResult
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
@@ -50,19 +51,9 @@ class Suggestion:
 
 
 def candidate_readings(fit: FitResult) -> list[tuple[str, str]]:
-    """Every reading that could be taken on this board and has not been."""
-    board = fit.board
-    taken = {(r.quantity, r.at) for r in fit.readings}
-    cands: list[tuple[str, str]] = []
-    skip = {board.signal.input, board.signal.output}
-    cands += [("voltage", n) for n in board.nodes if n not in skip]
-    cands += [("resistance", ref) for ref in board.resistors]
-    cands += [("capacitance", ref) for ref in board.capacitors]
-    cands += [("current", ref) for ref in board.supplies]
-    cands += [("current", ref) for ref in board.resistors]
-    if board.signal.input and board.signal.output:
-        cands += [(q, "") for q in ("gain", "input_resistance", "output_resistance")]
-    return [c for c in cands if c not in taken]
+    """Every reading of the catalogue not yet taken in ``fit``'s readings."""
+    taken = [(r.quantity, r.at) for r in fit.readings]
+    return [e.key for e in readings_one_could_take(fit.board, taken=taken)]
 
 
 def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:

@@ -1,14 +1,21 @@
 """What a capture run reads, in which order, and what the operator is told at each step.
 
-:func:`plan_readings` lists the readings a careful engineer takes first on a board:
+:func:`plan_readings` lists the readings a careful engineer takes first on a board: the
+readings of the catalogue (:func:`reconcile.inference.catalogue.readings_one_could_take`)
+that the guided-capture bench can take
+(:data:`~reconcile.inference.catalogue.GUIDED_CAPTURE_BENCH`), small-signal ones only
+when asked, in the catalogue's order:
 
 1. every node's DC voltage against gnd, in the board's node order (a ``[signal]``
    input or output node that reaches gnd only through capacitors has no DC voltage and
-   is left out);
+   is left out: :func:`~reconcile.inference.catalogue.dc_nodes`);
 2. every supply's current (its read-back: the current it delivers into the board);
 3. optionally the small-signal gain (AC rms at the input, then at the output);
 4. optionally the input resistance by the series-resistor method
-   (:func:`reconcile.derived_readings.input_resistance_series_method`).
+   (:func:`reconcile.data.derived_readings.input_resistance_series_method`).
+
+Resistor currents (the circuit opened), the output resistance (a switched load) and
+parts measured out of circuit need what a capture does not do.
 
 A :class:`ProbeStep` is one thing the operator is asked to do by hand: put the probe on
 a point, or change the set-up (put the series resistor in, take it out). A capture run
@@ -21,8 +28,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Literal
 
-from reconcile.model.board import GND, Board
 from reconcile.errors import InputError
+from reconcile.inference.catalogue import GUIDED_CAPTURE_BENCH, dc_nodes, readings_one_could_take
+from reconcile.model.board import GND, Board
+from reconcile.model.quantities import QuantityKind
 
 __all__ = [
     "PlannedReading",
@@ -151,19 +160,6 @@ def direct_setup_step(input_node: str) -> ProbeStep:
     )
 
 
-def dc_nodes(board: Board) -> list[str]:
-    """The board's nodes that have a DC voltage, in node order.
-
-    A ``[signal]`` input or output reached only through capacitors has none (the
-    loader allows that one exception to the DC-path rule).
-    """
-    from reconcile.engine import compile_board
-
-    circuit = compile_board(board)
-    floating = {circuit.node_names[i] for i in circuit.dc_floating.tolist()}
-    return [node for node in board.nodes if node not in floating]
-
-
 def plan_readings(
     board: Board, *, gain: bool = False, input_resistance: bool = False
 ) -> list[PlannedReading]:
@@ -196,17 +192,19 @@ def plan_readings(
             f"the {what} needs the board's [signal] table (input and output nodes)",
             path=board.source_path, key="signal",
         )
-    plan = [PlannedReading("voltage", node, dc_probe_step(node).text) for node in dc_nodes(board)]
-    plan += [PlannedReading("current", ref) for ref in board.supplies]
-    if gain:
-        plan.append(PlannedReading(
-            "gain", "",
-            f"AC voltmeter on node {signal.input}, then on node {signal.output}",
-        ))
-    if input_resistance:
-        plan.append(PlannedReading(
-            "input_resistance", "",
-            f"series resistor into the path to node {signal.input}; AC voltmeter on each "
-            "side of it",
-        ))
+    asked = {"gain": gain, "input_resistance": input_resistance}
+    prompts = {
+        "gain": f"AC voltmeter on node {signal.input}, then on node {signal.output}",
+        "input_resistance": f"series resistor into the path to node {signal.input}; "
+        "AC voltmeter on each side of it",
+    }
+    plan = []
+    for entry in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH):
+        if entry.kind is QuantityKind.SMALL_SIGNAL:
+            if asked.get(entry.quantity):
+                plan.append(PlannedReading(entry.quantity, "", prompts[entry.quantity]))
+        elif entry.quantity == "voltage":
+            plan.append(PlannedReading("voltage", entry.at, dc_probe_step(entry.at).text))
+        else:  # a supply's read-back needs no hands on the board
+            plan.append(PlannedReading(entry.quantity, entry.at))
     return plan

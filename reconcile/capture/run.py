@@ -44,6 +44,7 @@ from typing import TYPE_CHECKING, Any
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InstrumentError, ReconcileError
 from reconcile.data.readings import DEFAULT_UNCERTAINTY, Reading
+from reconcile.inference.catalogue import reading_key
 from reconcile.model.values import format_si
 
 from reconcile.capture.outcome import CaptureInterrupted, CaptureReport, LiveValue, TakenReading
@@ -332,7 +333,7 @@ class Capture:
                 f"the board file differs from the board snapshot of session "
                 f"{self.session_id}; capture into a session started on this board file",
                 path=self.board.source_path, key="session")
-        existing = {(s.reading.quantity, s.reading.at)
+        existing = {reading_key(s.reading.quantity, s.reading.at)
                     for s in self.store.readings(self.session_id)}
         self._taken, self._skipped_existing, self._skipped = [], [], []
         current: PlannedReading | None = None

@@ -53,7 +53,8 @@ from reconcile.instruments.ac_voltmeter import AcVoltmeter
 from reconcile.instruments.dc_voltmeter import DcVoltmeter
 from reconcile.instruments.fake import FakeTransport
 from reconcile.instruments.function_generator import FunctionGenerator
-from reconcile.capture.plan import GENERATOR_SIDE, ProbeStep, dc_nodes
+from reconcile.capture.plan import GENERATOR_SIDE, ProbeStep
+from reconcile.inference.catalogue import DC_BENCH, readings_one_could_take
 from reconcile.instruments.power_supply import PowerSupply
 from reconcile.instruments.profile import InstrumentProfile
 from reconcile.instruments.scanner import Scanner
@@ -269,17 +270,19 @@ class SimulatedBench:
         return model.predict(x, solution=solve_batch(model.circuit, params))[0]
 
     def _prime(self) -> None:
-        """Every node voltage and supply current of the true board, one engine call."""
+        """Every reading of the DC bench (node voltages, supply currents) of the true
+        board, from the catalogue, in one engine call."""
         from reconcile.inference.measure import Observation
 
-        nodes = dc_nodes(self.true_board)
-        obs = [Observation("voltage", n, 0.0, 1.0) for n in nodes]
-        obs += [Observation("current", ref, 0.0, 1.0) for ref in self.true_board.supplies]
+        entries = readings_one_could_take(self.true_board, bench=DC_BENCH)
+        obs = [Observation(e.quantity, e.at, 0.0, 1.0) for e in entries]
         values = self._predict(self.true_board, obs)
-        for node, value in zip(nodes, values, strict=False):
-            self._dc_cache[(node, GND)] = float(value)
-        self._currents = {ref: float(v) for ref, v in
-                          zip(self.true_board.supplies, values[len(nodes):], strict=True)}
+        self._currents = {}
+        for entry, value in zip(entries, values, strict=True):
+            if entry.quantity == "voltage":
+                self._dc_cache[(entry.at, GND)] = float(value)
+            else:  # a supply's read-back
+                self._currents[entry.at] = float(value)
 
     def dc_voltage(self, hi: str, lo: str = GND) -> float:
         """V(hi) − V(lo) of the true board with the voltmeter across them (no noise), V."""
@@ -528,6 +531,7 @@ def capture_simulated_demo(
     CaptureReport
     """
     from reconcile.capture.run import Capture
+    from reconcile.data.derived_readings import series_resistor_uncertainty
 
     if series_resistor_ohm is None:
         target = board.spec.targets.get("input_resistance")
@@ -540,7 +544,7 @@ def capture_simulated_demo(
         gain=gain and has_signal,
         input_resistance=input_resistance and has_signal,
         series_resistor_ohm=series_resistor_ohm,
-        series_resistor_u_ohm=series_tolerance * series_resistor_ohm / math.sqrt(3.0),
+        series_resistor_u_ohm=series_resistor_uncertainty(series_resistor_ohm, series_tolerance),
         show=show,
         **kwargs,
     )

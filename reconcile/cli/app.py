@@ -155,10 +155,11 @@ def fit(
     store: StoreOpt = None,
 ) -> None:
     """Fit the built board to its readings: values, uncertainties, error budget, next reading."""
-    from reconcile.pipeline.analyses import run_fit
+    from reconcile.pipeline.analyses import fit_step
+    from reconcile.pipeline.inputs import AnalysisOptions
 
-    inputs = AnalysisInputs.gather(board, readings, session, store, "fit")
-    outcome = run_fit(inputs.board, inputs.readings, model_meter=meter_model)
+    inputs = _gather(board, readings, session, store, "fit", AnalysisOptions(model_meter=meter_model))
+    outcome = fit_step(inputs)
     result = outcome.to_dict()
     recorded = inputs.record("fit", result)
     if plot is not None:
@@ -166,70 +167,37 @@ def fit(
 
         plot_fit(outcome.fit, plot)
     if json:
-        if recorded:
-            result["recorded"] = recorded
-        emit_json(result)
+        _emit_recorded(result, recorded)
         return
-    from reconcile.present.render_fit import print_fit
-
-    print_fit(outcome.fit, outcome.budget, outcome.suggestions)
+    outcome.report()
     if plot is not None:
         typer.echo(f"plot written to {plot}")
+    _echo_recorded(recorded)
+
+
+def _gather(board, readings, session, store, command: str, options=None, **kwargs):
+    """The pipeline's inputs for a command; the loader's notices go to stderr (``--json``
+    keeps stdout to one object)."""
+    from reconcile.pipeline.inputs import AnalysisInputs
+
+    inputs = AnalysisInputs.gather(
+        board, readings, session, store, command, options=options, **kwargs
+    )
+    for notice in inputs.notices:
+        typer.echo(f"note: {notice}", err=True)
+    return inputs
+
+
+def _emit_recorded(result: dict, recorded: dict | None) -> None:
+    if recorded:
+        result["recorded"] = recorded
+    emit_json(result)
+
+
+def _echo_recorded(recorded: dict | None) -> None:
     if recorded:
         typer.echo(
             f"recorded with session {recorded['session']} as analysis {recorded['analysis']}"
-        )
-
-
-class AnalysisInputs:
-    """A board and readings from files or from a stored session, and where to record."""
-
-    def __init__(self, board, readings, session, store, digest) -> None:
-        self.board = board
-        self.readings = readings
-        self.session = session
-        self.store = store
-        self.digest = digest
-
-    @classmethod
-    def gather(
-        cls, board_path, readings_path, session, store, command: str, *, readings_optional=False
-    ):
-        if session is not None:
-            from reconcile.store.sessions import analysis_inputs
-
-            if readings_path is not None:
-                raise InputError(f"{command}: give either READINGS or --session, not both")
-            b, rd, digest = analysis_inputs(session, store=store)
-            if board_path is not None:
-                from reconcile.model.board_loader import load_board
-
-                b = load_board(board_path)
-            return cls(b, rd, session, store, digest)
-        if board_path is None:
-            raise InputError(f"{command} needs a BOARD file (or --session ID)")
-        from reconcile.model.board_loader import load_board
-
-        b = load_board(board_path)
-        if readings_path is None:
-            if readings_optional:
-                return cls(b, None, None, None, None)
-            raise InputError(f"{command} needs a READINGS file (or --session ID)")
-        from reconcile.data.readings import load_readings
-
-        notices: list[str] = []
-        readings = load_readings(readings_path, b, notices=notices)
-        for notice in notices:  # stderr: --json keeps stdout to one object
-            typer.echo(f"note: {notice}", err=True)
-        return cls(b, readings, None, None, None)
-
-    def record(self, kind: str, result: dict) -> dict | None:
-        if self.session is None:
-            return None
-        from reconcile.store.sessions import record_analysis
-
-        return record_analysis(
-            self.session, kind, result, inputs_sha256=self.digest, store=self.store
         )
 
 
@@ -317,34 +285,28 @@ def diagnose(
 ) -> None:
     """Say which fault (or pair of faults) best explains the readings, and the check to
     confirm it."""
-    from reconcile.diagnosis.diagnose import diagnose as run_diagnosis
+    from reconcile.pipeline.analyses import diagnose_step
+    from reconcile.pipeline.inputs import AnalysisOptions
     from reconcile.present.progress import step_progress
 
-    inputs = AnalysisInputs.gather(board, readings, session, store, "diagnose")
     prior = None
     if weights is not None:
         from reconcile.diagnosis.weights import load_fault_weights
 
         prior = load_fault_weights(weights)
+    options = AnalysisOptions(prior_weights=prior, max_faults=max_faults)
+    inputs = _gather(board, readings, session, store, "diagnose", options)
     with step_progress("fitting pairs of faults", enabled=not json) as on_progress:
-        diag = run_diagnosis(
-            inputs.board, inputs.readings, prior_weights=prior, max_faults=max_faults,
-            on_progress=on_progress,
-        )
+        diag = diagnose_step(inputs, on_progress=on_progress)
     out = diag.to_dict()
     recorded = inputs.record("diagnose", out)
     if json:
-        if recorded:
-            out["recorded"] = recorded
-        emit_json(out)
+        _emit_recorded(out, recorded)
         return
     from reconcile.present.render_diagnosis import print_diagnosis
 
     print_diagnosis(diag, rows=rows)
-    if recorded:
-        typer.echo(
-            f"recorded with session {recorded['session']} as analysis {recorded['analysis']}"
-        )
+    _echo_recorded(recorded)
 
 
 @app.command()
@@ -362,45 +324,22 @@ def trim(
 ) -> None:
     """Propose the least rework (standard values, swaps or parts in parallel) that restores
     the spec, with its yield. Without readings: design mode on the drawn board."""
-    import numpy as np
+    from reconcile.pipeline.analyses import trim_step
+    from reconcile.pipeline.inputs import AnalysisOptions
 
-    from reconcile.trim.rework import trim as run_trim
-
-    inputs = AnalysisInputs.gather(board, readings, session, store, "trim", readings_optional=True)
-    fit_result = None
-    if inputs.readings is not None:
-        from reconcile.inference.fitting import fit_board
-
-        fit_result = fit_board(inputs.board, inputs.readings)
-    result = run_trim(
-        inputs.board,
-        fit_result,
-        max_changes=max_changes,
-        top=top,
-        samples=samples,
-        rng=np.random.default_rng(seed),
-    )
-    out = result.to_dict()
-    if fit_result is not None and fit_result.verdict != "consistent":
-        out["warning"] = (
-            f"the fit's verdict is {fit_result.verdict}: the board may have a fault; "
-            "run diagnose before trusting a trim"
-        )
+    options = AnalysisOptions(max_changes=max_changes, top=top, trim_samples=samples, seed=seed)
+    inputs = _gather(board, readings, session, store, "trim", options, readings_optional=True)
+    outcome = trim_step(inputs)
+    out = outcome.to_dict()
     recorded = inputs.record("trim", out)
     if plot is not None and samples > 0:
         from reconcile.present.plots_trim import plot_trim
 
-        plot_trim(result, plot)
+        plot_trim(outcome.result, plot)
     if json:
-        if recorded:
-            out["recorded"] = recorded
-        emit_json(out)
+        _emit_recorded(out, recorded)
         return
-    from reconcile.present.render_trim import print_trim
-
-    print_trim(result)
-    if "warning" in out:
-        typer.echo(f"warning: {out['warning']}")
+    outcome.report()
     if plot is not None:
         typer.echo(f"plot written to {plot}")
 
@@ -429,7 +368,7 @@ def report(
 
     from reconcile.present.report import build_report, write_report
 
-    inputs = AnalysisInputs.gather(board, readings, session, store, "report")
+    inputs = _gather(board, readings, session, store, "report")
     meta = None
     if session is not None:
         from reconcile.store.sessions import show_session
@@ -445,20 +384,15 @@ def report(
             lot_png = plot_lot(lot_result, Path(tmp) / "lot.png").read_bytes()
     with tempfile.TemporaryDirectory() as tmp:
         data = build_report(
-            inputs.board,
-            inputs.readings,
+            inputs,
             session=meta,
             lot_result=lot_result,
             lot_plot=lot_png,
             work_dir=Path(tmp),
         )
     path = write_report(data, out)
-    recorded = None
-    if session is not None:
-        for kind, result in (("fit", data.fit), ("diagnose", data.diagnosis), ("trim", data.trim)):
-            if result is not None:
-                inputs.record(kind, result)
-        recorded = inputs.record("report", {"path": str(path.resolve()), **data.hashes})
+    data.analysis.record()
+    recorded = inputs.record("report", {"path": str(path.resolve()), **data.hashes})
     summary = {
         "report": str(path.resolve()),
         "sections": [

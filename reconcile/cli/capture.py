@@ -223,6 +223,7 @@ def capture(
         DEFAULT_SETTLE_BAND_V,
         DEFAULT_SIGNAL_VRMS,
     )
+    from reconcile.data.derived_readings import series_resistor_uncertainty
     from reconcile.model.board_loader import load_board
 
     design = load_board(board)
@@ -235,7 +236,7 @@ def capture(
     tolerance = _value(series_tolerance, "tolerance", "--series-tolerance", 0.01)
     settings = dict(
         gain=gain, input_resistance=r_series is not None, series_resistor_ohm=r_series,
-        series_resistor_u_ohm=(r_series or 0.0) * tolerance / 3.0**0.5,
+        series_resistor_u_ohm=series_resistor_uncertainty(r_series or 0.0, tolerance),
         signal_vrms=signal_vrms, settle_count=settle_count, settle_band_v=band_v,
         settle_band_a=band_a, max_samples=max_samples, sample_interval_s=interval_s,
     )

@@ -10,7 +10,8 @@ SP-7-0113 came off the line with too little gain. The demo
 2. opens a session for SP-7-0113 and captures its readings from a simulated bench (a
    scanner routes the meter; the bench answers for a hidden board,
    ``sample_data/sensor_preamp_sp7_0113_truth.toml``, plus noise);
-3. fits the built board to the readings (what was built, error budget, next readings);
+3. fits the built board to the readings (what was built, error budget, next readings),
+   through the same pipeline as the command line and the report;
 4. asks which single fault explains them, takes the reading the diagnosis suggests
    (on the simulated bench) and asks again;
 5. proposes the least rework and its yield, and checks it against the hidden board;
@@ -104,6 +105,7 @@ class _Story:
 
     def run(self) -> dict:
         from reconcile.model.board_loader import load_board
+        from reconcile.pipeline.analyses import Analysis
         from reconcile.store.repository import open_store
 
         design = load_board(self.data / DESIGN_BOARD)
@@ -116,30 +118,25 @@ class _Story:
             )
             self.summary["session"] = {"id": sid, "store": str(store_path)}
             self.capture(design, truth, store, sid)
-            _, readings = store.session_inputs(sid)
-            outcome = self.fit(design, readings)
-            store.record_analysis(
-                sid, "fit", outcome.to_dict(), inputs_sha256=self._digest(design, readings)
-            )
-            diag, readings = self.diagnose(design, truth, store, sid, readings)
-            outcome = self.fit(design, readings, quiet=True)
-            trim_result = self.trim(design, truth, outcome)
-            store.record_analysis(
-                sid, "diagnose", diag.to_dict(), inputs_sha256=self._digest(design, readings)
-            )
-            store.record_analysis(
-                sid, "trim", trim_result.to_dict(), inputs_sha256=self._digest(design, readings)
-            )
+            inputs = self._inputs(store, sid)
+            first = self.fit(inputs)
+            inputs.record("fit", first.to_dict())
+            diag, inputs = self.diagnose(truth, store, sid, inputs)
+            outcome = self.fit(inputs, quiet=True)
+            trimmed = self.trim(inputs, truth, outcome, diag)
+            analysis = Analysis(inputs, outcome, diag, trimmed)
+            analysis.record()
             lot, lot_png = self.lot()
-            self.report(design, readings, outcome, diag, trim_result, lot, lot_png, store, sid)
+            self.report(analysis, lot, lot_png, store, sid)
             store.end_session(sid, note="demo complete")
         return self.summary
 
     @staticmethod
-    def _digest(board, readings) -> str:
-        from reconcile.data.digest import inputs_sha256
+    def _inputs(store, sid):
+        """The session's board and current readings, as every analysis takes them."""
+        from reconcile.pipeline.inputs import AnalysisInputs
 
-        return inputs_sha256(board, readings)
+        return AnalysisInputs.from_session(sid, store=store)
 
     # ------------------------------------------------------------------ steps
     def design_check(self, design) -> None:
@@ -177,30 +174,29 @@ class _Story:
             )
         self.console.print(t)
 
-    def fit(self, design, readings, *, quiet: bool = False):
-        from reconcile.pipeline.analyses import run_fit
+    def fit(self, inputs, *, quiet: bool = False):
+        from reconcile.pipeline.analyses import fit_step
 
-        outcome = run_fit(design, readings)
+        outcome = fit_step(inputs)
         if quiet:
             self.summary["fit_after_new_reading"] = outcome.to_dict()
             return outcome
         self.step("3. What was built: the fit")
         from reconcile.present.plots_fit import plot_fit
-        from reconcile.present.render_fit import print_fit
 
-        print_fit(outcome.fit, outcome.budget, outcome.suggestions, self.console)
+        outcome.report(self.console)
         path = plot_fit(outcome.fit, self.out / "fit.png")
         self.summary["fit"] = outcome.to_dict()
         self.summary["files"]["fit_plot"] = str(path)
         return outcome
 
-    def diagnose(self, design, truth, store, sid, readings):
-        from reconcile.diagnosis.diagnose import diagnose
-        from reconcile.present.render_diagnosis import print_diagnosis
+    def diagnose(self, truth, store, sid, inputs):
         from reconcile.inference.simulate import simulate_readings
+        from reconcile.pipeline.analyses import diagnose_step
+        from reconcile.present.render_diagnosis import print_diagnosis
 
         self.step("4. What is wrong with it: single-fault diagnosis")
-        diag = diagnose(design, readings)
+        diag = diagnose_step(inputs)
         print_diagnosis(diag, self.console, rows=6)
         self.summary["diagnosis_first"] = diag.to_dict()
         taken = []
@@ -218,53 +214,57 @@ class _Story:
             )
             store.add_readings(sid, new, source="demo")
             taken.append({"quantity": nxt.quantity, "at": nxt.at, "value": new[0].value})
-            _, readings = store.session_inputs(sid)
-            diag = diagnose(design, readings)
+            inputs = self._inputs(store, sid)
+            diag = diagnose_step(inputs)
             self.console.print(f"[bold]With {label} = {new[0].value:.5g}:[/]")
             print_diagnosis(diag, self.console, rows=6)
         self.summary["extra_readings"] = taken
         self.summary["diagnosis"] = diag.to_dict()
-        return diag, readings
+        return diag, inputs
 
-    def trim(self, design, truth, outcome):
-        import dataclasses
-
+    def trim(self, inputs, truth, outcome, diag):
+        from reconcile.errors import ReconcileError
+        from reconcile.pipeline.analyses import trim_step
         from reconcile.present.plots_trim import plot_trim
-        from reconcile.present.render_trim import print_trim
-        from reconcile.engine.solution import check_spec, solve
-        from reconcile.trim.rework import trim
 
         self.step("5. The least rework that restores the spec, and its yield")
-        result = trim(design, outcome.fit, rng=self.rng)
-        print_trim(result, self.console)
-        self.summary["trim"] = result.to_dict()
+        trimmed = trim_step(inputs, outcome.fit, diagnosis=diag)
+        trimmed.report(self.console)
+        self.summary["trim"] = trimmed.to_dict()
         try:
-            self.summary["files"]["trim_plot"] = str(plot_trim(result, self.out / "trim.png"))
-        except Exception:  # no option with draws: the table says why
-            pass
-        best = result.best
-        if best is not None and best.changes:
-            reworked = truth
-            for c in best.changes:
-                built = truth.resistors[c.ref].ohms
-                ohms = c.ohms if c.action == "replace" else built * c.ohms / (built + c.ohms)
-                reworked = reworked.replace_part(
-                    dataclasses.replace(truth.resistors[c.ref], ohms=ohms)
-                )
-            after = solve(reworked)
-            checks = check_spec(design, after.small_signal or {})
-            verdict = all(ch.met for ch in checks)
-            self.summary["hidden_board_after_rework"] = {
-                "small_signal": after.small_signal,
-                "meets_spec": verdict,
-            }
-            values = ", ".join(f"{ch.quantity} {ch.value:.4g}" for ch in checks)
-            self.console.print(
-                f"The hidden board with that rework: {values} — "
-                + ("[green]meets its spec[/]" if verdict else "[red]still misses[/]")
-                + " (the demo can check this; on a real bench, measure again after rework)."
+            self.summary["files"]["trim_plot"] = str(
+                plot_trim(trimmed.result, self.out / "trim.png")
             )
-        return result
+        except ReconcileError:  # no option with draws: the table says why
+            pass
+        if trimmed.result.best is not None and trimmed.result.best.changes:
+            self._check_rework(inputs.board, truth, trimmed.result.best)
+        return trimmed
+
+    def _check_rework(self, design, truth, best) -> None:
+        """Apply the best option to the hidden board and say whether it meets spec."""
+        import dataclasses
+
+        from reconcile.engine.solution import check_spec, solve
+
+        reworked = truth
+        for c in best.changes:
+            built = truth.resistors[c.ref].ohms
+            ohms = c.ohms if c.action == "replace" else built * c.ohms / (built + c.ohms)
+            reworked = reworked.replace_part(dataclasses.replace(truth.resistors[c.ref], ohms=ohms))
+        after = solve(reworked)
+        checks = check_spec(design, after.small_signal or {})
+        verdict = all(ch.met for ch in checks)
+        self.summary["hidden_board_after_rework"] = {
+            "small_signal": after.small_signal,
+            "meets_spec": verdict,
+        }
+        values = ", ".join(f"{ch.quantity} {ch.value:.4g}" for ch in checks)
+        self.console.print(
+            f"The hidden board with that rework: {values} — "
+            + ("[green]meets its spec[/]" if verdict else "[red]still misses[/]")
+            + " (the demo can check this; on a real bench, measure again after rework)."
+        )
 
     def lot(self):
         from reconcile.lot.characterise import run_lot
@@ -279,31 +279,21 @@ class _Story:
         self.summary["files"]["lot_plot"] = str(path)
         return lot, path.read_bytes()
 
-    def report(
-        self, design, readings, outcome, diag, trim_result, lot, lot_png, store, sid
-    ) -> None:
+    def report(self, analysis, lot, lot_png, store, sid) -> None:
         from reconcile.present.report import build_report, write_report
 
         self.step("7. The report")
         meta = {k: v for k, v in store.show_session(sid).to_dict().items() if k != "readings"}
         data = build_report(
-            design,
-            readings,
+            analysis.inputs,
             session=meta,
             lot_result=lot,
             lot_plot=lot_png,
             work_dir=self.out / "work",
-            outcome=outcome,
-            diagnosis=diag,
-            trim_result=trim_result,
+            analysis=analysis,
         )
         path = write_report(data, self.out / "report.html")
         shutil.rmtree(self.out / "work", ignore_errors=True)
-        store.record_analysis(
-            sid,
-            "report",
-            {"path": str(path), **data.hashes},
-            inputs_sha256=data.hashes["readings_sha256"],
-        )
+        analysis.inputs.record("report", {"path": str(path), **data.hashes})
         self.summary["files"]["report"] = str(path)
         self.console.print(f"report written to {path}")

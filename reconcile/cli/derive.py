@@ -117,14 +117,17 @@ def derive_input_resistance(
     json: JsonOpt = False,
 ) -> None:
     """Input resistance by the series-resistor method: Rin = Rs·V2/(V1 − V2)."""
-    from reconcile.data.derived_readings import input_resistance_series_method
+    from reconcile.data.derived_readings import (
+        input_resistance_series_method,
+        series_resistor_uncertainty,
+    )
     from reconcile.errors import InputError
     from reconcile.model.values import parse_tolerance, parse_value
 
     a, b = _volts(v1, "--v1"), _volts(v2, "--v2")
     try:
         rs = parse_value(series_resistor, "ohms")
-        u_rs = rs * parse_tolerance(series_tolerance) / math.sqrt(3.0)  # GUM 4.3.7
+        u_rs = series_resistor_uncertainty(rs, parse_tolerance(series_tolerance))
     except InputError as err:
         raise err.located(key="--series-resistor/--series-tolerance") from None
     r = input_resistance_series_method(

@@ -26,7 +26,12 @@ from typing import NamedTuple
 
 from reconcile.errors import InputError
 
-__all__ = ["Derived", "gain_from_ac", "input_resistance_series_method"]
+__all__ = [
+    "Derived",
+    "gain_from_ac",
+    "input_resistance_series_method",
+    "series_resistor_uncertainty",
+]
 
 
 class Derived(NamedTuple):
@@ -169,13 +174,25 @@ def input_resistance_series_method(
         ``v1 <= v2`` (impossible for a resistive load: the leads may be swapped),
         ``v2 <= 0``, ``r_series <= 0``, a negative uncertainty, or ``|r| > 1``.
     """
-    a = _number(v1, "v1")
-    b = _number(v2, "v2")
-    rs = _number(r_series, "r_series")
-    ua = _uncertainty(u_v1, "u_v1")
-    ub = _uncertainty(u_v2, "u_v2")
+    a, b, rs = _number(v1, "v1"), _number(v2, "v2"), _number(r_series, "r_series")
+    ua, ub = _uncertainty(u_v1, "u_v1"), _uncertainty(u_v2, "u_v2")
     urs = _uncertainty(u_r_series, "u_r_series")
     r = _correlation(correlation)
+    _check_series_readings(a, b, rs)
+    d = a - b
+    c_rs, c_v1, c_v2 = b / d, -rs * b / d**2, rs * a / d**2
+    variance = (
+        (c_rs * urs) ** 2
+        + (c_v1 * ua) ** 2
+        + (c_v2 * ub) ** 2
+        + 2.0 * r * c_v1 * c_v2 * ua * ub
+    )
+    return Derived(rs * b / d, math.sqrt(max(variance, 0.0)))
+
+
+def _check_series_readings(a: float, b: float, rs: float) -> None:
+    """Refuse series-resistor readings no resistive input can give (V1 <= V2: the
+    probe leads are likely swapped)."""
     if rs <= 0:
         raise InputError(f"the series resistor must be > 0 ohm, got {rs:g} ohm",
                          key="r_series")
@@ -188,15 +205,18 @@ def input_resistance_series_method(
             "swapped between the two points",
             key="v1",
         )
-    d = a - b
-    rin = rs * b / d
-    c_rs = b / d
-    c_v1 = -rs * b / d**2
-    c_v2 = rs * a / d**2
-    variance = (
-        (c_rs * urs) ** 2
-        + (c_v1 * ua) ** 2
-        + (c_v2 * ub) ** 2
-        + 2.0 * r * c_v1 * c_v2 * ua * ub
-    )
-    return Derived(rin, math.sqrt(max(variance, 0.0)))
+
+
+def series_resistor_uncertainty(r_series: float, tolerance: float) -> float:
+    """Standard uncertainty of a series resistor known only by its tolerance, ohm.
+
+    The tolerance ``t`` (a fraction: 0.01 for 1 %) is read as the half-width of a
+    rectangular distribution, so ``u = t·R/√3`` (JCGM 100:2008 4.3.7). This is the one
+    copy of the rule: the ``derive`` command, the capture run and the simulated bench
+    all call it.
+    """
+    rs = _number(r_series, "r_series")
+    t = _number(tolerance, "tolerance")
+    if t < 0:
+        raise InputError(f"a tolerance cannot be negative, got {tolerance!r}", key="tolerance")
+    return abs(rs) * t / math.sqrt(3.0)

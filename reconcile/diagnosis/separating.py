@@ -3,7 +3,8 @@ hypotheses apart (or confirms the leader, or explores under it).
 
 The method is described in :mod:`reconcile.diagnosis.diagnose` (Bhattacharyya distance
 between the hypotheses' predictive Gaussians; Fukunaga, *Introduction to Statistical
-Pattern Recognition*, ch. 3, from memory).
+Pattern Recognition*, ch. 3, from memory). The candidates are the readings of the
+catalogue (:func:`reconcile.inference.catalogue.readings_one_could_take`) not yet taken.
 """
 
 from __future__ import annotations
@@ -16,10 +17,10 @@ import numpy as np
 from reconcile.data.readings import Reading, default_uncertainty
 from reconcile.diagnosis.fault_fit import predict_faults
 from reconcile.diagnosis.scoring import Hypothesis
-from reconcile.engine import compile_board
 from reconcile.errors import InputError
-from reconcile.inference.measure import Observation, probe_nodes
-from reconcile.model.board import GND, Board
+from reconcile.inference.catalogue import readings_one_could_take
+from reconcile.inference.measure import Observation
+from reconcile.model.board import Board
 
 TOP_FOR_NEXT = 6
 """Hypotheses the next reading is chosen to separate (the most probable ones)."""
@@ -70,25 +71,9 @@ class NextReading:
 
 
 def _candidates(board: Board, obs: list[Observation]) -> list[tuple[str, str]]:
-    """Every reading that could be taken and has not been."""
-    taken = set()
-    for ob in obs:
-        if ob.quantity == "voltage":
-            a, b = probe_nodes(ob.at)
-            taken.add(("voltage", a if b == GND else f"{a}/{b}"))
-        else:
-            taken.add((ob.quantity, ob.at))
-    floating = set(compile_board(board).dc_floating.tolist())
-    nodes = [n for i, n in enumerate(board.nodes) if i not in floating]
-    supplies = {s.node for s in board.supplies.values()}
-    cands = [("voltage", n) for n in nodes if n not in supplies]
-    cands += [("resistance", ref) for ref in board.resistors]
-    cands += [("capacitance", ref) for ref in board.capacitors]
-    cands += [("current", ref) for ref in board.supplies]
-    cands += [("current", ref) for ref in board.resistors]
-    if board.signal.input and board.signal.output:
-        cands += [(q, "") for q in ("gain", "input_resistance", "output_resistance")]
-    return [c for c in cands if c not in taken]
+    """Every reading of the catalogue not yet taken."""
+    taken = [(ob.quantity, ob.at) for ob in obs]
+    return [e.key for e in readings_one_could_take(board, taken=taken)]
 
 
 def _reading_u(quantity: str, at: str, value: float) -> float | None:

@@ -10,20 +10,20 @@ from __future__ import annotations
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.inference.catalogue import GUIDED_CAPTURE_BENCH, readings_one_could_take
+from reconcile.model.quantities import QuantityKind
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
 
 
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
-    """Every node voltage, every supply current and (with [signal]) gain and input
-    resistance: what a careful engineer reads first."""
-    plan = [
-        ("voltage", n) for n in board.nodes if n not in (board.signal.input, board.signal.output)
+    """What a careful engineer reads first: the catalogue's readings on the guided-capture
+    bench (every node voltage with a DC path, every supply current and, with
+    ``[signal]``, gain and input resistance), as a capture plans them."""
+    return [
+        e.key for e in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH)
+        if small_signal or e.kind is not QuantityKind.SMALL_SIGNAL
     ]
-    plan += [("current", ref) for ref in board.supplies]
-    if small_signal and board.signal.input and board.signal.output:
-        plan += [("gain", ""), ("input_resistance", "")]
-    return plan
 
 
 def simulate_readings(

@@ -1,18 +1,58 @@
-"""The fit step as the command line and the store run it: fit, error budget, next reading."""
+"""The analysis pipeline: gather inputs → fit → diagnose → trim → record.
+
+The command line, the HTML report, the demo and a notebook all run these steps, so a
+rule about the results (:mod:`reconcile.pipeline.policies`) holds whichever front end
+ran them:
+
+- :func:`fit_step`: the fit, its error budget (when the board has a spec) and the
+  next readings (:class:`FitOutcome`);
+- :func:`diagnose_step`: the fault hypotheses (:class:`reconcile.diagnosis.Diagnosis`);
+- :func:`trim_step`: the rework proposals, with the warning of
+  :func:`~reconcile.pipeline.policies.rework_warning` when the fit is not to be trusted
+  (:class:`TrimOutcome`);
+- :func:`analyse`: every step the inputs allow, one :class:`Analysis`;
+  :meth:`Analysis.record` records each result with the inputs' session.
+
+Code here computes; it never prints (``report()`` methods print through ``present/``).
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
-from reconcile.model.board import Board
-from reconcile.inference.fitting import FitResult, fit_board
 from reconcile.analysis.error_budget import ErrorBudget, error_budget
 from reconcile.analysis.next_reading import Suggestion, suggest_next
 from reconcile.data.readings import Reading
+from reconcile.inference.fitting import FitResult, fit_board
+from reconcile.model.board import Board
+from reconcile.pipeline.inputs import AnalysisInputs
+from reconcile.pipeline.policies import rework_warning
+
+if TYPE_CHECKING:  # pragma: no cover
+    from reconcile.diagnosis.diagnose import Diagnosis
+    from reconcile.trim.rework import TrimResult
+
+__all__ = [
+    "Analysis",
+    "FitOutcome",
+    "TrimOutcome",
+    "analyse",
+    "diagnose_step",
+    "fit_step",
+    "run_fit",
+    "trim_step",
+    "wants_trim",
+]
+
+Progress = Callable[[int, int], None] | None
 
 
 @dataclass(frozen=True)
 class FitOutcome:
+    """The fit, its error budget (None without a spec) and the suggested next readings."""
+
     fit: FitResult
     budget: ErrorBudget | None
     suggestions: list[Suggestion]
@@ -25,8 +65,171 @@ class FitOutcome:
         out["next_readings"] = [s.to_dict() for s in self.suggestions]
         return out
 
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile fit`` prints."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
+
+@dataclass(frozen=True)
+class TrimOutcome:
+    """A trim's result and, when the fit it started from is not trusted, why."""
+
+    result: TrimResult
+    warning: str | None = None
+
+    def to_dict(self) -> dict:
+        out = self.result.to_dict()
+        if self.warning is not None:
+            out["warning"] = self.warning
+        return out
+
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile trim`` prints."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
 
 def run_fit(board: Board, readings: list[Reading], *, model_meter: bool = True) -> FitOutcome:
     """Fit, then the error budget (when the board has a spec) and the next readings."""
     result = fit_board(board, readings, model_meter=model_meter)
     return FitOutcome(result, error_budget(result), suggest_next(result))
+
+
+def _need_readings(inputs: AnalysisInputs, step: str) -> list[Reading]:
+    if inputs.readings is None:
+        from reconcile.errors import InputError
+
+        raise InputError(f"{step} needs readings (a READINGS file or --session ID)")
+    return inputs.reading_list()
+
+
+def fit_step(inputs: AnalysisInputs) -> FitOutcome:
+    """The fit with its error budget and next readings."""
+    readings = _need_readings(inputs, "fit")
+    return run_fit(inputs.board, readings, model_meter=inputs.options.model_meter)
+
+
+def diagnose_step(inputs: AnalysisInputs, *, on_progress: Progress = None) -> Diagnosis:
+    """Every fault hypothesis fitted and scored (pairs too when no single one explains)."""
+    from reconcile.diagnosis.diagnose import diagnose
+
+    opts = inputs.options
+    prior = None if opts.prior_weights is None else dict(opts.prior_weights)
+    return diagnose(
+        inputs.board, _need_readings(inputs, "diagnose"), prior_weights=prior,
+        max_faults=opts.max_faults, on_progress=on_progress,
+    )
+
+
+_UNSET: Any = object()
+
+
+def trim_step(
+    inputs: AnalysisInputs,
+    fit: FitResult | None = _UNSET,
+    *,
+    diagnosis: Diagnosis | None = None,
+) -> TrimOutcome:
+    """Rework proposals from ``fit`` (fitted here when not given; design mode without
+    readings), with the untrusted-fit warning of
+    :func:`~reconcile.pipeline.policies.rework_warning`."""
+    import numpy as np
+
+    from reconcile.trim.rework import trim
+
+    if fit is _UNSET:
+        fit = None if inputs.readings is None else fit_board(
+            inputs.board, inputs.reading_list(), model_meter=inputs.options.model_meter
+        )
+    opts = inputs.options
+    result = trim(
+        inputs.board,
+        fit,
+        max_changes=opts.max_changes,
+        top=opts.top,
+        samples=opts.trim_samples,
+        rng=np.random.default_rng(opts.seed),
+    )
+    return TrimOutcome(result, rework_warning(fit, diagnosis))
+
+
+def wants_trim(board: Board) -> bool:
+    """Whether :func:`analyse` trims: the board has [spec] targets to restore."""
+    return bool(board.spec.targets)
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """Every step the inputs allowed: fit, diagnosis and (with spec targets) trim."""
+
+    inputs: AnalysisInputs = field(repr=False)
+    fit: FitOutcome
+    diagnosis: Diagnosis
+    trim: TrimOutcome | None = None
+
+    def results(self) -> dict[str, dict]:
+        """Each step's result dictionary by record kind (``fit``, ``diagnose``, ``trim``)."""
+        out = {"fit": self.fit.to_dict(), "diagnose": self.diagnosis.to_dict()}
+        if self.trim is not None:
+            out["trim"] = self.trim.to_dict()
+        return out
+
+    def to_dict(self) -> dict:
+        return self.results()
+
+    def record(self) -> dict[str, dict]:
+        """Record every result with the inputs' session; what was recorded, by kind
+        (empty for inputs from files or code)."""
+        done = {}
+        for kind, result in self.results().items():
+            recorded = self.inputs.record(kind, result)
+            if recorded is not None:
+                done[kind] = recorded
+        return done
+
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``fit``, ``diagnose`` and ``trim`` print, one after another."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
+        self.fit.report(console)
+        print_diagnosis(self.diagnosis, console)
+        if self.trim is not None:
+            self.trim.report(console)
+
+
+def analyse(
+    inputs: AnalysisInputs,
+    *,
+    fit: FitOutcome | None = None,
+    diagnosis: Diagnosis | None = None,
+    trim: TrimOutcome | None = None,
+    on_progress: Progress = None,
+) -> Analysis:
+    """Fit, diagnose and (when the board has spec targets) trim; a step already run may
+    be passed in and is not run again."""
+    outcome = fit if fit is not None else fit_step(inputs)
+    diag = diagnosis if diagnosis is not None else diagnose_step(inputs, on_progress=on_progress)
+    trimmed = trim
+    if trimmed is None and wants_trim(inputs.board):
+        trimmed = trim_step(inputs, outcome.fit, diagnosis=diag)
+    return Analysis(inputs, outcome, diag, trimmed)

@@ -1,7 +1,8 @@
 """What the HTML report shows, collected: every analysis run on (board, readings).
 
-:func:`collect_report` runs the fit, error budget, next readings, diagnosis, trim and
-(when given) a lot, and keeps their results; :mod:`reconcile.present.report` draws the
+:func:`collect_report` runs the pipeline (fit, error budget, next readings, diagnosis,
+trim: :func:`reconcile.pipeline.analyses.analyse`, with its policies) and keeps the results
+with (when given) a lot's; :mod:`reconcile.present.report` draws the
 figures and renders the page. Code here computes; it never prints or draws.
 """
 
@@ -10,10 +11,14 @@ from __future__ import annotations
 import hashlib
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from reconcile.data.readings import Reading, readings_to_csv
 from reconcile.model.board import Board
+from reconcile.pipeline.inputs import AnalysisInputs
+
+if TYPE_CHECKING:  # pragma: no cover
+    from reconcile.pipeline.analyses import Analysis
 
 SECTIONS = ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot", "provenance")
 
@@ -22,8 +27,10 @@ SECTIONS = ("board", "readings", "fit", "budget", "diagnosis", "trim", "lot", "p
 class ReportData:
     """Everything the page shows: result dictionaries (their ``to_dict()``) and PNGs.
 
-    ``outcome``, ``design``, ``trim_result`` and ``lot_result`` are the result objects the
-    dictionaries came from (the figures are drawn from them); ``plots`` is filled by
+    ``analysis`` (:class:`reconcile.pipeline.analyses.Analysis`), ``outcome`` (its fit),
+    ``design``, ``trim_result`` and ``lot_result`` are the result objects the
+    dictionaries came from (the figures are drawn from them); ``trim`` carries the
+    pipeline's warning when the fit is not trusted; ``plots`` is filled by
     :func:`reconcile.present.report.draw_figures`.
     """
 
@@ -40,6 +47,7 @@ class ReportData:
     plots: dict[str, bytes] = field(default_factory=dict)
     hashes: dict[str, str] = field(default_factory=dict)
     created: str = ""
+    analysis: Any = field(default=None, repr=False, compare=False)
     outcome: Any = field(default=None, repr=False, compare=False)
     design: Any = field(default=None, repr=False, compare=False)
     trim_result: Any = field(default=None, repr=False, compare=False)
@@ -74,52 +82,50 @@ def _sha(text: str) -> str:
 
 
 def collect_report(
-    board: Board,
-    readings: list[Reading],
+    inputs: AnalysisInputs | Board,
+    readings: list[Reading] | None = None,
     *,
     session: dict | None = None,
     lot_result=None,
     lot_plot: bytes | None = None,
-    trim_samples: int = 10_000,
-    seed: int = 0,
-    outcome=None,
-    diagnosis=None,
-    trim_result=None,
+    trim_samples: int | None = None,
+    seed: int | None = None,
+    analysis: Analysis | None = None,
 ) -> ReportData:
-    """Run every analysis on (board, readings).
+    """Run every analysis of the pipeline (:func:`reconcile.pipeline.analyses.analyse`)
+    on ``inputs`` (or on a board and its readings) and keep the results.
 
-    ``outcome`` (:class:`reconcile.pipeline.analyses.FitOutcome`), ``diagnosis`` and
-    ``trim_result`` may be passed in when they were computed already; ``lot_plot`` is
-    the lot's figure (PNG bytes) when a lot is given."""
-    import numpy as np
-
-    from reconcile.diagnosis.diagnose import diagnose
+    ``analysis`` may be passed in when it was run already; ``trim_samples`` and ``seed``
+    override the inputs' options; ``lot_plot`` is the lot's figure (PNG bytes) when a
+    lot is given."""
     from reconcile.engine.solution import solve
-    from reconcile.pipeline.analyses import run_fit
-    from reconcile.trim.rework import trim
+    from reconcile.pipeline.analyses import analyse
 
+    if isinstance(inputs, Board):
+        inputs = AnalysisInputs.from_objects(inputs, readings)
+    changes = {k: v for k, v in (("trim_samples", trim_samples), ("seed", seed)) if v is not None}
+    if changes:
+        inputs = inputs.with_options(**changes)
+    board = inputs.board
     data = ReportData(
         board=board,
-        readings=list(readings),
+        readings=inputs.reading_list(),
         title=board.title or (board.source_path or "board"),
         session=session,
         created=datetime.now(UTC).strftime("%Y-%m-%d %H:%M:%S UTC"),
     )
     data.design = solve(board)
-    if outcome is None:
-        outcome = run_fit(board, readings)
-    data.outcome = outcome
-    data.fit = outcome.fit.to_dict()
-    data.budget = outcome.budget.to_dict() if outcome.budget is not None else None
-    data.next_readings = [s.to_dict() for s in outcome.suggestions]
-    diag = diagnosis if diagnosis is not None else diagnose(board, readings)
-    data.diagnosis = diag.to_dict()
-    if board.spec.targets:
-        result = trim_result
-        if result is None:
-            result = trim(board, outcome.fit, samples=trim_samples, rng=np.random.default_rng(seed))
-        data.trim_result = result
-        data.trim = result.to_dict()
+    if analysis is None:
+        analysis = analyse(inputs)
+    data.analysis = analysis
+    data.outcome = analysis.fit
+    data.fit = analysis.fit.fit.to_dict()
+    data.budget = analysis.fit.budget.to_dict() if analysis.fit.budget is not None else None
+    data.next_readings = [s.to_dict() for s in analysis.fit.suggestions]
+    data.diagnosis = analysis.diagnosis.to_dict()
+    if analysis.trim is not None:
+        data.trim_result = analysis.trim.result
+        data.trim = analysis.trim.to_dict()
     if lot_result is not None:
         data.lot_result = lot_result
         data.lot = lot_result.to_dict()
@@ -127,6 +133,6 @@ def collect_report(
             data.plots["lot"] = lot_plot
     data.hashes = {
         "board_sha256": _sha(board.source_text or ""),
-        "readings_sha256": _sha(readings_to_csv(readings)),
+        "readings_sha256": _sha(readings_to_csv(data.readings)),
     }
     return data

@@ -14,7 +14,6 @@ from pathlib import Path
 
 from reconcile import __version__
 from reconcile.data.readings import standard_uncertainty
-from reconcile.model.board import Board
 from reconcile.present import numbers
 from reconcile.pipeline.report import SECTIONS, ReportData, board_as_read, collect_report
 
@@ -60,10 +59,11 @@ def draw_figures(data: ReportData, work_dir: Path) -> None:
             pass
 
 
-def build_report(board: Board, readings, *, work_dir: Path, **analyses) -> ReportData:
-    """:func:`~reconcile.pipeline.report.collect_report` (keyword arguments passed on),
-    then :func:`draw_figures`."""
-    data = collect_report(board, readings, **analyses)
+def build_report(inputs, readings=None, *, work_dir: Path, **analyses) -> ReportData:
+    """:func:`~reconcile.pipeline.report.collect_report` on ``inputs`` (an
+    :class:`~reconcile.pipeline.inputs.AnalysisInputs`, or a board and its readings;
+    keyword arguments passed on), then :func:`draw_figures`."""
+    data = collect_report(inputs, readings, **analyses)
     draw_figures(data, work_dir)
     return data
 
@@ -345,8 +345,11 @@ def _trim_section(d: ReportData) -> str:
                 "–" if y is None else f"{100 * y:.1f}%",
             ]
         )
+    warning = t.get("warning")
+    caution = "" if not warning else f'<p class="caution">Warning: {_e(warning)}</p>'
     return (
-        f"<p>Search: {_e(t.get('search'))}, {t.get('evaluated')} boards evaluated. Power off "
+        caution
+        + f"<p>Search: {_e(t.get('search'))}, {t.get('evaluated')} boards evaluated. Power off "
         "before any rework; check the new part's rating.</p>"
         + _table(["change", "predicted", "margin", "meets spec", "yield"], rows)
         + _img(d.plots.get("trim"), "before and after the best option")

@@ -279,58 +279,46 @@ def trim(
                     variants_per_rework=variants_per_rework, pair_budget=pair_budget,
                     beam=beam, k_sigma=k_sigma, merit_band=merit_band)
     cost_of = _validate_costs(costs)
-    rng = (
-        rng
-        if isinstance(rng, np.random.Generator)
-        else np.random.default_rng(0 if rng is None else rng)
-    )
-
+    if not isinstance(rng, np.random.Generator):
+        rng = np.random.default_rng(0 if rng is None else rng)
     space, x, cov, mode = _starting_point(board, fit)
     ctx = build_context(board, space.circuit, space, x, cov, mode, float(k_sigma))
     singles = single_candidates(
         board, ctx.circuit.resistor_refs, ctx.built_ohms, series_for=series_for, window=window
     )
-    width = max_changes
     scores, evaluated, screened, search, searched = _search(
-        ctx,
-        singles,
-        max_changes,
-        cost_of,
-        top,
-        variants_per_rework,
-        merit_band,
-        exhaustive_limit,
-        pair_budget,
-        beam,
+        ctx, singles, max_changes, cost_of, top, variants_per_rework, merit_band,
+        exhaustive_limit, pair_budget, beam,
     )
+    return _result(
+        ctx, singles, scores, cost_of, top=top, per=variants_per_rework, merit_band=merit_band,
+        samples=samples, rng=rng,
+        meta=dict(search=search, evaluated=int(evaluated), mode=mode, screened=int(screened),
+                  spec=_spec_dict(board), costs=cost_of, k_sigma=float(k_sigma),
+                  samples=int(samples), searched_changes=searched),
+    )
+
+
+def _result(
+    ctx: Context, singles: Singles, scores: Scores, cost_of: dict[str, float], *, top: int,
+    per: int, merit_band: float, samples: int, rng: np.random.Generator, meta: dict,
+) -> TrimResult:
+    """Rank the scored options, keep the distinct best ``top``, estimate their yields
+    (and the baseline's) in one Monte Carlo call, and assemble the result."""
     cost = combo_costs(singles, scores.combos, cost_of["replace"], cost_of["parallel"])
     order = rank_order(scores, cost, merit_band)
-    chosen = _distinct(singles, scores, order, top, variants_per_rework, merit_band)
-
+    chosen = _distinct(singles, scores, order, top, per, merit_band)
+    width = scores.combos.shape[1]
     rows = np.vstack([np.full((1, width), -1, dtype=np.intp), scores.combos[chosen]])
     estimates: list[YieldEstimate | None] = [None] * rows.shape[0]
     if samples:
         option_v = evaluate(ctx, singles, rows, keep_v=True).v
         estimates = yields(ctx, singles, rows, samples, rng, option_v=option_v)
-    baseline = _baseline_option(ctx, estimates[0])
     options = tuple(
         _option(ctx, singles, scores, int(i), float(cost[i]), est)
         for i, est in zip(chosen, estimates[1:], strict=True)
     )
-    spec = _spec_dict(board)
-    return TrimResult(
-        baseline=baseline,
-        options=options,
-        search=search,
-        evaluated=int(evaluated),
-        mode=mode,
-        screened=int(screened),
-        spec=spec,
-        costs=cost_of,
-        k_sigma=float(k_sigma),
-        samples=int(samples),
-        searched_changes=searched,
-    )
+    return TrimResult(baseline=_baseline_option(ctx, estimates[0]), options=options, **meta)
 
 
 

@@ -1,0 +1,47 @@
+"""The pipeline's rules about what a result can be trusted for, in one place.
+
+- A rework proposal is worked out from the fitted board. When the fit does not explain
+  the readings (its verdict is not ``consistent``), the fitted board may be wrong in a
+  way no tolerance covers (a fault), and a rework chosen for it may not restore the
+  spec: the trim carries a warning, whichever front end ran it.
+- The series resistor of the input-resistance reading enters with the uncertainty of
+  its tolerance read as a rectangular distribution
+  (:func:`reconcile.data.derived_readings.series_resistor_uncertainty`, re-exported
+  here with the other rules).
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+from reconcile.data.derived_readings import series_resistor_uncertainty
+
+if TYPE_CHECKING:  # pragma: no cover
+    from reconcile.diagnosis.diagnose import Diagnosis
+    from reconcile.inference.fitting import FitResult
+
+__all__ = ["TRUSTED_VERDICT", "rework_warning", "series_resistor_uncertainty"]
+
+TRUSTED_VERDICT = "consistent"
+"""The one fit verdict a rework proposal is trusted from without a warning."""
+
+
+def rework_warning(fit: FitResult | None, diagnosis: Diagnosis | None = None) -> str | None:
+    """Why a trim from ``fit`` should not be trusted yet, or None when it can be.
+
+    Design mode (no fit) and a consistent fit need no warning. Otherwise the warning
+    names the fit's verdict and, when a diagnosis of the same readings is at hand, its
+    leading explanation.
+    """
+    if fit is None or fit.verdict == TRUSTED_VERDICT:
+        return None
+    text = f"the fit's verdict is {fit.verdict}: the board may have a fault"
+    if diagnosis is None:
+        return text + "; run diagnose before trusting a trim"
+    top = diagnosis.top
+    if top.fault == "none":
+        return text + "; the diagnosis found no fault that explains it either, so check the readings"
+    return (
+        text + f"; the diagnosis puts {top.label} first (probability {top.probability:.2f}): "
+        "repair that and measure again before trusting a trim"
+    )

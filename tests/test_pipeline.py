@@ -1,0 +1,180 @@
+"""One analysis pipeline for every front end, and its policies.
+
+The front-end checks are self-consistency checks (our own engine's results compared
+with themselves through different front ends, no outside reference): the demo, the
+command line and the report, given the same stored session, must report the same fit,
+diagnosis and trim. The policy checks test the rule "do not trust a rework from a fit
+that does not explain the readings" (common practice: a model fitted to a faulty board
+is wrong in a way no tolerance covers) wherever a trim is made.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from reconcile.data.derived_readings import series_resistor_uncertainty
+from reconcile.inference.simulate import simulate_readings
+from reconcile.model.board_loader import load_board
+from reconcile.pipeline import policies
+from reconcile.pipeline.analyses import analyse, fit_step, trim_step
+from reconcile.pipeline.inputs import AnalysisInputs, AnalysisOptions
+
+ROOT = Path(__file__).resolve().parent.parent
+SAMPLES = ROOT / "sample_data"
+DESIGN = SAMPLES / "sensor_preamp.toml"
+TRUTH = SAMPLES / "sensor_preamp_sp7_0113_truth.toml"
+PLAN = [
+    ("voltage", "vcc"), ("voltage", "b1"), ("voltage", "c1"), ("voltage", "e1"),
+    ("voltage", "e1b"), ("voltage", "e2"), ("voltage", "out"), ("current", "VCC"),
+    ("gain", ""), ("input_resistance", ""),
+]
+
+
+def _cli(*args: str) -> dict:
+    done = subprocess.run(
+        [sys.executable, "-m", "reconcile", *args], capture_output=True, text=True,
+        cwd=ROOT, timeout=300,
+    )
+    assert done.returncode == 0, done.stderr
+    return json.loads(done.stdout)
+
+
+def _plain(result: dict) -> dict:
+    """A result as the store keeps it (JSON), without where it was recorded."""
+    return json.loads(json.dumps({k: v for k, v in result.items() if k != "recorded"}))
+
+
+# ----------------------------------------------------------- front ends agree
+@pytest.fixture(scope="module")
+def demo_session(tmp_path_factory):
+    """The demo's session: its store, id and the analyses the demo recorded (last of
+    each kind)."""
+    from reconcile.cli.demo import run_demo
+    from reconcile.store.repository import open_store
+
+    out = tmp_path_factory.mktemp("demo")
+    summary = run_demo(json_output=False, out_dir=out)
+    store_path, sid = summary["session"]["store"], summary["session"]["id"]
+    with open_store(store_path) as store:
+        view = store.show_session(sid)
+        recorded = {a.kind: store.analysis(a.id).result for a in view.analyses}
+    return {"store": store_path, "id": sid, "recorded": recorded, "summary": summary}
+
+
+@pytest.mark.slow
+def test_demo_cli_and_report_agree_on_fit_diagnosis_trim_self_consistency(
+    demo_session, tmp_path
+):
+    # Self-consistency: the same session through the demo, the CLI and the report.
+    sid, store = demo_session["id"], demo_session["store"]
+    demo = demo_session["recorded"]
+    by_cli = {
+        kind: _plain(_cli(kind, "--session", sid, "--store", store, "--json"))
+        for kind in ("fit", "diagnose", "trim")
+    }
+    _cli("report", "--session", sid, "--store", store, "--json", "--out",
+         str(tmp_path / "report.html"))
+    from reconcile.store.repository import open_store
+
+    with open_store(store) as db:
+        by_report = {a.kind: db.analysis(a.id).result for a in db.show_session(sid).analyses}
+    for kind in ("fit", "diagnose", "trim"):
+        assert by_report[kind] == demo[kind], kind
+    assert by_cli["fit"] == demo["fit"] and by_cli["diagnose"] == demo["diagnose"]
+    # `trim` alone has no diagnosis at hand, so its warning does not name a leader.
+    cli_warning = by_cli["trim"].pop("warning")
+    demo_trim = dict(demo["trim"])
+    assert cli_warning == policies.rework_warning(_Verdict(demo["fit"]["verdict"]))
+    assert demo_trim.pop("warning").startswith(cli_warning.split(";")[0])
+    assert by_cli["trim"] == demo_trim
+
+
+class _Verdict:
+    """Just a fit's verdict, for the warning the policy gives without a diagnosis."""
+
+    def __init__(self, verdict: str) -> None:
+        self.verdict = verdict
+
+
+@pytest.mark.slow
+def test_demo_trim_carries_the_untrusted_fit_warning(demo_session):
+    # Policy: the demo's fit is inconsistent (the hidden board has a wrong RE1), so its
+    # trim must carry the warning, naming the diagnosis' leader.
+    summary = demo_session["summary"]
+    assert summary["fit_after_new_reading"]["verdict"] != "consistent"
+    warning = summary["trim"]["warning"]
+    assert "RE1 wrong-value" in warning
+    assert demo_session["recorded"]["trim"]["warning"] == warning
+
+
+# ------------------------------------------------------------------ policies
+@pytest.fixture(scope="module")
+def design():
+    return load_board(DESIGN)
+
+
+@pytest.fixture(scope="module")
+def faulty_inputs(design):
+    readings = simulate_readings(load_board(TRUTH), PLAN, rng=np.random.default_rng(3))
+    return AnalysisInputs.from_objects(design, readings, AnalysisOptions(trim_samples=200))
+
+
+@pytest.fixture(scope="module")
+def healthy_inputs(design):
+    readings = simulate_readings(design, PLAN, rng=np.random.default_rng(3))
+    return AnalysisInputs.from_objects(design, readings, AnalysisOptions(trim_samples=200))
+
+
+def test_a_trim_from_an_inconsistent_fit_is_flagged(faulty_inputs):
+    outcome = trim_step(faulty_inputs)
+    fit = fit_step(faulty_inputs).fit
+    assert fit.verdict != "consistent"
+    assert outcome.warning is not None and fit.verdict in outcome.warning
+    assert outcome.to_dict()["warning"] == outcome.warning
+
+
+def test_a_trim_from_a_consistent_fit_and_design_mode_carry_no_warning(healthy_inputs, design):
+    assert fit_step(healthy_inputs).fit.verdict == "consistent"
+    assert trim_step(healthy_inputs).warning is None
+    assert "warning" not in trim_step(healthy_inputs).to_dict()
+    design_mode = AnalysisInputs.from_objects(design, None, AnalysisOptions(trim_samples=0))
+    assert trim_step(design_mode).warning is None
+
+
+def test_the_warning_names_the_diagnosis_leader(faulty_inputs):
+    analysis = analyse(faulty_inputs)
+    top = analysis.diagnosis.top
+    assert top.label in analysis.trim.warning
+    assert analysis.results()["trim"]["warning"] == analysis.trim.warning
+
+
+def test_the_report_applies_the_untrusted_fit_rule(faulty_inputs, tmp_path):
+    from reconcile.present.report import build_report, render_html
+
+    data = build_report(faulty_inputs, work_dir=tmp_path)
+    assert data.trim["warning"] == policies.rework_warning(
+        data.analysis.fit.fit, data.analysis.diagnosis
+    )
+    assert "Warning: the fit&#x27;s verdict is" in render_html(data)
+
+
+def test_series_resistor_rule_is_rectangular_jcgm_100():
+    # JCGM 100:2008 4.3.7: a tolerance ±a read as rectangular has u = a/√3.
+    assert series_resistor_uncertainty(1000.0, 0.01) == pytest.approx(10.0 / 3**0.5)
+    assert policies.series_resistor_uncertainty is series_resistor_uncertainty
+
+
+def test_inputs_from_files_and_from_objects_analyse_alike_self_consistency(design):
+    # Self-consistency: the same board and readings gathered two ways fit the same.
+    readings = SAMPLES / "line_receiver_built.csv"
+    from_files = AnalysisInputs.from_files(SAMPLES / "line_receiver_cb.toml", readings)
+    from_objects = AnalysisInputs.from_objects(from_files.board, from_files.readings)
+    assert from_files.origin == "files" and from_objects.origin == "objects"
+    assert fit_step(from_files).to_dict() == fit_step(from_objects).to_dict()
+    assert from_files.record("fit", {}) is None
