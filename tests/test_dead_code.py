@@ -30,6 +30,8 @@ ALLOWED = {
     "schema_version": "store API: what a store holds, for administrators",
     # module protocol and framework hooks
     "__getattr__": "PEP 562 lazy exports of reconcile/__init__.py",
+    "__dir__": "PEP 562 dir() of reconcile/__init__.py's lazy exports",
+    "__class__": "reconcile/trim/__init__.py makes the package callable (module class)",
     "isolation_level": "sqlite3 connection attribute set in the connect hook",
     "caption": "rich Table attribute",
     "handle_starttag": "html.parser.HTMLParser callback (tests)",

@@ -88,6 +88,11 @@ class Hypothesis:
     faults: tuple[dict, ...] = ()
     testable: bool = True
 
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
     @property
     def label(self) -> str:
         """``RE open``, ``none``; for several faults ``CE missing + RF wrong-value``."""
