@@ -202,7 +202,9 @@ def _sources():
 def test_no_process_wide_matplotlib_state_in_the_package():
     for path in _sources():
         text = path.read_text(encoding="utf-8")
-        assert "matplotlib.use(" not in text and "pyplot" not in text, path
+        for use in ("matplotlib.use(", "import matplotlib.pyplot", "from matplotlib import pyplot",
+                    "from matplotlib.pyplot"):
+            assert use not in text, (path, use)
 
 
 @pytest.mark.slow
