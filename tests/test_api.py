@@ -183,7 +183,9 @@ def test_kind_types_are_the_tables_the_code_keeps(analysis):
     assert fit.verdict in get_args(kinds.Verdict)
     assert {p.kind for p in fit.space.parameters} <= set(get_args(kinds.ParameterKind))
     assert {p.transform for p in fit.space.parameters} <= set(get_args(kinds.Transform))
-    assert {h.fault for h in analysis.diagnosis.hypotheses} <= set(get_args(kinds.FaultKind))
+    hypothesis_kinds = set(get_args(kinds.FaultKind)) | {"pair"}
+    assert set(get_args(kinds.HypothesisKind)) == hypothesis_kinds
+    assert {h.fault for h in analysis.diagnosis.hypotheses} <= hypothesis_kinds
     assert analysis.trim.result.mode in get_args(kinds.TrimMode)
     assert analysis.trim.result.search in get_args(kinds.SearchKind)
     assert {q.polarity for q in analysis.inputs.board.transistors.values()} <= set(

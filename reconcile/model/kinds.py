@@ -10,7 +10,7 @@ from __future__ import annotations
 from typing import Literal
 
 __all__ = [
-    "AnalysisKind", "FaultKind", "LotMode", "ParameterKind", "PartKind", "Polarity",
+    "AnalysisKind", "FaultKind", "HypothesisKind", "LotMode", "ParameterKind", "PartKind", "Polarity",
     "Region", "ReworkAction", "SearchKind", "Transform", "TrimMode", "Verdict",
 ]
 
@@ -36,6 +36,9 @@ Verdict = Literal["consistent", "doubtful", "inconsistent", "not-converged"]
 
 FaultKind = Literal["none", "open", "short", "wrong-value", "missing", "reversed"]
 """A single-fault hypothesis (diagnosis/faults.py)."""
+
+HypothesisKind = Literal[FaultKind, Literal["pair"]]
+"""What a hypothesis is: a single fault, or ``pair`` (two faults at once)."""
 
 ReworkAction = Literal["replace", "parallel"]
 """How a rework option changes a resistor."""
