@@ -124,6 +124,17 @@ class Diagnosis:
     max_faults: int = 1
     pair_search: PairSearch | None = None
 
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile diagnose`` prints (a rich console, default stdout)."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
     @property
     def top(self) -> Hypothesis:
         return self.hypotheses[0]

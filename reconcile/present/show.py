@@ -37,7 +37,9 @@ def _brief_solution(obj) -> str:
     checks = obj.spec_checks
     spec = "" if not checks else (
         ", meets spec" if all(c.met for c in checks) else ", misses spec")
-    signal = _quantities(obj.small_signal)
+    small = obj.small_signal or {}
+    wanted = list(obj.board.spec.targets) or ["gain", "input_resistance"]
+    signal = _quantities({k: small[k] for k in wanted if k in small})
     return f"BoardSolution({obj.board.title or 'board'!r}{spec}" + (
         f", {signal})" if signal else ")")
 

@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.model.kinds import TrimMode
 from reconcile.engine import BatchSolution, Circuit, DCState, Parameters, solve_batch
 from reconcile.inference.priors import ParameterSpace
 from reconcile.trim.candidates import PARALLEL, Singles
@@ -65,7 +66,7 @@ class Context:
     space: ParameterSpace
     x: np.ndarray  # posterior mean, internal
     covariance: np.ndarray  # posterior covariance, internal
-    mode: str  # fitted | design
+    mode: TrimMode
     base_params: Parameters  # one sample: the built board
     base: BatchSolution
     built_ohms: np.ndarray  # (nR,)
