@@ -481,6 +481,16 @@ def main() -> None:
         sys.exit(130)
     except BrokenPipeError:
         sys.exit(1)
+    except MemoryError:
+        if _state["debug"]:
+            raise
+        from reconcile.engine.budget import MIB, budget_bytes
+
+        sys.stderr.write(
+            "reconcile: ran out of memory (the batch budget is "
+            f"{budget_bytes() / MIB:.0f} MiB; the machine or its limits allow less): give "
+            "fewer samples or a smaller board, or lower the budget with RECONCILE_MEMORY\n")
+        sys.exit(1)
     except OSError as err:
         if _state["debug"]:
             raise

@@ -44,6 +44,18 @@ def _brief_solution(obj) -> str:
         f", {signal})" if signal else ")")
 
 
+def _brief_sweep(obj) -> str:
+    import math
+
+    def corner(hz: float) -> str:
+        return numbers.si(hz, "Hz", 3) if math.isfinite(hz) else "none"
+
+    f = obj.frequency
+    return (f"BoardSweep({len(f)} points {numbers.si(f[0], 'Hz', 3)}–{numbers.si(f[-1], 'Hz', 3)}, "
+            f"mid-band gain {numbers.plain(obj.midband_gain, 4)}, low corner "
+            f"{corner(obj.low_corner)}, high corner {corner(obj.high_corner)})")
+
+
 def _brief_fit(obj) -> str:
     return (
         f"FitResult({obj.verdict}, χ² {numbers.plain(obj.chi_square, 3)} on {obj.dof} dof, "
@@ -160,6 +172,7 @@ def _views() -> dict[type, tuple[Any, Any]]:
     from reconcile.diagnosis.diagnose import Diagnosis
     from reconcile.diagnosis.scoring import Hypothesis
     from reconcile.engine.solution import BoardSolution
+    from reconcile.engine.sweep import BoardSweep
     from reconcile.inference.fitting import FitResult
     from reconcile.lot.characterise import LotResult
     from reconcile.pipeline.analyses import Analysis, FitOutcome, TrimOutcome
@@ -168,6 +181,7 @@ def _views() -> dict[type, tuple[Any, Any]]:
     here = "reconcile.present."
     return {
         BoardSolution: (_brief_solution, _print_with(here + "render_solve", "print_solution")),
+        BoardSweep: (_brief_sweep, _print_with(here + "render_sweep", "print_sweep")),
         FitResult: (_brief_fit, _print_fit),
         FitOutcome: (_brief_fit_outcome, _print_fit_outcome),
         Diagnosis: (_brief_diagnosis, _print_with(here + "render_diagnosis", "print_diagnosis")),
