@@ -54,17 +54,24 @@ def session_new(
 def session_add(
     session: IdArg,
     readings: Annotated[Path, typer.Argument(help="Readings file (CSV).", show_default=False)],
+    again: Annotated[bool, typer.Option(
+        "--again", help="Add a file this session already holds a second time.")] = False,
     store: StoreOpt = None,
     json: JsonOpt = False,
 ) -> None:
-    """Append readings to a session (each committed as it is stored)."""
+    """Append readings to a session (each committed as it is stored). Adding the same
+    file again resumes an interrupted import, or is refused once it is complete."""
     from reconcile.store.sessions import add_readings_file
 
-    out = add_readings_file(session, readings, store=store)
+    out = add_readings_file(session, readings, again=again, store=store)
     if json:
         _emit(out)
+    elif out["resumed"]:
+        typer.echo(f"resumed import {out['import']['import']}: {out['added']} more readings "
+                   f"added to {out['session']} ({out['already_stored']} were stored before)")
     else:
-        typer.echo(f"{out['added']} readings added to {out['session']}")
+        typer.echo(f"{out['added']} readings added to {out['session']} "
+                   f"(import {out['import']['import']})")
 
 
 @session_app.command("correct")

@@ -22,7 +22,7 @@ import hashlib
 import json
 import os
 import secrets
-from collections.abc import Iterable
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 from datetime import datetime
 from typing import Any
@@ -54,6 +54,8 @@ from reconcile.store.schema import (
     T_ANALYSES,
     T_BOARDS,
     T_EVENTS,
+    T_IMPORT_ROWS,
+    T_IMPORTS,
     T_READINGS,
     T_SESSIONS,
     _iso,
@@ -158,6 +160,50 @@ class AnalysisRecord:
         if self.result is not None:
             out["result"] = self.result
         return out
+
+
+@dataclass(frozen=True)
+class ImportRecord:
+    """One ``session add`` of a readings file: its SHA-256, how many readings it holds,
+    how many of them are stored and the file lines they came from."""
+
+    id: int
+    session: str
+    file_sha256: str
+    source: str
+    n_rows: int
+    started: str
+    stored: int = 0
+    first_line: int | None = None
+    last_line: int | None = None
+
+    @property
+    def complete(self) -> bool:
+        return self.stored >= self.n_rows
+
+    def describe(self) -> str:
+        """``import 3 of FILE on TIME (7 of 7 readings, lines 2-8)``."""
+        lines = ("" if self.first_line is None
+                 else f", lines {self.first_line}-{self.last_line}")
+        return (f"import {self.id} of {self.source} on {self.started} "
+                f"({self.stored} of {self.n_rows} readings{lines})")
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"import": self.id, "file_sha256": self.file_sha256, "source": self.source,
+                "rows": self.n_rows, "stored": self.stored, "started": self.started,
+                "lines": None if self.first_line is None else [self.first_line,
+                                                                self.last_line]}
+
+
+@dataclass(frozen=True)
+class ImportOutcome:
+    """What one ``session add`` did: the import it wrote to (a new one, or an earlier
+    one resumed), the ids it stored, and how many readings were stored before."""
+
+    record: ImportRecord
+    ids: tuple[int, ...]
+    resumed: bool
+    already_stored: int
 
 
 @dataclass(frozen=True)
@@ -339,6 +385,111 @@ class Store(Database):
             sid = self._open_session(conn, session_id)
             row["session_id"] = sid
             return int(conn.execute(_INSERT_READING, row).inserted_primary_key[0])
+
+    # ------------------------------------------------------------ imports
+    def import_readings(
+        self,
+        session_id: str,
+        readings: Sequence[Reading],
+        *,
+        file_sha256: str,
+        source: str,
+        again: bool = False,
+    ) -> ImportOutcome:
+        """Store a readings file's readings as one recorded import, each reading
+        committed with its place in the file.
+
+        If this session already has an import of the same file (same SHA-256): an
+        unfinished one (a crash, a kill) is resumed, storing only the readings it lacks;
+        a finished one is refused, naming it, unless ``again`` asks for a second import.
+        """
+        with self._write() as conn:
+            # PostgreSQL: one import decision at a time per session (SQLite: IMMEDIATE)
+            sid, ended = self._session_state(conn, session_id, lock="update")
+            if ended is not None:
+                raise InputError(
+                    f"session {sid} ended at {ended}: start a new session to add readings")
+            earlier = self._latest_import(conn, sid, file_sha256)
+            resume = (earlier is not None and not again and not earlier.complete
+                      and earlier.n_rows == len(readings))
+            if earlier is not None and not again and not resume:
+                raise InputError(
+                    f"this file was already added to session {sid}: {earlier.describe()}; "
+                    "give --again to add its readings a second time", key="again")
+            if resume:
+                assert earlier is not None
+                import_id = earlier.id
+                done = set(conn.execute(sa.select(T_IMPORT_ROWS.c.position).where(
+                    T_IMPORT_ROWS.c.import_id == import_id)).scalars())
+            else:
+                import_id = int(conn.execute(T_IMPORTS.insert().values(
+                    session_id=sid, file_sha256=file_sha256, source=source,
+                    n_rows=len(readings), again=int(earlier is not None), started=utc_now(),
+                    tool_version=__version__)).inserted_primary_key[0])
+                done = set()
+        ids: list[int] = []
+        for position, reading in enumerate(readings):
+            if position in done:
+                continue
+            try:
+                new_id = self._add_imported(sid, import_id, position, reading, source)
+            except StoreError as exc:
+                raise StoreError(
+                    f"{exc} (import {import_id}: {len(done) + len(ids)} of {len(readings)} "
+                    "readings stored; run the same command again to add the rest)") from exc
+            if new_id is not None:
+                ids.append(new_id)
+        with self._read() as conn:
+            record = self._import(conn, import_id)
+        return ImportOutcome(record=record, ids=tuple(ids), resumed=resume,
+                             already_stored=len(done))
+
+    def _add_imported(
+        self, sid: str, import_id: int, position: int, reading: Reading, source: str
+    ) -> int | None:
+        """One reading of an import and its place, in one transaction; ``None`` when
+        another process resuming the same import stored that place first."""
+        row = self._reading_row(reading, None, source)
+        try:
+            with self._write() as conn:
+                row["session_id"] = self._open_session(conn, sid)
+                reading_id = int(conn.execute(_INSERT_READING, row).inserted_primary_key[0])
+                conn.execute(T_IMPORT_ROWS.insert().values(
+                    import_id=import_id, position=position, reading_id=reading_id))
+                return reading_id
+        except StoreError as exc:
+            if isinstance(exc.__cause__, sa.exc.IntegrityError):
+                return None  # rolled back with its reading: nothing stored twice
+            raise
+
+    def _latest_import(self, conn: Connection, sid: str, sha: str) -> ImportRecord | None:
+        newest = conn.execute(
+            sa.select(sa.func.max(T_IMPORTS.c.id))
+            .where(T_IMPORTS.c.session_id == sid, T_IMPORTS.c.file_sha256 == sha)).scalar()
+        return None if newest is None else self._import(conn, int(newest))
+
+    @staticmethod
+    def _import(conn: Connection, import_id: int) -> ImportRecord:
+        head = conn.execute(sa.select(T_IMPORTS).where(T_IMPORTS.c.id == import_id)).one()
+        ir, r = T_IMPORT_ROWS, T_READINGS
+        stored, first, last = conn.execute(
+            sa.select(sa.func.count(), sa.func.min(r.c.source_line), sa.func.max(r.c.source_line))
+            .select_from(ir.join(r, r.c.id == ir.c.reading_id))
+            .where(ir.c.import_id == import_id)).one()
+        return ImportRecord(
+            id=head.id, session=head.session_id, file_sha256=head.file_sha256,
+            source=head.source, n_rows=head.n_rows, started=head.started, stored=int(stored),
+            first_line=first, last_line=last)
+
+    def imports(self, session_id: str) -> list[ImportRecord]:
+        """The session's recorded imports, oldest first (none on a version-1 store)."""
+        with self._read() as conn:
+            sid, _ended = self._session_state(conn, session_id)
+            if self._version(conn) < 2:
+                return []
+            found = conn.execute(sa.select(T_IMPORTS.c.id).where(
+                T_IMPORTS.c.session_id == sid).order_by(T_IMPORTS.c.id)).scalars().all()
+            return [self._import(conn, int(i)) for i in found]
 
     def add_readings(
         self, session_id: str, readings: Iterable[Reading], *, source: str = ""

@@ -6,10 +6,18 @@ the session's order), and a retraction is a row of kind ``retraction`` that supe
 reading without replacing it. Ending a session is an event row too. Triggers refuse any
 UPDATE or DELETE on the append-only tables.
 
+Version 2 adds the record of each ``session add`` import (``imports``: the file's
+SHA-256 and how many readings it holds; ``import_rows``: which of them are stored, each
+row committed with its reading), so that a rerun after a crash resumes instead of
+storing the first part twice. It adds tables only: code that reads sessions works on a
+version-1 store unchanged, so a read-only open never needs to upgrade.
+
 Timestamps are UTC ISO-8601 strings with milliseconds (``2025-01-31T14:05:09.123Z``).
 """
 
 from __future__ import annotations
+
+import typing
 
 from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
@@ -18,18 +26,20 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from reconcile.errors import InputError
+from reconcile.model.kinds import AnalysisKind
 
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 """The newest schema this code knows; ``MIGRATIONS[i]`` brings a store to version i+1."""
 
-ANALYSIS_KINDS = ("fit", "diagnose", "trim", "lot", "capture", "report")
+ANALYSIS_KINDS = typing.get_args(AnalysisKind)
 """Kinds of analysis a session may record."""
 
 
 _READING = "reading"
 _RETRACTION = "retraction"
 _ENDED = "ended"
-_OUR_TABLES = ("schema_version", "boards", "sessions", "session_events", "readings", "analyses")
+_OUR_TABLES = ("schema_version", "boards", "sessions", "session_events", "readings", "analyses",
+               "imports", "import_rows")
 
 
 # ---------------------------------------------------------------------------- schema
@@ -112,7 +122,35 @@ def _define_v1(md: sa.MetaData) -> None:
     )
 
 
+def _define_v2(md: sa.MetaData) -> None:
+    """Tables schema version 2 adds (frozen)."""
+    text, integer = sa.Text, sa.Integer
+    sa.Table(
+        "imports", md,
+        sa.Column("id", integer, primary_key=True, autoincrement=True),
+        sa.Column("session_id", sa.String(16), sa.ForeignKey("sessions.id"), nullable=False),
+        sa.Column("file_sha256", sa.String(64), nullable=False),
+        sa.Column("source", text, nullable=False),
+        sa.Column("n_rows", integer, nullable=False),
+        sa.Column("again", integer, nullable=False),  # 1: a second import asked for
+        sa.Column("started", text, nullable=False),
+        sa.Column("tool_version", text, nullable=False),
+        sa.Index("ix_imports_session_sha", "session_id", "file_sha256"),
+        sqlite_autoincrement=True,
+    )
+    sa.Table(
+        "import_rows", md,
+        sa.Column("import_id", integer, sa.ForeignKey("imports.id"), primary_key=True,
+                  autoincrement=False),
+        # the reading's place in the file's readings, from 0; one row each, ever
+        sa.Column("position", integer, primary_key=True, autoincrement=False),
+        sa.Column("reading_id", integer, sa.ForeignKey("readings.id"), nullable=False,
+                  unique=True),
+    )
+
+
 _APPEND_ONLY_TABLES = ("boards", "sessions", "session_events", "readings", "analyses")
+_APPEND_ONLY_V2 = ("imports", "import_rows")
 
 
 def _forbid_changes(conn: Connection, tables: Sequence[str]) -> None:
@@ -140,12 +178,21 @@ def _migrate_to_1(conn: Connection) -> None:
     _forbid_changes(conn, _APPEND_ONLY_TABLES)
 
 
-MIGRATIONS: tuple[Callable[[Connection], None], ...] = (_migrate_to_1,)
+def _migrate_to_2(conn: Connection) -> None:
+    md = sa.MetaData()
+    _define_v1(md)  # the tables the new ones refer to
+    _define_v2(md)
+    md.create_all(conn, tables=[md.tables[name] for name in _APPEND_ONLY_V2])
+    _forbid_changes(conn, _APPEND_ONLY_V2)  # (PostgreSQL: the same function, replaced)
+
+
+MIGRATIONS: tuple[Callable[[Connection], None], ...] = (_migrate_to_1, _migrate_to_2)
 """Schema migrations in order; each runs inside the one transaction that upgrades."""
 
 _MD = sa.MetaData()
 _define_v1(_MD)  # the tables queried by this code: the newest version's
-T_VERSION, T_BOARDS, T_SESSIONS, T_EVENTS, T_READINGS, T_ANALYSES = (
+_define_v2(_MD)
+T_VERSION, T_BOARDS, T_SESSIONS, T_EVENTS, T_READINGS, T_ANALYSES, T_IMPORTS, T_IMPORT_ROWS = (
     _MD.tables[name] for name in _OUR_TABLES
 )
 

@@ -54,21 +54,33 @@ def add_readings_file(
     session_id: str,
     readings_path: str | os.PathLike[str],
     *,
+    again: bool = False,
     store: StoreLocation = None,
 ) -> dict[str, Any]:
     """``session add``: check a readings file against the session's board, then store
-    its readings one by one (each committed as it is stored).
+    its readings one by one (each committed as it is stored), as one recorded import.
 
-    Returns ``{"session": ID, "added": N, "ids": [...]}``. A file with any problem
-    stores nothing.
+    The import records the file's SHA-256 and which of its readings are stored. Adding
+    the same file again resumes an import a crash left unfinished, and is refused
+    (naming the earlier import) once it is complete, unless ``again``.
+
+    Returns ``{"session": ID, "added": N, "ids": [...], "import": {...}, "resumed": B,
+    "already_stored": K}``. A file with any problem stores nothing.
     """
+    import hashlib
+    from pathlib import Path
+
     from reconcile.data.readings import load_readings
 
     with _open(store) as db:
         board = db.session_board(session_id)
         readings = load_readings(readings_path, board=board)
-        ids = db.add_readings(session_id, readings, source=os.fspath(readings_path))
-    return {"session": session_id.strip().upper(), "added": len(ids), "ids": ids}
+        digest = hashlib.sha256(Path(readings_path).read_bytes()).hexdigest()
+        done = db.import_readings(session_id, readings, file_sha256=digest,
+                                  source=os.fspath(readings_path), again=again)
+    return {"session": session_id.strip().upper(), "added": len(done.ids),
+            "ids": list(done.ids), "import": done.record.to_dict(), "resumed": done.resumed,
+            "already_stored": done.already_stored}
 
 
 def correct_reading(
