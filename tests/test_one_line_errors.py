@@ -147,6 +147,7 @@ def test_reading_uncertainty_1e_200_is_refused_at_load(tmp_path):
     assert "below the smallest" in _refused("fit", str(BOARD), str(path), names=str(path))
 
 
+@pytest.mark.slow  # a process per case (the terminal's encoding is fixed at start-up)
 @pytest.mark.parametrize("command", [
     ["fit", str(BOARD), str(READINGS)],
     ["diagnose", str(BOARD), str(READINGS), "--max-faults", "1"],
