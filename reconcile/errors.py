@@ -87,3 +87,20 @@ class StoreError(ReconcileError, RuntimeError):
 
 class InstrumentError(ReconcileError, RuntimeError):
     """An instrument did not answer, answered garbage, or reported an error."""
+
+
+# ---------------------------------------------------------------------------- warnings
+_INPUT_WARNINGS: list[str] = []
+
+
+def warn_input(message: str) -> None:
+    """Note a problem in the user's input that is not an error (a board that parses but
+    looks wrong). The command line prints each once on stderr and adds them to the JSON
+    object's ``warnings``; library callers find them on the result (``Board.warnings``)."""
+    if message not in _INPUT_WARNINGS:
+        _INPUT_WARNINGS.append(message)
+
+
+def input_warnings() -> list[str]:
+    """The input warnings noted so far in this process, in order (a copy)."""
+    return list(_INPUT_WARNINGS)

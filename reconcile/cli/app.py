@@ -426,6 +426,15 @@ def demo(
     run_demo(json_output=json, out_dir=out)
 
 
+def _print_input_warnings(redact) -> None:
+    """Each input warning noted by the command, one line each on stderr (also with
+    ``--json``, whose object lists them in ``warnings``)."""
+    from reconcile.errors import input_warnings
+
+    for message in input_warnings():
+        sys.stderr.write(f"reconcile: warning: {redact(message)}\n")
+
+
 def main() -> None:
     """Console-script entry point with the project's single error handler.
 
@@ -437,11 +446,23 @@ def main() -> None:
 
     tolerate_narrow_encoding()
     try:
-        app()
+        try:
+            app()
+        except SystemExit as done:
+            if done.code in (0, None):  # a command that failed prints its one line only
+                _print_input_warnings(redact)
+            raise
     except ReconcileError as err:
         if _state["debug"]:
             raise
-        sys.stderr.write(f"reconcile: {redact(str(err))}\n")
+        line = str(err)
+        from reconcile.errors import input_warnings
+
+        noted = input_warnings()
+        if noted and err.exit_code == 1:  # a failure a suspicious input may explain
+            more = f"; and {len(noted) - 1} more" if len(noted) > 1 else ""
+            line += f" (warning: {noted[0]}{more})"
+        sys.stderr.write(f"reconcile: {redact(line)}\n")
         sys.exit(err.exit_code)
     except KeyboardInterrupt:
         sys.stderr.write("reconcile: interrupted\n")

@@ -167,6 +167,9 @@ class Board:
     spec: Spec = field(default_factory=Spec)
     source_path: str | None = None
     source_text: str | None = None
+    warnings: tuple[str, ...] = ()
+    """What the loader found suspicious but not wrong (a node only one part touches, a
+    misspelled gnd, an implausible value), each ``path:line: [key] message``."""
 
     # ------------------------------------------------------------------ views
     @property

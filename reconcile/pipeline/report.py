@@ -72,7 +72,7 @@ def board_as_read(board: Board) -> str:
         return obj
 
     fields = dataclasses.asdict(board)
-    for private in ("source_path", "source_text"):
+    for private in ("source_path", "source_text", "warnings"):
         fields.pop(private, None)
     return json.dumps(plain(fields), indent=1, ensure_ascii=False, allow_nan=False)
 
