@@ -9,42 +9,14 @@ import pwd
 import secrets
 from collections.abc import Callable, Iterator
 
+from boards import divider_stage, title
+
 from reconcile.data.readings import Reading
 
-BOARD_TOML = """\
-title = "Store test stage (invented)"
-
-[supplies.VCC]
-node = "vcc"
-volts = "9"
-
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "47k"
-
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "10k"
-
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "4k7"
-
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "1k"
-
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "test-npn"
-
-[devices.test-npn]
-IS = "5f"
-beta = { value = 150, low = 60, high = 400 }
-"""
+BOARD_TOML = title("Store test stage (invented)") + "\n" + divider_stage(
+    vcc="9", r1="47k", r2="10k", rc="4k7", re="1k", device_name="test-npn",
+    device_params={"IS": "5f", "beta": {"value": 150, "low": 60, "high": 400}},
+)
 
 # A readings file as an operator might write it: value strings in several notations,
 # blank and given uncertainties, instrument and note cells, a quoted comma.

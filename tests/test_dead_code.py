@@ -30,6 +30,7 @@ ALLOWED = {
     "schema_version": "store API: what a store holds, for administrators",
     # module protocol and framework hooks
     "__getattr__": "PEP 562 lazy exports of reconcile/__init__.py",
+    "pytest_*": "pytest hooks (tests/conftest.py)",
     "isolation_level": "sqlite3 connection attribute set in the connect hook",
     "caption": "rich Table attribute",
     "handle_starttag": "html.parser.HTMLParser callback (tests)",

@@ -98,6 +98,8 @@ def _readings(board: Board, temperature: float, plan, rng) -> list[Reading]:
         if r.quantity == "gain":
             u = math.hypot(u, GAIN_FLOOR)
         value = r.value + (u * rng.standard_normal() if rng is not None else 0.0)
+        if r.quantity == "gain":
+            value = abs(value)  # an rms ratio reads as a magnitude: noise folds at zero
         out.append(dataclasses.replace(r, value=value, uncertainty=u))
     return out
 

@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from boards import capacitor, divider_stage, table
 
 from reconcile.engine import devices
 from reconcile.model.board import GND, Board
@@ -80,36 +81,10 @@ def stage(
     swap_ce: bool = False,
 ) -> Board:
     """A divider-biased npn stage as board-file text (R2 left out when None)."""
-    c, e = ("e", "c") if swap_ce else ("c", "e")
-    r2_part = f'[resistors.R2]\nnodes = ["b", "gnd"]\nohms = "{r2}"\n' if r2 else ""
     return board_from_text(
-        f"""
-[conditions]
-temperature = "{temperature}"
-[supplies.VCC]
-node = "vcc"
-volts = {vcc!r}
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "{r1}"
-{r2_part}
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "{rc}"
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "{re_}"
-[transistors.Q1]
-polarity = "npn"
-c = "{c}"
-b = "b"
-e = "{e}"
-device = "dev"
-[devices.dev]
-IS = "{is_}"
-beta = {beta!r}
-VA = "{va}"
-"""
+        table("conditions", temperature=temperature)
+        + divider_stage(vcc=vcc, r1=r1, r2=r2, rc=rc, re=re_, swap_ce=swap_ce,
+                        device_params={"IS": is_, "beta": beta, "VA": va})
     )
 
 
@@ -467,46 +442,13 @@ def test_no_solution_is_reported_not_returned(monkeypatch) -> None:
         solve(board)
 
 
-CAPACITOR_ONLY_SIGNAL_NODES = """
-[supplies.VCC]
-node = "vcc"
-volts = 12
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "68k"
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "15k"
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "6k8"
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "1k5"
-[capacitors.C_IN]
-nodes = ["in", "b"]
-farads = "4u7"
-[capacitors.CE]
-nodes = ["e", "gnd"]
-farads = "100u"
-[capacitors.C_OUT]
-nodes = ["c", "out"]
-farads = "2u2"
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "dev"
-[devices.dev]
-IS = "8f"
-beta = 180
-VA = "80"
-[signal]
-input = "in"
-output = "out"
-load_ohms = "47k"
-"""
+CAPACITOR_ONLY_SIGNAL_NODES = (
+    divider_stage(vcc=12, r1="68k", r2="15k", rc="6k8", re="1k5",
+                  device_params={"IS": "8f", "beta": 180, "VA": "80"})
+    + capacitor("C_IN", "in", "b", "4u7") + capacitor("CE", "e", "gnd", "100u")
+    + capacitor("C_OUT", "c", "out", "2u2")
+    + table("signal", input="in", output="out", load_ohms="47k")
+)
 
 
 def test_signal_nodes_reached_only_through_capacitors() -> None:

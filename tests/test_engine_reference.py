@@ -18,6 +18,16 @@ import math
 import mpmath
 import numpy as np
 import pytest
+from boards import (
+    capacitor,
+    device,
+    divider_stage,
+    resistor,
+    supply,
+    table,
+    title,
+    transistor,
+)
 from scipy import constants
 
 from reconcile.engine import devices
@@ -111,45 +121,17 @@ def test_saturation_current_roughly_doubles_per_5_kelvin() -> None:
 # ------------------------------------------------- 2. independent bias solution
 def _stage_toml(p: dict) -> str:
     """A divider-biased common-emitter stage, npn (RE to gnd) or pnp (RE to the rail)."""
-    if p["polarity"] == "npn":
-        re_nodes, rc_nodes = '["e", "gnd"]', '["vcc", "c"]'
-    else:
-        re_nodes, rc_nodes = '["vcc", "e"]', '["c", "gnd"]'
-    va = "inf" if math.isinf(p["VA"]) else repr(p["VA"])
-    return f"""
-title = "bias reference stage"
-[conditions]
-temperature = "{p['T']} K"
-[supplies.VCC]
-node = "vcc"
-volts = {p['VCC']!r}
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = {p['R1']!r}
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = {p['R2']!r}
-[resistors.RC]
-nodes = {rc_nodes}
-ohms = {p['RC']!r}
-[resistors.RE]
-nodes = {re_nodes}
-ohms = {p['RE']!r}
-[transistors.Q1]
-polarity = "{p['polarity']}"
-c = "c"
-b = "b"
-e = "e"
-device = "dev"
-[devices.dev]
-IS = {p['IS']!r}
-beta = {p['beta']!r}
-beta_r = {p['beta_r']!r}
-VA = "{va}"
-n = {p['n']!r}
-is_temp_exponent = {p['xti']!r}
-bandgap = {p['Eg']!r}
-"""
+    va = "inf" if math.isinf(p["VA"]) else p["VA"]
+    return (
+        title("bias reference stage")
+        + table("conditions", temperature=f"{p['T']} K")
+        + divider_stage(
+            vcc=p["VCC"], r1=p["R1"], r2=p["R2"], rc=p["RC"], re=p["RE"],
+            polarity=p["polarity"],
+            device_params={"IS": p["IS"], "beta": p["beta"], "beta_r": p["beta_r"], "VA": va,
+                           "n": p["n"], "is_temp_exponent": p["xti"], "bandgap": p["Eg"]},
+        )
+    )
 
 
 def _mp_bias(p: dict) -> dict[str, float]:
@@ -275,105 +257,42 @@ def _par(*rs: float) -> float:
 BIG_F = "1"  # farads: every coupling and bypass capacitor, 1 F at 1 kHz (|Z| = 0.16 mOhm)
 RB_IN = 100e3  # bleed resistors on the coupled input and output nodes (DC paths)
 RB_OUT = 100e3
-DEVICE_TOML = """
-[devices.dev]
-IS = "8f"
-beta = 180
-VA = "80"
-"""
+DEVICE = device("dev", IS="8f", beta=180, VA="80")
 
 
 def _stage_board(kind: str, rs: float, rl: float) -> str:
-    common = f"""
-title = "hybrid-pi reference, {kind}"
-[supplies.VCC]
-node = "vcc"
-volts = 12
-[resistors.RB_IN]
-nodes = ["in", "gnd"]
-ohms = {RB_IN!r}
-[resistors.RB_OUT]
-nodes = ["out", "gnd"]
-ohms = {RB_OUT!r}
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "dev"
-[signal]
-input = "in"
-output = "out"
-source_ohms = {rs!r}
-load_ohms = {rl!r}
-frequency = "1k"
-{DEVICE_TOML}
-"""
-    divider = """
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "68k"
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "15k"
-"""
+    """One stage of each kind with 1 F coupling and bypass capacitors, bleed resistors
+    on the coupled input and output, and the generator and load of the [signal] table."""
+    common = (
+        title(f"hybrid-pi reference, {kind}")
+        + supply("VCC", "vcc", 12)
+        + resistor("RB_IN", "in", "gnd", RB_IN) + resistor("RB_OUT", "out", "gnd", RB_OUT)
+        + transistor("Q1", "vcc" if kind == "ef" else "c", "b", "e", "dev")
+        + table("signal", input="in", output="out", source_ohms=rs, load_ohms=rl,
+                frequency="1k")
+        + DEVICE
+    )
     if kind in ("ce-bypassed", "ce-unbypassed"):
-        bypass = (
-            f'\n[capacitors.CE]\nnodes = ["e", "gnd"]\nfarads = "{BIG_F}"\n'
-            if kind == "ce-bypassed"
-            else ""
+        bypass = capacitor("CE", "e", "gnd", BIG_F) if kind == "ce-bypassed" else ""
+        return common + (
+            resistor("R1", "vcc", "b", "68k") + resistor("R2", "b", "gnd", "15k")
+            + resistor("RC", "vcc", "c", "6k8") + resistor("RE", "e", "gnd", "1k5")
+            + capacitor("C_IN", "in", "b", BIG_F) + capacitor("C_OUT", "c", "out", BIG_F)
+            + bypass
         )
-        return common + divider + f"""
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "6k8"
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "1k5"
-[capacitors.C_IN]
-nodes = ["in", "b"]
-farads = "{BIG_F}"
-[capacitors.C_OUT]
-nodes = ["c", "out"]
-farads = "{BIG_F}"
-""" + bypass
     if kind == "cb":
-        return common + """
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "330k"
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "62k"
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "1k"
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "2k2"
-""" + f"""
-[capacitors.C_B]
-nodes = ["b", "gnd"]
-farads = "{BIG_F}"
-[capacitors.C_IN]
-nodes = ["in", "e"]
-farads = "{BIG_F}"
-[capacitors.C_OUT]
-nodes = ["c", "out"]
-farads = "{BIG_F}"
-"""
+        return common + (
+            resistor("R1", "vcc", "b", "330k") + resistor("R2", "b", "gnd", "62k")
+            + resistor("RC", "vcc", "c", "1k") + resistor("RE", "e", "gnd", "2k2")
+            + capacitor("C_B", "b", "gnd", BIG_F) + capacitor("C_IN", "in", "e", BIG_F)
+            + capacitor("C_OUT", "c", "out", BIG_F)
+        )
     if kind == "ef":
-        return common.replace('c = "c"', 'c = "vcc"') + divider.replace("15k", "47k") + f"""
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "2k2"
-[capacitors.C_IN]
-nodes = ["in", "b"]
-farads = "{BIG_F}"
-[capacitors.C_OUT]
-nodes = ["e", "out"]
-farads = "{BIG_F}"
-"""
+        return common + (
+            resistor("R1", "vcc", "b", "68k") + resistor("R2", "b", "gnd", "47k")
+            + resistor("RE", "e", "gnd", "2k2")
+            + capacitor("C_IN", "in", "b", BIG_F) + capacitor("C_OUT", "e", "out", BIG_F)
+        )
     raise ValueError(kind)
 
 

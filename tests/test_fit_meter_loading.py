@@ -18,55 +18,22 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from boards import divider_stage, table, title
 from fit_support import draw_truth
 
 from reconcile.model.board_loader import board_from_text
 from reconcile.inference.fitting import FitResult, fit_board
 from reconcile.inference.simulate import full_plan
 
-BOARD_TOML = """\
-title = "High-impedance bias divider (invented)"
+def _board_toml(r1: str, r2: str, rc: str, re: str, meter: str) -> str:
+    """The high-impedance divider stage, 1 % parts, read with a meter of ``meter``."""
+    return title("High-impedance bias divider (invented)") + divider_stage(
+        vcc="12", r1=r1, r2=r2, rc=rc, re=re, tolerance="1%", supply_tolerance="1%",
+        device_name="lab-npn",
+        device_params={"IS": {"value": "8f", "low": "2f", "high": "40f"},
+                       "beta": {"value": 180, "low": 90, "high": 330}, "VA": "80"},
+    ) + table("bench", voltmeter_ohms=meter)
 
-[supplies.VCC]
-node = "vcc"
-volts = "12"
-tolerance = "1%"
-
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "{r1}"
-tolerance = "1%"
-
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "{r2}"
-tolerance = "1%"
-
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "{rc}"
-tolerance = "1%"
-
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "{re}"
-tolerance = "1%"
-
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "lab-npn"
-
-[devices.lab-npn]
-IS = {{ value = "8f", low = "2f", high = "40f" }}
-beta = {{ value = 180, low = 90, high = 330 }}
-VA = "80"
-
-[bench]
-voltmeter_ohms = "{meter}"
-"""
 
 CASES = {
     "1M-meter": {"r1": "1M", "r2": "470k", "rc": "22k", "re": "22k", "meter": "1M"},
@@ -87,7 +54,7 @@ def _z(fit: FitResult, x_true: np.ndarray) -> dict[str, float]:
 
 @pytest.fixture(scope="module", params=list(CASES))
 def loaded(request):
-    board = board_from_text(BOARD_TOML.format(**CASES[request.param]), f"{request.param}.toml")
+    board = board_from_text(_board_toml(**CASES[request.param]), f"{request.param}.toml")
     rng = np.random.default_rng(0)
     truth = draw_truth(board, rng)
     readings = truth.read(full_plan(board), rng)

@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 
 import pytest
+from boards import divider_stage, title
 
 from reconcile.model.board import Board
 from reconcile.model.board_loader import board_from_text
@@ -39,35 +40,11 @@ def designed_stage(
     r2 = vth / i_div
     re_ = ve / ic
     rc = (vcc - (vcc + ve) / 2.0) / ic
-    va_text = "inf" if math.isinf(va) else repr(va)
-    text = f"""
-title = "hand-designed stage"
-[supplies.VCC]
-node = "vcc"
-volts = {vcc!r}
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = {r1!r}
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = {r2!r}
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = {rc!r}
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = {re_!r}
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "dev"
-[devices.dev]
-IS = "8f"
-beta = {beta!r}
-VA = "{va_text}"
-"""
+    va_value = "inf" if math.isinf(va) else va
+    text = title("hand-designed stage") + divider_stage(
+        vcc=vcc, r1=r1, r2=r2, rc=rc, re=re_,
+        device_params={"IS": "8f", "beta": beta, "VA": va_value},
+    )
     design = {"vcc": vcc, "r1": r1, "r2": r2, "vth": vth, "i_div": i_div, "ib_design": ic / beta}
     return board_from_text(text), design
 

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import pytest
 import scipy.constants as sc
+from boards import capacitor, divider_stage, table
 
 from reconcile.model.board import Board
 from reconcile.model.board_loader import board_from_text
@@ -42,41 +43,12 @@ resistance,R2,9.93k,ohm,,,measured out of circuit
 temperature,,27,C,,,ambient
 """
 
-BOARD = """\
-[supplies.VCC]
-node = "vcc"
-volts = 5
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "27k"
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "10k"
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "4k7"
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "1k"
-[capacitors.C1]
-nodes = ["in", "b"]
-farads = "10u"
-[capacitors.C2]
-nodes = ["c", "out"]
-farads = "1u"
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "d"
-[devices.d]
-IS = "5f"
-beta = 150
-[signal]
-input = "in"
-output = "out"
-"""
+BOARD = (
+    divider_stage(vcc=5, r1="27k", r2="10k", rc="4k7", re="1k", device_name="d",
+                  device_params={"IS": "5f", "beta": 150})
+    + capacitor("C1", "in", "b", "10u") + capacitor("C2", "c", "out", "1u")
+    + table("signal", input="in", output="out")
+)
 
 
 @pytest.fixture(scope="module")

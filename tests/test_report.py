@@ -133,3 +133,10 @@ def test_report_embeds_the_parsed_board_not_the_file_with_its_comments(report_fi
     assert "comments are not copied" in board_part
     for r in board.resistors.values():  # the values as read, in ohms (self-consistency)
         assert f"&quot;ohms&quot;: {r.ohms!r}" in board_part, r.ref
+
+
+@pytest.mark.slow
+def test_report_shows_the_fitted_frequency_response(report_file):
+    # the sample board has coupling capacitors: its fitted Bode plot sits in the fit section
+    sections = _sections(report_file.read_text(encoding="utf-8"))
+    assert 'alt="frequency response of the fitted board"' in sections["fit"]

@@ -22,6 +22,7 @@ import math
 import mpmath
 import numpy as np
 import pytest
+from boards import capacitor, divider_stage, resistor, table
 
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
 from reconcile.engine.sweep import SweepRange, find_corners, sweep
@@ -148,52 +149,16 @@ CE = dict(vcc=12.0, r1=68e3, r2=15e3, rc=6.8e3, re1=330.0, re2=1.5e3, c_in=4.7e-
 
 
 def _ce_text(p: dict) -> str:
-    return f"""
-[supplies.VCC]
-node = "vcc"
-volts = {p['vcc']}
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = {p['r1']}
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = {p['r2']}
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = {p['rc']}
-[resistors.RE1]
-nodes = ["e", "e2"]
-ohms = {p['re1']}
-[resistors.RE2]
-nodes = ["e2", "gnd"]
-ohms = {p['re2']}
-[capacitors.C_IN]
-nodes = ["in", "b"]
-farads = {p['c_in']}
-[capacitors.CE]
-nodes = ["e2", "gnd"]
-farads = {p['c_e']}
-[capacitors.C_OUT]
-nodes = ["c", "out"]
-farads = {p['c_out']}
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "d"
-[devices.d]
-IS = {p['IS']}
-beta = {p['beta']}
-VA = {p['VA']}
-ft = {p['ft']}
-c_mu = {p['c_mu']}
-[signal]
-input = "in"
-output = "out"
-source_ohms = {p['rs']}
-load_ohms = {p['rl']}
-"""
+    return (
+        divider_stage(
+            vcc=p["vcc"], r1=p["r1"], r2=p["r2"], rc=p["rc"], re=(p["re1"], p["re2"]),
+            device_name="d",
+            device_params={k: p[k] for k in ("IS", "beta", "VA", "ft", "c_mu")},
+        )
+        + capacitor("C_IN", "in", "b", p["c_in"]) + capacitor("CE", "e2", "gnd", p["c_e"])
+        + capacitor("C_OUT", "c", "out", p["c_out"])
+        + table("signal", input="in", output="out", source_ohms=p["rs"], load_ohms=p["rl"])
+    )
 
 
 def _mp_ce_corners(p: dict) -> tuple[float, float, float]:
@@ -312,45 +277,14 @@ def test_ce_upper_corner_against_the_miller_approximation() -> None:
     # R_L'·Cμ (the open-circuit time-constant sum keeps it) and the second pole, so it
     # overestimates f_H by about that term's share of the total; we allow that share
     # plus 3 %.
-    text = f"""
-[supplies.VCC]
-node = "vcc"
-volts = 12
-[resistors.RS]
-nodes = ["in", "b"]
-ohms = "4k7"
-[resistors.R1]
-nodes = ["vcc", "b"]
-ohms = "68k"
-[resistors.R2]
-nodes = ["b", "gnd"]
-ohms = "15k"
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "3k3"
-[resistors.RE]
-nodes = ["e", "gnd"]
-ohms = "1k5"
-[capacitors.CE]
-nodes = ["e", "gnd"]
-farads = "1"
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b"
-e = "e"
-device = "d"
-[devices.d]
-IS = "8f"
-beta = 180
-VA = 80
-ft = "300M"
-c_mu = "4p"
-[signal]
-input = "in"
-output = "c"
-load_ohms = "10k"
-"""
+    text = (
+        resistor("RS", "in", "b", "4k7")
+        + divider_stage(vcc=12, r1="68k", r2="15k", rc="3k3", re="1k5", device_name="d",
+                        device_params={"IS": "8f", "beta": 180, "VA": 80, "ft": "300M",
+                                       "c_mu": "4p"})
+        + capacitor("CE", "e", "gnd", "1")
+        + table("signal", input="in", output="c", load_ohms="10k")
+    )
     board = board_from_text(text)
     circuit = compile_board(board)
     sol = solve_batch(circuit, nominal_parameters(circuit))

@@ -14,7 +14,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from reconcile.cli.output import emit_json
+from reconcile.cli.output import check_plot_path, emit_json
 from reconcile.errors import InputError, ReconcileError
 
 app = typer.Typer(
@@ -83,11 +83,31 @@ def solve(
         ),
     ] = 0,
     seed: Annotated[int, typer.Option("--seed", help="Seed of the --samples draws.")] = 0,
+    sweep: Annotated[
+        Optional[str],  # noqa: UP045
+        typer.Option("--sweep", metavar="FROM:TO[:POINTS]",
+                     help="Also sweep the frequency (log-spaced, e.g. 10:1M:200): gain, "
+                     "phase, |Zin|, |Zout|, mid-band gain and the -3 dB corners."),
+    ] = None,
+    plot: Annotated[
+        Optional[Path],  # noqa: UP045
+        typer.Option("--plot", help="With --sweep: write the Bode plot (PNG, SVG or PDF)."),
+    ] = None,
 ) -> None:
     """Solve the board as drawn: operating point, small signal and the spec check."""
     from reconcile.model.board_loader import load_board
     from reconcile.engine.solution import solve as solve_board
 
+    frequencies = None
+    if sweep is not None:
+        from reconcile.engine.sweep import SweepRange
+
+        frequencies = SweepRange.from_text(sweep).frequencies()
+    if plot is not None:
+        if sweep is None:
+            raise InputError("--plot draws the frequency response: give --sweep FROM:TO too",
+                             key="--plot")
+        check_plot_path(plot)
     b = load_board(board)
     if samples != 0:  # 0, the default, is no Monte Carlo
         from reconcile.analysis.monte_carlo import check_samples
@@ -101,10 +121,17 @@ def solve(
 
         with chunk_progress("solving drawn boards", samples, enabled=not json) as on_progress:
             design = design_samples(b, samples, seed=seed, on_progress=on_progress)
+    response = sol.sweep(frequencies) if frequencies is not None else None
+    if plot is not None:
+        from reconcile.present.plots_sweep import plot_bode
+
+        plot_bode(response, plot, title=b.title or "")
     if json:
         out = sol.to_dict()
         if design is not None:
             out["samples"] = design.to_dict()
+        if response is not None:
+            out["sweep"] = response.to_dict()
         emit_json(out)
         return
     from reconcile.present.render_solve import print_design_samples, print_solution
@@ -112,6 +139,12 @@ def solve(
     print_solution(sol)
     if design is not None:
         print_design_samples(design)
+    if response is not None:
+        from reconcile.present.render_sweep import print_sweep
+
+        print_sweep(response)
+    if plot is not None:
+        typer.echo(f"plot written to {plot}")
 
 
 ReadingsArg = Annotated[

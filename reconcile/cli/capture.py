@@ -232,7 +232,12 @@ def capture(
     band_a = _value(settle_band_current, "amps", "--settle-band-current", DEFAULT_SETTLE_BAND_A)
     signal_vrms = _value(signal, "volts", "--signal", DEFAULT_SIGNAL_VRMS)
     interval_s = _value(interval, "seconds", "--interval", 0.0 if simulate else 0.2)
-    r_series = _value(series_resistor, "ohms", "--series-resistor", 0.0) or None
+    r_series = None
+    if series_resistor is not None:
+        from reconcile.data.derived_readings import check_series_resistor
+
+        r_series = check_series_resistor(
+            _value(series_resistor, "ohms", "--series-resistor", 0.0), "--series-resistor")
     tolerance = _value(series_tolerance, "tolerance", "--series-tolerance", 0.01)
     settings = dict(
         gain=gain, input_resistance=r_series is not None, series_resistor_ohm=r_series,

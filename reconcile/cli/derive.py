@@ -52,6 +52,23 @@ def _u(text: str, value: float, kind: str, option: str) -> float:
         raise err.located(key=option) from None
 
 
+#: the library's argument names as the options that set them
+_OPTION_OF = {"v_in": "--vin", "v_out": "--vout", "u_v_in": "--u-vin", "u_v_out": "--u-vout",
+              "v1": "--v1", "v2": "--v2", "u_v1": "--u-v1", "u_v2": "--u-v2",
+              "r_series": "--series-resistor", "u_r_series": "--series-tolerance",
+              "correlation": "--correlation"}
+
+
+def _derived(compute, *args: float):  # noqa: ANN001, ANN202 - one of two library functions
+    """Run a derived-readings function; its errors name the options, not its arguments."""
+    from reconcile.errors import InputError
+
+    try:
+        return compute(*args)
+    except InputError as err:
+        raise InputError(err.message, key=_OPTION_OF.get(err.key or "", err.key)) from None
+
+
 def _emit(quantity: str, value: float, u: float, unit: str, note: str, json: bool) -> None:
     if json:
         from reconcile.cli.output import emit_json
@@ -86,7 +103,8 @@ def derive_gain(
     from reconcile.data.derived_readings import gain_from_ac
 
     v_in, v_out = _volts(vin, "--vin"), _volts(vout, "--vout")
-    g = gain_from_ac(
+    g = _derived(
+        gain_from_ac,
         v_in,
         _u(u_vin, v_in, "volts", "--u-vin"),
         v_out,
@@ -130,7 +148,8 @@ def derive_input_resistance(
         u_rs = series_resistor_uncertainty(rs, parse_tolerance(series_tolerance))
     except InputError as err:
         raise err.located(key="--series-resistor/--series-tolerance") from None
-    r = input_resistance_series_method(
+    r = _derived(
+        input_resistance_series_method,
         a, _u(u_v1, a, "volts", "--u-v1"), b, _u(u_v2, b, "volts", "--u-v2"), rs, u_rs, correlation
     )
     _emit(

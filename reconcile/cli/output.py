@@ -18,3 +18,27 @@ def emit_json(obj: object) -> None:
         have = list(obj.get("warnings") or [])
         obj = {**obj, "warnings": have + [w for w in noted if w not in have]}
     sys.stdout.write(dumps(obj) + "\n")
+
+
+#: file types matplotlib writes with its standard Agg/vector backends
+PLOT_SUFFIXES = (".png", ".svg", ".svgz", ".pdf", ".eps", ".ps", ".jpg", ".jpeg", ".tif",
+                 ".tiff", ".webp")
+
+
+_NAMED = (".png", ".svg", ".pdf")
+
+
+def check_plot_path(path) -> None:
+    """Refuse, before any work, a ``--plot`` file whose type cannot be drawn or whose
+    folder does not exist (one line, exit 2)."""
+    from pathlib import Path
+
+    from reconcile.errors import InputError
+
+    p = Path(path)
+    if p.suffix.lower() not in PLOT_SUFFIXES:
+        raise InputError(f"cannot draw a {p.suffix or 'file without an extension'!r} plot: "
+                         f"name it .png, .svg or .pdf (also {', '.join(PLOT_SUFFIXES[3:])})",
+                         path=str(p), key="--plot")
+    if not p.parent.is_dir():
+        raise InputError("the folder for the plot does not exist", path=str(p), key="--plot")

@@ -25,13 +25,21 @@ import math
 from typing import NamedTuple
 
 from reconcile.errors import InputError
+from reconcile.model.quantities import REGISTRY
 
 __all__ = [
+    "SERIES_RESISTOR_RANGE_OHM",
     "Derived",
+    "check_series_resistor",
     "gain_from_ac",
     "input_resistance_series_method",
     "series_resistor_uncertainty",
 ]
+
+SERIES_RESISTOR_RANGE_OHM = (1.0, 1e9)
+"""The series resistor of the series-resistor method, ohm: 1 ohm to 1 Gohm (docs/formats.md
+§3.3). It should be near the input resistance it measures; outside this range the
+method's arithmetic says nothing."""
 
 
 class Derived(NamedTuple):
@@ -49,6 +57,40 @@ def _number(value: float, key: str) -> float:
     if not math.isfinite(number):
         raise InputError(f"expected a finite number, got {value!r}", key=key)
     return number
+
+
+def _volts(value: float, key: str) -> float:
+    number = _number(value, key)
+    low, high = REGISTRY["voltage"].value_range
+    if not low <= number <= high:
+        raise InputError(
+            f"an rms voltage of {number:g} V is outside the physical limits {low:g} V to "
+            f"{high:g} V (docs/formats.md §3.3)", key=key)
+    return number
+
+
+def check_series_resistor(r_ohm: float, key: str = "r_series") -> float:
+    """The series resistor as a float, refused outside :data:`SERIES_RESISTOR_RANGE_OHM`."""
+    rs = _number(r_ohm, key)
+    low, high = SERIES_RESISTOR_RANGE_OHM
+    if not low <= rs <= high:
+        raise InputError(
+            f"the series resistor must be > 0 ohm and within {low:g} to {high:g} ohm "
+            f"(docs/formats.md §3.3), got {rs:g} ohm", key=key)
+    return rs
+
+
+def _result(quantity: str, value: float, u: float, from_: str) -> Derived:
+    """The derived reading, refused when the readings loader would refuse it."""
+    from reconcile.data.readings import Reading
+    from reconcile.data.validation import reading_problems
+
+    problems = reading_problems(Reading.from_si(quantity, "", value, u))
+    if problems:
+        raise InputError(
+            f"the derived {quantity.replace('_', ' ')} cannot be a reading: {problems[0]} "
+            f"(check {from_})", key=quantity)
+    return Derived(value, u)
 
 
 def _uncertainty(value: float, key: str) -> float:
@@ -107,8 +149,8 @@ def gain_from_ac(
     InputError
         ``v_in <= 0``, ``v_out < 0``, a negative uncertainty, or ``|r| > 1``.
     """
-    vi = _number(v_in, "v_in")
-    vo = _number(v_out, "v_out")
+    vi = _volts(v_in, "v_in")
+    vo = _volts(v_out, "v_out")
     ui = _uncertainty(u_v_in, "u_v_in")
     uo = _uncertainty(u_v_out, "u_v_out")
     r = _correlation(correlation)
@@ -117,10 +159,10 @@ def gain_from_ac(
     if vo < 0:
         raise InputError(f"an rms voltage cannot be negative, got {vo:g} V", key="v_out")
     gain = vo / vi
-    c_in = -vo / vi**2
+    c_in = -gain / vi
     c_out = 1.0 / vi
-    variance = (c_in * ui) ** 2 + (c_out * uo) ** 2 + 2.0 * r * c_in * c_out * ui * uo
-    return Derived(gain, math.sqrt(max(variance, 0.0)))
+    variance = _square(c_in * ui) + _square(c_out * uo) + 2.0 * r * c_in * c_out * ui * uo
+    return _result("gain", gain, math.sqrt(max(variance, 0.0)), "the two voltages and their uncertainties")
 
 
 def input_resistance_series_method(
@@ -174,28 +216,28 @@ def input_resistance_series_method(
         ``v1 <= v2`` (impossible for a resistive load: the leads may be swapped),
         ``v2 <= 0``, ``r_series <= 0``, a negative uncertainty, or ``|r| > 1``.
     """
-    a, b, rs = _number(v1, "v1"), _number(v2, "v2"), _number(r_series, "r_series")
+    a, b = _volts(v1, "v1"), _volts(v2, "v2")
+    rs = check_series_resistor(r_series)
     ua, ub = _uncertainty(u_v1, "u_v1"), _uncertainty(u_v2, "u_v2")
     urs = _uncertainty(u_r_series, "u_r_series")
     r = _correlation(correlation)
-    _check_series_readings(a, b, rs)
+    _check_series_readings(a, b)
     d = a - b
-    c_rs, c_v1, c_v2 = b / d, -rs * b / d**2, rs * a / d**2
+    rin = rs * b / d
+    c_rs, c_v1, c_v2 = b / d, -rin / d, rs * a / d / d
     variance = (
-        (c_rs * urs) ** 2
-        + (c_v1 * ua) ** 2
-        + (c_v2 * ub) ** 2
+        _square(c_rs * urs)
+        + _square(c_v1 * ua)
+        + _square(c_v2 * ub)
         + 2.0 * r * c_v1 * c_v2 * ua * ub
     )
-    return Derived(rs * b / d, math.sqrt(max(variance, 0.0)))
+    return _result("input_resistance", rin, math.sqrt(max(variance, 0.0)),
+                   "V1, V2, the series resistor and their uncertainties")
 
 
-def _check_series_readings(a: float, b: float, rs: float) -> None:
+def _check_series_readings(a: float, b: float) -> None:
     """Refuse series-resistor readings no resistive input can give (V1 <= V2: the
     probe leads are likely swapped)."""
-    if rs <= 0:
-        raise InputError(f"the series resistor must be > 0 ohm, got {rs:g} ohm",
-                         key="r_series")
     if b <= 0:
         raise InputError(f"the board-input voltage V2 must be > 0 V, got {b:g} V", key="v2")
     if a <= b:
@@ -205,6 +247,11 @@ def _check_series_readings(a: float, b: float, rs: float) -> None:
             "swapped between the two points",
             key="v1",
         )
+
+
+def _square(x: float) -> float:
+    """x², inf where it overflows (``**`` raises OverflowError there)."""
+    return x * x
 
 
 def series_resistor_uncertainty(r_series: float, tolerance: float) -> float:

@@ -36,6 +36,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass, field
 
 from reconcile.data import csv_dialect, csv_rows
+from reconcile.data.validation import check_reading, reading_problems
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.text_files import read_text
@@ -167,7 +168,17 @@ def default_uncertainty(reading: Reading) -> float:
 
 
 def standard_uncertainty(reading: Reading) -> float:
-    """The reading's uncertainty as given, else :func:`default_uncertainty`."""
+    """The reading's uncertainty as given, else :func:`default_uncertainty`.
+
+    Every analysis takes a reading's uncertainty here, so a reading made in code is held
+    to the rule of :mod:`reconcile.data.validation` too.
+
+    Raises
+    ------
+    InputErrors
+        The reading breaks that rule (docs/formats.md §3.3).
+    """
+    check_reading(reading)
     if reading.uncertainty is not None:
         return reading.uncertainty
     return default_uncertainty(reading)
@@ -325,11 +336,16 @@ def _reading_from_cells(
     at = _at(quantity, at_cell.strip(), board, problems)
     if problems or value is None or at is None:
         return None
-    return Reading(
+    reading = Reading(
         quantity=quantity, at=at, value=value, unit=unit, uncertainty=uncertainty,
         instrument=instrument.strip(), note=note.strip(), device=device.strip(),
         line=line, raw=raw,
     )
+    found = reading_problems(reading)  # the rule every way in shares (data/validation.py)
+    if found:
+        problems.extend(found)
+        return None
+    return reading
 
 
 def _value(

@@ -7,15 +7,18 @@ This is the notebook-facing view of the engine for a single board; the engine it
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
+from functools import cached_property
 
 import numpy as np
 
 from reconcile.engine import devices
 from reconcile.model.board import Board
 from reconcile.engine import BatchSolution, compile_board, nominal_parameters, solve_batch
-from reconcile.engine.small_signal import SmallSignal
-from reconcile.errors import SolveError
+from reconcile.engine.small_signal import LinearModel, SmallSignal
+from reconcile.engine.sweep import BoardSweep, Corners, find_corners
+from reconcile.engine.sweep import sweep as sweep_response
+from reconcile.errors import InputError, SolveError
 
 #: the small-signal quantities a solution reports (the registry's, in its order)
 SMALL_SIGNAL_KEYS = SmallSignal.QUANTITIES
@@ -54,6 +57,28 @@ def check_spec(board: Board, values: dict[str, float]) -> list[SpecCheck]:
         met = bool(target.low <= value <= target.high)
         checks.append(SpecCheck(name, target.value, target.low, target.high, value, margin, met))
     return checks
+
+
+def check_corners(board: Board, low_hz: float, high_hz: float) -> list[SpecCheck]:
+    """Compare the −3 dB corners against ``[spec] low_corner = { max }`` and
+    ``high_corner = { min }`` (docs/formats.md §2). A board with no low corner (coupled
+    down to DC) meets any ``low_corner`` limit; a model with no high corner (no device or
+    probe capacitance given) meets any ``high_corner`` limit, and :func:`board_warnings`
+    says that this check then tells nothing. The margin is the distance to the limit
+    over the limit."""
+    spec = board.spec
+    out = []
+    if spec.low_corner_max is not None:
+        lim = spec.low_corner_max
+        value = float(low_hz) if math.isfinite(low_hz) else 0.0
+        out.append(SpecCheck("low_corner", lim, 0.0, lim, value, (lim - value) / lim,
+                             bool(value <= lim)))
+    if spec.high_corner_min is not None:
+        lim = spec.high_corner_min
+        value = float(high_hz) if math.isfinite(high_hz) else math.inf
+        out.append(SpecCheck("high_corner", lim, lim, math.inf, value, (value - lim) / lim,
+                             bool(value >= lim)))
+    return out
 
 
 def _finite(x: float) -> float | None:
@@ -140,7 +165,31 @@ class BoardSolution:
 
     @property
     def spec_checks(self) -> list[SpecCheck]:
-        return check_spec(self.board, self.small_signal or {})
+        checks = check_spec(self.board, self.small_signal or {})
+        spec = self.board.spec
+        if spec.low_corner_max is not None or spec.high_corner_min is not None:
+            c = self.corners
+            checks += check_corners(self.board, c.low_corner[0], c.high_corner[0])
+        return checks
+
+    @cached_property
+    def corners(self) -> Corners:
+        """Mid-band gain and the −3 dB corners of this board, root-found
+        (:func:`reconcile.engine.sweep.find_corners`; one sample)."""
+        linear = self._linear()
+        return find_corners(linear)
+
+    def sweep(self, frequencies) -> BoardSweep:
+        """The response at ``frequencies`` (Hz), the corners and each capacitor's share
+        of the low corner (``solve --sweep``, docs/formats.md §6.4)."""
+        return sweep_response(self._linear(), np.asarray(frequencies, dtype=float))
+
+    def _linear(self) -> LinearModel:
+        linear = self.batch.linear
+        if linear is None:
+            raise InputError("the board has no [signal] table, so it has no frequency "
+                             "response to sweep", path=self.board.source_path, key="signal")
+        return linear.take(slice(self.index, self.index + 1))
 
     # ---------------------------------------------------------------- outputs
     def to_dict(self) -> dict:
@@ -153,7 +202,9 @@ class BoardSolution:
             "small_signal": self.small_signal,
             "temperature": float(self.batch.params.temperature[self.index]),
         }
-        if self.board.spec.targets or self.board.spec.min_vce is not None:
+        spec = self.board.spec
+        if (spec.targets or spec.min_vce is not None or spec.low_corner_max is not None
+                or spec.high_corner_min is not None):
             out["spec"] = {c.quantity: c.to_dict() for c in self.spec_checks}
             out["meets_spec"] = bool(all(c.met for c in self.spec_checks)) and not any(
                 w.startswith("headroom") for w in self.warnings
@@ -221,4 +272,9 @@ def solve(board: Board, *, temperature: float | None = None) -> BoardSolution:
         raise SolveError(
             f"{where}: no DC operating point found (Newton, gmin and source stepping all failed)"
         )
-    return BoardSolution(board=board, batch=batch, warnings=board_warnings(board, batch))
+    sol = BoardSolution(board=board, batch=batch, warnings=board_warnings(board, batch))
+    if board.spec.high_corner_min is not None and not math.isfinite(sol.corners.high_corner[0]):
+        note = ("high_corner: the model has no upper -3 dB corner (no transistor gives ft "
+                "or c_mu, and no probe capacitance), so the high_corner check tells nothing")
+        sol = replace(sol, warnings=(*sol.warnings, note))
+    return sol

@@ -14,6 +14,7 @@ from reconcile.inference.catalogue import GUIDED_CAPTURE_BENCH, readings_one_cou
 from reconcile.model.quantities import QuantityKind
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
+from reconcile.model.quantities import REGISTRY
 
 
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
@@ -59,5 +60,7 @@ def simulate_readings(
         value = float(exact[k])
         if rng is not None:
             value += relative_noise * u * rng.standard_normal()
+            if REGISTRY[ob.quantity].non_negative:
+                value = abs(value)  # a magnitude (rms ratio, |Z|) reads as one, noise folded
         out.append(Reading.from_si(ob.quantity, ob.at, value, u, note=note))
     return out

@@ -24,6 +24,7 @@ from dataclasses import dataclass
 
 __all__ = [
     "COUNTS_FULL_SCALE",
+    "MIN_RELATIVE_UNCERTAINTY",
     "Quantity",
     "QuantityKind",
     "REGISTRY",
@@ -125,6 +126,13 @@ class Quantity:
         Allowed as a ``[spec]`` target of the board file.
     digits : int
         Significant digits shown in tables.
+    value_range : (float, float)
+        The documented physical limits of a reading, SI units (docs/formats.md §3.3):
+        far beyond any reading of a small discrete board, so that only nonsense (an
+        overflowing ``1e308``, a mistyped prefix by many decades) is refused.
+    min_uncertainty : float
+        The smallest standard uncertainty accepted, SI units, whatever the reading
+        (together with :data:`MIN_RELATIVE_UNCERTAINTY` of the reading).
     """
 
     name: str
@@ -141,6 +149,8 @@ class Quantity:
     predicted: bool = True
     spec_target: bool = False
     digits: int = 4
+    value_range: tuple[float, float] = (-math.inf, math.inf)
+    min_uncertainty: float = 0.0
 
     @property
     def takes_at(self) -> bool:
@@ -161,6 +171,14 @@ def _register(*quantities: Quantity) -> Mapping[str, Quantity]:
     return types.MappingProxyType(table)
 
 
+#: The smallest relative standard uncertainty a reading may claim: 1 part in 10⁹ (no
+#: bench instrument comes near it; a smaller one is a typing slip that would make one
+#: reading outweigh every other by many decades).
+MIN_RELATIVE_UNCERTAINTY = 1e-9
+
+_OHMS_RANGE = (0.0, 1e12)  # up to 1 Tohm
+_OHMS_MIN_U = 1e-6  # 1 uohm
+
 _SMALL_SIGNAL_RESISTANCE = UncertaintyRule(0.02, basis="2 % of reading, standard uncertainty")
 
 #: Every quantity, in the order tables list them. Defaults: common practice for a
@@ -173,6 +191,7 @@ REGISTRY: Mapping[str, Quantity] = _register(
             basis="DMM DC volts ±(0.05 % of reading + 2 counts), rectangular",
         ),
         "voltage", "V", at="a node or a/b", places=("nodes",),
+        value_range=(-1000.0, 1000.0), min_uncertainty=1e-9,
     ),
     Quantity(
         "current", "A", "amps", QuantityKind.DC,
@@ -181,11 +200,13 @@ REGISTRY: Mapping[str, Quantity] = _register(
             basis="DMM DC current ±(0.2 % of reading + 2 counts), rectangular",
         ),
         "current", "I", at="a supply or resistor ref", places=("supplies", "resistors"),
+        value_range=(-10.0, 10.0), min_uncertainty=1e-12,
     ),
     Quantity(
         "gain", "", "plain", QuantityKind.SMALL_SIGNAL,
         UncertaintyRule(0.01, basis="1 % of reading, standard uncertainty"),
         "gain |v_out / v_in|", "gain", non_negative=True, spec_target=True,
+        value_range=(0.0, 1e6), min_uncertainty=1e-9,
     ),
     Quantity(
         "gain_phase_deg", "deg", "plain", QuantityKind.SMALL_SIGNAL, None,
@@ -199,12 +220,12 @@ REGISTRY: Mapping[str, Quantity] = _register(
     Quantity(
         "input_resistance", "ohm", "ohms", QuantityKind.SMALL_SIGNAL,
         _SMALL_SIGNAL_RESISTANCE, "input resistance", "Rin", non_negative=True,
-        spec_target=True,
+        spec_target=True, value_range=_OHMS_RANGE, min_uncertainty=_OHMS_MIN_U,
     ),
     Quantity(
         "output_resistance", "ohm", "ohms", QuantityKind.SMALL_SIGNAL,
         _SMALL_SIGNAL_RESISTANCE, "output resistance", "Rout", non_negative=True,
-        spec_target=True,
+        spec_target=True, value_range=_OHMS_RANGE, min_uncertainty=_OHMS_MIN_U,
     ),
     Quantity(
         "resistance", "ohm", "ohms", QuantityKind.PART,
@@ -215,16 +236,19 @@ REGISTRY: Mapping[str, Quantity] = _register(
             "rectangular",
         ),
         "resistance", "R", at="a resistor ref", places=("resistors",), non_negative=True,
+        value_range=_OHMS_RANGE, min_uncertainty=_OHMS_MIN_U,
     ),
     Quantity(
         "capacitance", "F", "farads", QuantityKind.PART,
         UncertaintyRule(0.02, divisor=_RECT, basis="DMM capacitance ±2 % of reading, rectangular"),
         "capacitance", "C", at="a capacitor ref", places=("capacitors",), non_negative=True,
+        value_range=(0.0, 1.0), min_uncertainty=1e-18,
     ),
     Quantity(
         "temperature", "K", "temperature", QuantityKind.AMBIENT,
         UncertaintyRule(0.0, absolute=1.0, basis="1 K, standard uncertainty"),
         "ambient temperature", "T", predicted=False,
+        value_range=(173.15, 573.15), min_uncertainty=1e-3,  # -100 C to 300 C; 1 mK
     ),
 )
 

@@ -41,6 +41,7 @@ def draw_figures(data: ReportData, work_dir: Path) -> None:
     """Draw every figure of the page into ``data.plots`` (PNG bytes)."""
     from reconcile.present.plots_fit import panel_png
     from reconcile.present.plots_report import hypotheses_png, error_budget_png, operating_point_png
+    from reconcile.present.plots_sweep import fitted_response_png
     from reconcile.present.plots_trim import plot_trim
 
     work_dir.mkdir(parents=True, exist_ok=True)
@@ -49,6 +50,9 @@ def draw_figures(data: ReportData, work_dir: Path) -> None:
     )
     data.plots["readings"] = panel_png(data.outcome.fit, "readings")
     data.plots["fit"] = panel_png(data.outcome.fit, "parameters")
+    bode = fitted_response_png(data.outcome.fit)
+    if bode is not None:
+        data.plots["bode"] = bode
     if data.budget:
         data.plots["budget"] = error_budget_png(data.budget)
     data.plots["diagnosis"] = hypotheses_png(data.diagnosis["hypotheses"])
@@ -260,6 +264,8 @@ def _fit_section(d: ReportData) -> str:
         head
         + _table(["parameter", "nominal", "fitted ± 1σ", "in tolerance", "informed by"], rows)
         + _img(d.plots.get("fit"), "fit")
+        + (_img(d.plots["bode"], "frequency response of the fitted board")
+           if d.plots.get("bode") else "")
         + nxt
     )
 

@@ -20,7 +20,6 @@ from __future__ import annotations
 import base64
 import hashlib
 import json
-import math
 import os
 import secrets
 from collections.abc import Iterable, Sequence
@@ -557,10 +556,10 @@ class Store(Database):
 
     @staticmethod
     def _reading_row(reading: Reading, taken_at: datetime | None, source: str) -> dict[str, Any]:
+        from reconcile.data.validation import check_reading
+
+        check_reading(reading)  # what the readings loader refuses, the store refuses
         value = float(reading.value)
-        if math.isnan(value):
-            raise InputError(f"reading {reading.quantity} at {reading.at!r} has no value (NaN)",
-                             line=reading.line)
         now = utc_now()
         return {
             "kind": _READING, "quantity": reading.quantity, "at": reading.at, "value": value,
@@ -615,6 +614,7 @@ class Store(Database):
             sid, _ended = self._session_state(conn, session_id)
             board = self._board(conn, sid)
             current = self._rows(conn, sid)[0]
+        _refuse_poisoned(sid, current)
         return board, [r.reading for r in current]
 
     @staticmethod
@@ -720,6 +720,20 @@ def _summary(row: Any) -> SessionSummary:
         id=row.id, board_title=row.board_title, serial=row.serial, operator=row.operator,
         started=row.started, ended=row.ended, n_readings=int(row.n_readings),
         n_analyses=int(row.n_analyses))
+
+
+def _refuse_poisoned(sid: str, current: list[StoredReading]) -> None:
+    """Refuse to analyse a session holding a reading the store would now refuse (stored
+    by an earlier version): the message names it and how to mend it; nothing is lost."""
+    from reconcile.data.validation import reading_problems
+
+    for stored in current:
+        problems = reading_problems(stored.reading)
+        if problems:
+            raise InputError(
+                f"session {sid} reading {stored.id} ({stored.reading.quantity}): "
+                f"{problems[0]}; replace it with 'reconcile session correct {sid} "
+                f"{stored.id} ROW' or withdraw it with 'session retract'", key="reading")
 
 
 def _stored(row: Any) -> StoredReading:
