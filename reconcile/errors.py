@@ -91,16 +91,24 @@ class InstrumentError(ReconcileError, RuntimeError):
 
 # ---------------------------------------------------------------------------- warnings
 _INPUT_WARNINGS: list[str] = []
+_COLLECTING = [False]
+
+
+def collect_input_warnings() -> None:
+    """Start noting input warnings for this process (the command line's entry point
+    does; library callers read them from the result instead, e.g. ``Board.warnings``)."""
+    _INPUT_WARNINGS.clear()
+    _COLLECTING[0] = True
 
 
 def warn_input(message: str) -> None:
     """Note a problem in the user's input that is not an error (a board that parses but
-    looks wrong). The command line prints each once on stderr and adds them to the JSON
-    object's ``warnings``; library callers find them on the result (``Board.warnings``)."""
-    if message not in _INPUT_WARNINGS:
+    looks wrong). Under the command line each is printed once on stderr and added to the
+    JSON object's ``warnings``; otherwise nothing is kept here."""
+    if _COLLECTING[0] and message not in _INPUT_WARNINGS:
         _INPUT_WARNINGS.append(message)
 
 
 def input_warnings() -> list[str]:
-    """The input warnings noted so far in this process, in order (a copy)."""
+    """The input warnings noted so far by this command, in order (a copy)."""
     return list(_INPUT_WARNINGS)

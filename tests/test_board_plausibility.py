@@ -86,7 +86,24 @@ def test_a_node_only_one_part_touches_is_named_with_its_connection():
         f"typo.toml:{line}: [resistors.RC.nodes] node 'cc' connects only to one end of RC: "
         "a mistyped node name, or a part left unconnected?",
     )
-    assert board.warnings[0] in input_warnings()  # the command line prints these
+
+def test_warnings_are_noted_for_the_command_line_only_when_it_collects():
+    from reconcile import errors
+
+    text = GOOD.replace('nodes = ["vcc", "c"]', 'nodes = ["vcc", "cc"]')
+    saved = errors.input_warnings(), errors._COLLECTING[0]
+    try:
+        errors._COLLECTING[0] = False
+        errors._INPUT_WARNINGS.clear()
+        board_from_text(text, "a.toml")
+        assert input_warnings() == []  # a library caller reads Board.warnings instead
+        errors.collect_input_warnings()  # what the command line's entry point does
+        board = board_from_text(text, "a.toml")
+        board_from_text(text, "a.toml")  # noted once
+        assert input_warnings() == list(board.warnings)
+    finally:
+        errors._INPUT_WARNINGS[:] = saved[0]
+        errors._COLLECTING[0] = saved[1]
 
 
 def test_a_floating_collector_is_named():

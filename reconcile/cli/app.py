@@ -477,7 +477,10 @@ def main() -> None:
     from reconcile.present.console import tolerate_narrow_encoding
     from reconcile.store.redact import redact  # stdlib only; no password is ever printed
 
+    from reconcile.errors import collect_input_warnings
+
     tolerate_narrow_encoding()
+    collect_input_warnings()
     try:
         try:
             app()
