@@ -370,7 +370,9 @@ def test_top_option_fixes_the_true_board() -> None:
     # least 95 % over N_BOARDS = 60 seeded cases (at most 3 failures); with none, the
     # one-sided 95 % Clopper-Pearson lower bound is 0.05**(1/60) = 0.951, itself above
     # 95 %. The bound (scipy.stats.beta) is reported on failure. Defaults except samples
-    # and top, which do not change which option ranks first.
+    # and top, which do not change which option ranks first (top = 1 and top = 3 gave the
+    # same best option in all 60 cases; top = 1 lets the search stop sooner and costs
+    # the yield of one option instead of three: about 45 % less time).
     rng = np.random.default_rng(20240601)
     successes, failures, n = 0, [], 0
     while n < N_BOARDS:
@@ -379,7 +381,7 @@ def test_top_option_fixes_the_true_board() -> None:
             continue  # only boards that miss spec need a rework
         readings = simulate_readings(truth, plan, rng=rng)
         fit = fit_board(board, readings)
-        result = trim(board, fit, samples=SAMPLES, top=3, rng=rng)
+        result = trim(board, fit, samples=SAMPLES, top=1, rng=rng)
         best = result.best
         ok = best is not None and best.meets_spec and _meets(_apply(truth, best, rng))
         successes += ok
