@@ -145,7 +145,7 @@ class VisaTransport:
         self._check_open(cmd)
         try:
             self._visa.write(cmd)
-        except Exception as exc:
+        except visa_failures() as exc:
             if _is_timeout(exc):
                 raise InstrumentError(
                     f"{self.resource} did not accept {cmd!r} within {self.timeout_s:g} s"
@@ -168,7 +168,7 @@ class VisaTransport:
                 self._clear_quietly()
             try:
                 reply = self._visa.query(cmd)
-            except Exception as exc:
+            except visa_failures() as exc:
                 if not _is_timeout(exc):
                     raise InstrumentError(
                         f"{self.resource}: query {cmd!r} failed: {exc}"
@@ -198,11 +198,22 @@ class VisaTransport:
     def _clear_quietly(self) -> None:
         try:
             self._visa.clear()
-        except Exception:  # a failed clear must not hide the timeout
+        # a failed clear (or a backend without device clear) must not hide the timeout
+        except (*visa_failures(), NotImplementedError):
             pass
 
     def __repr__(self) -> str:
         return f"VisaTransport({self.resource!r}, timeout_s={self.timeout_s:g})"
+
+
+def visa_failures() -> tuple[type[BaseException], ...]:
+    """What a VISA call raises on a known failure: pyvisa's errors (when pyvisa is
+    installed) and the operating system's (sockets, serial ports)."""
+    try:
+        from pyvisa.errors import Error
+    except ImportError:
+        return (OSError,)
+    return (Error, OSError)
 
 
 def _is_timeout(exc: BaseException) -> bool:
@@ -321,7 +332,7 @@ def open_transport(
     except InvalidResourceName as exc:
         rm.close()
         raise InputError(f"malformed VISA resource string: {exc}", key="resource") from exc
-    except Exception as exc:
+    except (*visa_failures(), ValueError) as exc:
         rm.close()
         raise InstrumentError(f"cannot open {resource} with backend {backend!r}: {exc}") from exc
     if not (hasattr(visa, "query") and hasattr(visa, "write")):

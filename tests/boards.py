@@ -97,7 +97,8 @@ def divider_stage(
     else:
         parts += resistor("RC", "c", "gnd", rc, **tol)
     if isinstance(re, tuple):
-        parts += resistor("RE1", "e", "e2", re[0], **tol) + resistor("RE2", "e2", "gnd", re[1], **tol)
+        parts += resistor("RE1", "e", "e2", re[0], **tol)
+        parts += resistor("RE2", "e2", "gnd", re[1], **tol)
     elif polarity == "npn":
         parts += resistor("RE", "e", "gnd", re, **tol)
     else:

@@ -30,6 +30,8 @@ ALLOWED = {
     "schema_version": "store API: what a store holds, for administrators",
     # module protocol and framework hooks
     "__getattr__": "PEP 562 lazy exports of reconcile/__init__.py",
+    "__dir__": "PEP 562 dir() of reconcile/__init__.py's lazy exports",
+    "__class__": "reconcile/trim/__init__.py makes the package callable (module class)",
     "pytest_*": "pytest hooks (tests/conftest.py)",
     "isolation_level": "sqlite3 connection attribute set in the connect hook",
     "caption": "rich Table attribute",
@@ -38,8 +40,6 @@ ALLOWED = {
     "pytestmark": "pytest module marker",
     "dps": "mpmath precision setting (tests)",
     "pg_location": "pytest fixture",
-    "pytest_runtest_logreport": "pytest hook (tests/conftest.py)",
-    "pytest_terminal_summary": "pytest hook (tests/conftest.py)",
     # result fields: part of the result a notebook user reads
     "prior_sd_ratio": "FitResult field (posterior sd / prior sd)",
     "beta_chi_square": "lot extraction result field",

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from boards import capacitor, divider_stage, table
+from boards import capacitor, device, divider_stage, resistor, supply, table, transistor
 
 from reconcile.engine import devices
 from reconcile.model.board import GND, Board
@@ -142,7 +142,9 @@ def test_huge_is_device_conducts_below_the_region_threshold() -> None:
 
 
 @pytest.mark.parametrize("temperature_k", [233.15, 398.15])
-def test_temperature_override_matches_board_temperature_self_consistency(temperature_k: float) -> None:
+def test_temperature_override_matches_board_temperature_self_consistency(
+    temperature_k: float,
+) -> None:
     # Self-consistency check (two ways to set the temperature): IS(T) and VT = kT/q at
     # the junction temperature; solving at T via the override and via the board's
     # [conditions] must agree exactly.
@@ -155,125 +157,29 @@ def test_temperature_override_matches_board_temperature_self_consistency(tempera
 DIRECT_COUPLED = {
     "sample-npn-pnp": load_board(SAMPLE_DATA / "two_stage_npn_pnp.toml"),
     "darlington": board_from_text(
-        """
-[supplies.VCC]
-node = "vcc"
-volts = 12
-[resistors.R1]
-nodes = ["vcc", "b1"]
-ohms = "1M"
-[resistors.R2]
-nodes = ["b1", "gnd"]
-ohms = "470k"
-[resistors.RC]
-nodes = ["vcc", "c"]
-ohms = "1k"
-[resistors.RE]
-nodes = ["e2", "gnd"]
-ohms = "1k"
-[transistors.Q1]
-polarity = "npn"
-c = "c"
-b = "b1"
-e = "b2"
-device = "dev"
-[transistors.Q2]
-polarity = "npn"
-c = "c"
-b = "b2"
-e = "e2"
-device = "dev"
-[resistors.RB2]
-nodes = ["b2", "gnd"]
-ohms = "100k"
-[devices.dev]
-IS = "8f"
-beta = 180
-VA = "80"
-"""
+        supply("VCC", "vcc", 12)
+        + resistor("R1", "vcc", "b1", "1M") + resistor("R2", "b1", "gnd", "470k")
+        + resistor("RC", "vcc", "c", "1k") + resistor("RE", "e2", "gnd", "1k")
+        + transistor("Q1", "c", "b1", "b2", "dev") + transistor("Q2", "c", "b2", "e2", "dev")
+        + resistor("RB2", "b2", "gnd", "100k")
+        + device("dev", IS="8f", beta=180, VA="80")
     ),
     "three-stage-npn-pnp-npn": board_from_text(
-        """
-[supplies.VCC]
-node = "vcc"
-volts = 15
-[resistors.R1]
-nodes = ["vcc", "b1"]
-ohms = "100k"
-[resistors.R2]
-nodes = ["b1", "gnd"]
-ohms = "12k"
-[resistors.RC1]
-nodes = ["vcc", "c1"]
-ohms = "10k"
-[resistors.RE1]
-nodes = ["e1", "gnd"]
-ohms = "1k"
-[resistors.RE2]
-nodes = ["vcc", "e2"]
-ohms = "3k3"
-[resistors.RC2]
-nodes = ["c2", "gnd"]
-ohms = "4k7"
-[resistors.RE3]
-nodes = ["e3", "gnd"]
-ohms = "2k2"
-[transistors.Q1]
-polarity = "npn"
-c = "c1"
-b = "b1"
-e = "e1"
-device = "n"
-[transistors.Q2]
-polarity = "pnp"
-c = "c2"
-b = "c1"
-e = "e2"
-device = "p"
-[transistors.Q3]
-polarity = "npn"
-c = "vcc"
-b = "c2"
-e = "e3"
-device = "n"
-[devices.n]
-IS = "8f"
-beta = 180
-VA = "80"
-[devices.p]
-IS = "12f"
-beta = 140
-VA = "60"
-"""
+        supply("VCC", "vcc", 15)
+        + resistor("R1", "vcc", "b1", "100k") + resistor("R2", "b1", "gnd", "12k")
+        + resistor("RC1", "vcc", "c1", "10k") + resistor("RE1", "e1", "gnd", "1k")
+        + resistor("RE2", "vcc", "e2", "3k3") + resistor("RC2", "c2", "gnd", "4k7")
+        + resistor("RE3", "e3", "gnd", "2k2")
+        + transistor("Q1", "c1", "b1", "e1", "n")
+        + transistor("Q2", "c2", "c1", "e2", "p", polarity="pnp")
+        + transistor("Q3", "vcc", "c2", "e3", "n")
+        + device("n", IS="8f", beta=180, VA="80") + device("p", IS="12f", beta=140, VA="60")
     ),
     "current-mirror-diode-connected": board_from_text(
-        """
-[supplies.VCC]
-node = "vcc"
-volts = 9
-[resistors.RREF]
-nodes = ["vcc", "m"]
-ohms = "8k2"
-[resistors.RC]
-nodes = ["vcc", "c2"]
-ohms = "4k7"
-[transistors.Q1]
-polarity = "npn"
-c = "m"
-b = "m"
-e = "gnd"
-device = "n"
-[transistors.Q2]
-polarity = "npn"
-c = "c2"
-b = "m"
-e = "gnd"
-device = "n"
-[devices.n]
-IS = "8f"
-beta = 180
-VA = "80"
-"""
+        supply("VCC", "vcc", 9)
+        + resistor("RREF", "vcc", "m", "8k2") + resistor("RC", "vcc", "c2", "4k7")
+        + transistor("Q1", "m", "m", "gnd", "n") + transistor("Q2", "c2", "m", "gnd", "n")
+        + device("n", IS="8f", beta=180, VA="80")
     ),
 }
 

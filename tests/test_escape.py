@@ -84,9 +84,6 @@ def test_plot_text_is_never_math_text(s):
 @pytest.mark.parametrize("s", _NASTY)
 def test_plot_text_draws(s):
     # Reference: matplotlib's Agg renderer; unescaped, "$x^$" raises a ParseFatalException.
-    import matplotlib
-
-    matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
     fig = Figure()

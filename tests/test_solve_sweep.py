@@ -143,3 +143,13 @@ def test_sweep_command_matches_the_library_sweep_self_consistency(tmp_path) -> N
     lib = solve(load_board(board)).sweep(np.logspace(1, 4, 7)).to_dict()
     for got, want in zip(json.loads(run.stdout)["sweep"]["points"], lib["points"], strict=True):
         assert got == pytest.approx(want, rel=1e-12)
+
+
+def test_sweep_result_has_a_one_line_repr_and_a_report(capsys) -> None:
+    board = board_from_text(_rc_board("high-pass", "10k", "100n"))
+    sw = solve(board).sweep(np.logspace(0, 5, 11))
+    text = repr(sw)
+    # 1/(2πRC) = 159.15 Hz (Horowitz & Hill, from memory), shown to three digits
+    assert "\n" not in text and "159 Hz" in text and "11 points" in text
+    sw.report()
+    assert "low −3 dB corner" in capsys.readouterr().out

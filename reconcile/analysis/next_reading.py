@@ -24,6 +24,7 @@ from reconcile.inference.catalogue import readings_one_could_take
 from reconcile.inference.fitting import FitResult
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
+from reconcile.errors import InputError
 
 
 @dataclass(frozen=True)
@@ -88,7 +89,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
         proto = Reading.from_si(q, at, float(pred[k]))
         try:
             u = default_uncertainty(proto)
-        except Exception:  # a zero reading with a purely relative default
+        except InputError:  # a zero reading with a purely relative default
             u = 1e-3
         dvar = gch[:, k] ** 2 / (hch[k] + u**2)
         sd_after = np.sqrt(np.maximum(var_g - dvar, 0.0))

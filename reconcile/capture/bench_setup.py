@@ -56,10 +56,13 @@ class Bench:
 
     def close(self) -> None:
         """Close every link (errors on close are ignored: the readings are stored)."""
+        from reconcile.errors import ReconcileError
+        from reconcile.instruments.transport import visa_failures
+
         for link in self.links:
             try:
                 link.close()
-            except Exception:  # closing must not hide what went before
+            except (ReconcileError, *visa_failures()):  # closing must not hide what went before
                 pass
         self.links.clear()
 

@@ -305,6 +305,9 @@ def diagnose(
         typer.Option(help="TOML file with [fault_weights] (prior weight per fault kind)."),
     ] = None,
     rows: Annotated[int, typer.Option(help="Hypotheses shown in the table.")] = 10,
+    wide: Annotated[bool, typer.Option(
+        "--wide", help="The full table (the fitted board as a column) instead of the "
+        "80-column layout with a details line per hypothesis.")] = False,
     max_faults: Annotated[
         Optional[int],  # noqa: UP045
         typer.Option(
@@ -338,7 +341,7 @@ def diagnose(
         return
     from reconcile.present.render_diagnosis import print_diagnosis
 
-    print_diagnosis(diag, rows=rows)
+    print_diagnosis(diag, rows=rows, wide=wide)
     _echo_recorded(recorded)
 
 
@@ -504,6 +507,16 @@ def main() -> None:
         sys.stderr.write("reconcile: interrupted\n")
         sys.exit(130)
     except BrokenPipeError:
+        sys.exit(1)
+    except MemoryError:
+        if _state["debug"]:
+            raise
+        from reconcile.engine.budget import MIB, budget_bytes
+
+        sys.stderr.write(
+            "reconcile: ran out of memory (the batch budget is "
+            f"{budget_bytes() / MIB:.0f} MiB; the machine or its limits allow less): give "
+            "fewer samples or a smaller board, or lower the budget with RECONCILE_MEMORY\n")
         sys.exit(1)
     except OSError as err:
         if _state["debug"]:

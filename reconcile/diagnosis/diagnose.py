@@ -93,7 +93,12 @@ from reconcile.diagnosis.weights import fault_weights
 from reconcile.engine import compile_board
 from reconcile.errors import InputError
 from reconcile.inference.fitting import P_CONSISTENT, SUSPECT_SIGMA
-from reconcile.inference.measure import Observation, ambient_from, observations_from
+from reconcile.inference.measure import (
+    MeasurementModel,
+    Observation,
+    ambient_from,
+    observations_from,
+)
 from reconcile.inference.priors import build_space
 from reconcile.model.board import Board
 
@@ -123,6 +128,17 @@ class Diagnosis:
     summary: str
     max_faults: int = 1
     pair_search: PairSearch | None = None
+
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile diagnose`` prints (a rich console, default stdout)."""
+        from reconcile.present.show import show
+
+        show(self, console)
 
     @property
     def top(self) -> Hypothesis:
@@ -172,6 +188,42 @@ class Diagnosis:
 
 
 # ---------------------------------------------------------------------- entry
+WORK_LIMIT = 2e9
+"""Largest :func:`diagnosis_work` ``diagnose`` takes on by default. Measured on this
+project's 2-core machines (invented cascades of common-emitter stages, one per
+transistor): 2 stages 1.4e6 (3.8 s), 4 stages 2.4e7 (16 s), 8 stages 5.5e8 (3.4 min),
+about 3.7e-7 s per unit at that size; the limit is therefore about 12 minutes of single
+faults. A 30-stage board (1.0e11) would take hours: it is refused with exit code 2."""
+SECONDS_PER_WORK = 3.7e-7
+
+
+def diagnosis_work(board: Board, faults: list, observations: list[Observation],
+                   space) -> float:
+    """Work of the single-fault fits, in entries of the engine's free-node matrix per
+    Levenberg–Marquardt iteration: hypotheses × (parameters + 1, the finite-difference
+    Jacobian) × probe set-ups × free nodes². The product tracks the measured time (see
+    :data:`WORK_LIMIT`)."""
+    model = MeasurementModel(board, observations, space)
+    n_free = len(model.circuit.free)
+    return float(len(faults)) * (space.size + 1) * model.group * n_free**2
+
+
+def check_work(board: Board, faults: list, observations: list[Observation], space,
+               limit: float | None) -> None:
+    """Refuse, before any fitting, a diagnosis beyond ``limit`` (one line, exit 2)."""
+    if limit is None:
+        return
+    work = diagnosis_work(board, faults, observations, space)
+    if work > limit:
+        minutes = work * SECONDS_PER_WORK / 60.0
+        raise InputError(
+            f"this board is too large to diagnose here: {len(faults)} fault hypotheses over "
+            f"{space.size} fitted parameters would take about {minutes:,.0f} minutes "
+            f"(work {work:.2g}, limit {limit:.2g}); diagnose one stage at a time (a board "
+            "file of that stage with its readings), or call reconcile.diagnosis.diagnose "
+            "with a larger work_limit", path=board.source_path)
+
+
 def diagnose(
     board: Board,
     readings: list[Reading],
@@ -180,6 +232,7 @@ def diagnose(
     max_iterations: int | None = None,
     max_faults: int | None = None,
     on_progress: Callable[[int, int], None] | None = None,
+    work_limit: float | None = WORK_LIMIT,
 ) -> Diagnosis:
     """Rank fault explanations of ``readings`` on ``board``: single faults, and pairs.
 
@@ -200,6 +253,9 @@ def diagnose(
         the readings, else 1.
     on_progress
         Called as ``on_progress(done, total)`` while pairs are fitted.
+    work_limit
+        Refuse a board whose single-fault fits would need more than this much work
+        (:func:`diagnosis_work`; None: no limit).
 
     Returns
     -------
@@ -208,7 +264,8 @@ def diagnose(
     Raises
     ------
     InputError
-        No reading the model can predict, or a bad prior weight.
+        No reading the model can predict, a bad prior weight, or a board too large to
+        diagnose within ``work_limit``.
     """
     if max_faults is not None and (
         isinstance(max_faults, bool) or max_faults not in MAX_FAULTS
@@ -221,6 +278,7 @@ def diagnose(
     ambient, ambient_u = ambient_from(readings)
     space = build_space(compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u)
     faults = single_faults(board)
+    check_work(board, faults, obs, space, work_limit)
     kw = {} if max_iterations is None else {"max_iterations": max_iterations}
     none_fit = fit_faults(faults[:1], obs, space, **kw)[0]
     seeds = [none_fit.x, space.prior_mean]

@@ -43,6 +43,7 @@ import numpy as np
 from reconcile.engine import devices
 from reconcile.model.board import Board
 from reconcile.engine import DCState, solve_batch
+from reconcile.engine.budget import chunks
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
@@ -211,7 +212,13 @@ class _Group:
     ):
         """Predictions (M, R) for internal vectors x (M, P) of hypotheses ``owner`` (M,),
         and the engine solution. ``record`` keeps each row's DC state as its owner's
-        warm start."""
+        warm start. Within the memory budget the work is one engine call; beyond it,
+        chunks of rows, and the solution is then not returned (None)."""
+        step = self.model.rows_per_call()
+        if len(x) > step:
+            pred = [self.evaluate(x[sl], owner[sl], record=record, small_signal=small_signal)[0]
+                    for sl in chunks(len(x), step)]
+            return np.concatenate(pred), None
         g = self.model.group
         params = self.model.parameters(x)
         rows_owner = np.repeat(owner, g)
@@ -262,8 +269,13 @@ class _Group:
         return np.sum(r**2, axis=1) + np.sum(prior**2, axis=1)
 
     def jacobian(self, x: np.ndarray, f0: np.ndarray, owner: np.ndarray) -> np.ndarray:
-        """Forward-difference Jacobian (M, R, P) at x (M, P) with predictions f0 (M, R)."""
+        """Forward-difference Jacobian (M, R, P) at x (M, P) with predictions f0 (M, R),
+        for as many rows at a time as the memory budget allows (M·P boards in all)."""
         m, p = x.shape
+        per_call = max(1, self.model.rows_per_call() // max(p, 1))
+        if m > per_call:
+            return np.concatenate([self.jacobian(x[sl], f0[sl], owner[sl])
+                                   for sl in chunks(m, per_call)])
         xs = np.repeat(x, p, axis=0)
         xs[np.arange(m * p), np.tile(np.arange(p), m)] += np.tile(self.steps, m)
         pred, _ = self.evaluate(xs, np.repeat(owner, p), small_signal=self._needs_small_signal)
@@ -541,15 +553,25 @@ def fit_faults(
             group, x0, max_iterations, reference_chi2, start_owner
         )
         owner = np.arange(len(start_owner))
-        pred, sol = group.evaluate(x, owner, small_signal=True)
+        pred, _ = group.evaluate(x, owner, small_signal=True)
         finite = np.all(np.isfinite(pred), axis=1)
         cost = group.cost(x, pred, owner)
         # Of a hypothesis's starts keep the best usable end point.
         usable = np.where(finite & ~abandoned, cost, np.inf)
-        for m, i in enumerate(members):
+        picked = []
+        for m in range(len(members)):
             rows = np.nonzero(start_owner == m)[0]
             pick = usable[rows] if np.isfinite(usable[rows]).any() else cost[rows]
-            k = int(rows[int(np.argmin(pick))])
+            picked.append(int(rows[int(np.argmin(pick))]))
+        picked_rows = np.array(picked, dtype=np.intp)
+        sols = {}  # the engine solution of each picked row, solved again in budget chunks
+        for sl in chunks(len(picked_rows), group.model.rows_per_call()):
+            sub = picked_rows[sl]
+            _, sol = group.evaluate(x[sub], sub, small_signal=True)
+            for j, k in enumerate(sub):
+                sols[int(k)] = (sol, j)
+        for m, i in enumerate(members):
+            k = picked[m]
             if not finite[k]:
                 status = "no-operating-point"
             elif converged[k]:
@@ -560,12 +582,16 @@ def fit_faults(
                 status = "approximate"
             else:
                 status = "iteration-limit"
+            sol, j = sols[k]
             out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
-                             int(iterations[k]), sol)
+                             int(iterations[k]), sol, j)
     return [o for o in out if o is not None]
 
 
-def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol) -> FaultFit:
+def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
+            j: int) -> FaultFit:
+    """Hypothesis row ``k`` as a :class:`FaultFit`; ``sol`` is the engine solution in
+    which it is the ``j``-th parameter vector."""
     free = group.free[k]
     jw = jac[:, free] / group.uncertainty[:, None]
     a = jw.T @ jw + np.diag(1.0 / group.sd[k, free] ** 2)
@@ -573,7 +599,7 @@ def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol) 
         cov = np.linalg.inv(a)
     except np.linalg.LinAlgError:
         cov = np.linalg.pinv(a)
-    row = k * group.model.group  # the board alone, no probe attached
+    row = j * group.model.group  # the board alone, no probe attached
     circuit = group.model.circuit
     ss = {}
     if sol.small_signal is not None:

@@ -34,6 +34,7 @@ import math
 from dataclasses import dataclass
 
 from reconcile.model.board import Board
+from reconcile.model.kinds import HypothesisKind
 
 __all__ = [
     "OPEN_OHMS",
@@ -92,7 +93,7 @@ class Fault:
     """
 
     ref: str
-    kind: str
+    kind: HypothesisKind
     board: Board
     fixed: tuple[str, ...] = ()
     overrides: tuple[tuple[str, int, float], ...] = ()

@@ -31,6 +31,7 @@ from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import P_CONSISTENT
 from reconcile.model.board import Board
 from reconcile.model.eseries import decade_slips, is_standard, nearest, series_for_tolerance
+from reconcile.model.kinds import HypothesisKind
 
 OFF_TOLERANCE_KINDS = ("resistor", "capacitor", "supply", "IS", "beta")
 _STATUS_NOTES = {
@@ -62,7 +63,7 @@ class Hypothesis:
     """
 
     ref: str | None
-    fault: str
+    fault: HypothesisKind
     value: float | None
     chi_square: float
     probability: float
@@ -87,6 +88,11 @@ class Hypothesis:
     fit: FaultFit = field(repr=False, compare=False)
     faults: tuple[dict, ...] = ()
     testable: bool = True
+
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
 
     @property
     def label(self) -> str:

@@ -28,6 +28,8 @@ hypothesis, named ``missing``, whose prior weight is ``missing + open``.
 
 from __future__ import annotations
 
+import typing
+
 import math
 import os
 import tomllib
@@ -35,12 +37,13 @@ from collections.abc import Mapping
 from types import MappingProxyType
 
 from reconcile.errors import InputError
+from reconcile.model.kinds import FaultKind
 from reconcile.model.toml_lines import TomlLines, syntax_error_line
 
 __all__ = ["DEFAULT_FAULT_WEIGHTS", "FAULT_KINDS", "fault_weights", "load_fault_weights"]
 
 #: Every fault kind diagnosis knows, ``none`` first.
-FAULT_KINDS: tuple[str, ...] = ("none", "open", "short", "wrong-value", "missing", "reversed")
+FAULT_KINDS: tuple[str, ...] = typing.get_args(FaultKind)
 
 #: Invented default weights (common-practice guesses, see the module docstring).
 DEFAULT_FAULT_WEIGHTS: Mapping[str, float] = MappingProxyType(

@@ -7,12 +7,15 @@ and set once by the CLI (``--memory``); library users can set it with :func:`set
 or for a block with :func:`budget`.
 
 The default, 512 MiB, leaves room on a small machine for the interpreter and the
-libraries (about 150–250 MiB) beside one batch.
+libraries (about 150–250 MiB) beside one batch. The environment variable
+``RECONCILE_MEMORY`` (``256M``, ``1G``, ``300MiB``: binary units) sets it for a process.
 """
 
 from __future__ import annotations
 
 import contextlib
+import os
+import re
 from collections.abc import Iterator
 
 from reconcile.errors import InputError
@@ -31,11 +34,28 @@ side on the sample preamp (``tests/benchmarks/bench_engine.py``, ``chunk_rows``)
 rows per call run 1.3–1.7× faster than the 71 544 the default budget would allow, and
 1 024 rows lose again to per-call overhead."""
 
-_budget = {"bytes": DEFAULT_BUDGET_BYTES}
+ENVIRONMENT = "RECONCILE_MEMORY"
+_UNITS = {"": 1, "K": 1024, "M": MIB, "G": 1024 * MIB}
+_budget: dict[str, int] = {}
+
+
+def parse_budget(text: str, *, key: str = ENVIRONMENT) -> int:
+    """``256M``, ``1G``, ``300MiB``, ``2 GB`` (binary units; a bare number is bytes)."""
+    m = re.fullmatch(r"\s*([0-9]+(?:\.[0-9]+)?)\s*([KMG]?)(?:i?B)?\s*", str(text), re.I)
+    if not m:
+        raise InputError(f"{text!r} is not a memory size: write e.g. 256M or 1G", key=key)
+    nbytes = int(float(m.group(1)) * _UNITS[m.group(2).upper()])
+    if nbytes < MIN_BUDGET_BYTES:
+        raise InputError(f"a memory budget of {nbytes / MIB:.3g} MiB is too small: give at "
+                         f"least {MIN_BUDGET_BYTES // MIB} MiB", key=key)
+    return nbytes
 
 
 def budget_bytes() -> int:
-    """The budget now in force, bytes."""
+    """The budget now in force, bytes (first use: ``RECONCILE_MEMORY`` or the default)."""
+    if "bytes" not in _budget:
+        text = os.environ.get(ENVIRONMENT, "").strip()
+        _budget["bytes"] = parse_budget(text) if text else DEFAULT_BUDGET_BYTES
     return _budget["bytes"]
 
 
@@ -52,7 +72,7 @@ def set_budget(nbytes: int) -> None:
 @contextlib.contextmanager
 def budget(nbytes: int) -> Iterator[None]:
     """Use ``nbytes`` as the budget inside a ``with`` block."""
-    old = _budget["bytes"]
+    old = budget_bytes()
     set_budget(nbytes)
     try:
         yield

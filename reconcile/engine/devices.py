@@ -25,9 +25,13 @@ overflow; no operating point a real board can reach comes near it.
 
 from __future__ import annotations
 
+import typing
+
 from dataclasses import dataclass
 
 import numpy as np
+
+from reconcile.model.kinds import Region
 
 T0_K = 298.15
 """Reference temperature of the device tables, in kelvin (25 C)."""
@@ -175,7 +179,7 @@ def limit_junction(
 REGION_THRESHOLD_V = 0.4
 """A junction counts as forward-biased above this voltage (npn frame)."""
 
-REGIONS = ("forward-active", "saturation", "cutoff", "reverse-active")
+REGIONS = typing.get_args(Region)
 
 
 def region_codes(vbe: np.ndarray, vbc: np.ndarray) -> np.ndarray:

@@ -96,6 +96,17 @@ class BoardSolution:
     warnings: tuple[str, ...] = field(default=())
 
     # ----------------------------------------------------------------- values
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile solve`` prints (a rich console, default stdout)."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
     @property
     def nodes(self) -> dict[str, float | None]:
         """DC node voltages; None for a node with no DC path (reached only through

@@ -248,6 +248,17 @@ class BoardSweep:
     high_corner: float
     shares: tuple[CapacitorShare, ...]
 
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile solve --sweep`` prints of the sweep."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
     @property
     def low_corner_estimate(self) -> float:
         """The short-circuit time-constant estimate of the low corner, Hz (NaN without one)."""

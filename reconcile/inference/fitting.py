@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.model.kinds import Verdict
 from reconcile.engine import compile_board
 from reconcile.inference.measure import MeasurementModel, ambient_from, observations_from
 from reconcile.inference.priors import ParameterSpace, build_space
@@ -109,12 +110,23 @@ class FitResult:
     evaluations: int
     message: str
 
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile fit`` prints (a rich console, default stdout)."""
+        from reconcile.present.show import show
+
+        show(self, console)
+
     @property
     def space(self) -> ParameterSpace:
         return self.model.space
 
     @property
-    def verdict(self) -> str:
+    def verdict(self) -> Verdict:
         if not self.success:
             return "not-converged"
         if self.p_value >= P_CONSISTENT:

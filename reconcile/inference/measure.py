@@ -29,6 +29,8 @@ import numpy as np
 from reconcile.model import quantities
 from reconcile.model.board import GND, Board
 from reconcile.engine import BatchSolution, DCState, compile_board, nominal_parameters, solve_batch
+from reconcile.engine.batch import bytes_per_board
+from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
@@ -141,6 +143,11 @@ class MeasurementModel:
         return np.array([ob.uncertainty for ob in self.observations])
 
     # --------------------------------------------------------------- predict
+    def rows_per_call(self) -> int:
+        """Parameter vectors per engine call within half the memory budget (each is
+        :attr:`group` boards; the solution is held while the predictions are read)."""
+        return rows_per_chunk(self.group * bytes_per_board(self.circuit), share=0.5)
+
     def parameters(self, x: np.ndarray):
         """Engine parameters for M internal vectors: M·group rows."""
         x = np.atleast_2d(x)
@@ -185,6 +192,8 @@ class MeasurementModel:
         engine found no operating point."""
         x = np.atleast_2d(x)
         m = x.shape[0]
+        if solution is None and m > self.rows_per_call():
+            return np.concatenate([self.predict(x[sl]) for sl in chunks(m, self.rows_per_call())])
         sol = solution if solution is not None else self.solve(x)
         ext = self.space.external(x)
         out = np.empty((m, len(self.observations)))

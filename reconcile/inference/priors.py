@@ -41,6 +41,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.model.kinds import ParameterKind, Transform
 from reconcile.engine.circuit import Circuit, Parameters, nominal_parameters
 
 DEFAULT_LOG10_IS_SD = 0.5
@@ -55,10 +56,10 @@ class FreeParameter:
     """One fitted parameter. ``key`` is the contract's name (``R1``, ``Q1.IS``, ...)."""
 
     key: str
-    kind: str  # resistor | capacitor | supply | IS | beta | VA | n | temperature
+    kind: ParameterKind
     ref: str  # part or transistor ref ('' for temperature)
     column: int  # column in the matching Parameters array
-    transform: str  # log | log10 | linear
+    transform: Transform
     prior_mean: float  # internal
     prior_sd: float  # internal
     lower: float  # internal

@@ -42,6 +42,7 @@ import numpy as np
 
 from reconcile.lot import stats as lot_stats
 from reconcile.model.board import Board
+from reconcile.model.kinds import LotMode, Polarity
 from reconcile.errors import InputError, InputErrors
 from reconcile.data.readings import Reading
 from reconcile.data.sweep_file import SweepSet
@@ -148,7 +149,7 @@ class DeviceEstimate:
     chi_square: float
     dof: int
     points: int
-    polarity: str = "npn"
+    polarity: Polarity = "npn"
     bin: str | None = None
     robust_z: dict[str, float] = field(default_factory=dict)
     r_series_ohm: float | None = None
@@ -178,7 +179,7 @@ class LotResult:
     """A characterised lot. ``to_dict`` is the ``lot --json`` output (contract, section 4,
     extended)."""
 
-    mode: str  # jig | sweep
+    mode: LotMode
     devices: dict[str, DeviceEstimate]
     summary: lot_stats.LotSummary
     outliers: tuple[str, ...]
@@ -191,6 +192,17 @@ class LotResult:
     fit_info: dict
     sweeps: SweepSet | None = field(default=None, repr=False)
     extraction: SweepExtraction | None = field(default=None, repr=False)
+
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile lot`` prints (a rich console, default stdout)."""
+        from reconcile.present.show import show
+
+        show(self, console)
 
     def to_dict(self) -> dict:
         o = self.options

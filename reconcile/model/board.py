@@ -11,12 +11,28 @@ Node names are strings; ``"gnd"`` is the 0 V reference (the loader refuses ``"0"
 from __future__ import annotations
 
 import dataclasses
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Literal
+from types import MappingProxyType
+from typing import Any
+
+from reconcile.model.kinds import Polarity
 
 GND = "gnd"
 
-Polarity = Literal["npn", "pnp"]
+__all__ = [
+    "GND", "Bench", "Board", "Capacitor", "Device", "DeviceParam", "Polarity", "Resistor",
+    "Signal", "Spec", "SpecTarget", "Supply", "Transistor",
+]
+
+
+def _read_only(value: Mapping[str, Any] | None) -> Mapping[str, Any]:
+    """A read-only copy of a table (a later change to the caller's dict cannot reach it)."""
+    return MappingProxyType(dict(value or {}))
+
+
+def _set(obj: object, name: str, value: Any) -> None:
+    object.__setattr__(obj, name, value)  # frozen dataclasses: only in __post_init__
 
 
 @dataclass(frozen=True)
@@ -40,6 +56,9 @@ class Resistor:
     rating_w: float | None = None
     trim: bool = True
 
+    def __post_init__(self) -> None:
+        _set(self, "nodes", tuple(self.nodes))
+
 
 @dataclass(frozen=True)
 class Capacitor:
@@ -50,6 +69,9 @@ class Capacitor:
     farads: float
     tolerance: float = 0.20
     trim: bool = True
+
+    def __post_init__(self) -> None:
+        _set(self, "nodes", tuple(self.nodes))
 
 
 @dataclass(frozen=True)
@@ -145,23 +167,34 @@ class Spec:
     """What the board must meet. ``targets`` is keyed by small-signal quantity name
     (``gain``, ``input_resistance``, ``output_resistance``, ``source_gain``)."""
 
-    targets: dict[str, SpecTarget] = field(default_factory=dict)
+    targets: Mapping[str, SpecTarget] = field(default_factory=dict)
     min_vce: float | None = None
     low_corner_max: float | None = None  # Hz, the low −3 dB corner may be at most this
     high_corner_min: float | None = None  # Hz, the high −3 dB corner must be at least this
 
+    def __post_init__(self) -> None:
+        _set(self, "targets", _read_only(self.targets))
+
+
+_TABLES = ("supplies", "resistors", "capacitors", "transistors", "devices")
+
 
 @dataclass(frozen=True)
 class Board:
-    """A whole board as drawn. ``temperature`` is the ambient, in kelvin."""
+    """A whole board as drawn. ``temperature`` is the ambient, in kelvin.
+
+    Read-only all the way down: every part is a frozen dataclass, every table (and
+    ``spec.targets``) a read-only mapping, every node pair a tuple. Make variants with
+    :meth:`replace_part` or :func:`dataclasses.replace`.
+    """
 
     title: str = ""
     temperature: float = 298.15
-    supplies: dict[str, Supply] = field(default_factory=dict)
-    resistors: dict[str, Resistor] = field(default_factory=dict)
-    capacitors: dict[str, Capacitor] = field(default_factory=dict)
-    transistors: dict[str, Transistor] = field(default_factory=dict)
-    devices: dict[str, Device] = field(default_factory=dict)
+    supplies: Mapping[str, Supply] = field(default_factory=dict)
+    resistors: Mapping[str, Resistor] = field(default_factory=dict)
+    capacitors: Mapping[str, Capacitor] = field(default_factory=dict)
+    transistors: Mapping[str, Transistor] = field(default_factory=dict)
+    devices: Mapping[str, Device] = field(default_factory=dict)
     signal: Signal = field(default_factory=Signal)
     bench: Bench = field(default_factory=Bench)
     spec: Spec = field(default_factory=Spec)
@@ -170,6 +203,36 @@ class Board:
     warnings: tuple[str, ...] = ()
     """What the loader found suspicious but not wrong (a node only one part touches, a
     misspelled gnd, an implausible value), each ``path:line: [key] message``."""
+
+    def __post_init__(self) -> None:
+        for name in _TABLES:
+            _set(self, name, _read_only(getattr(self, name)))
+
+    def __repr__(self) -> str:
+        parts = ", ".join(
+            f"{len(getattr(self, name))} {name}" for name in _TABLES[:4] if getattr(self, name)
+        )
+        spec = ", ".join(self.spec.targets)
+        return f"Board({self.title or self.source_path or ''!r}, {parts}" + (
+            f", spec: {spec})" if spec else ")")
+
+    def to_dict(self) -> dict[str, Any]:
+        """Plain dictionaries and lists of every field but the source (JSON-ready apart
+        from infinities)."""
+
+        def plain(obj: Any) -> Any:
+            if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+                return {f.name: plain(getattr(obj, f.name)) for f in dataclasses.fields(obj)}
+            if isinstance(obj, Mapping):
+                return {str(k): plain(v) for k, v in obj.items()}
+            if isinstance(obj, list | tuple):
+                return [plain(v) for v in obj]
+            return obj
+
+        out = plain(self)
+        for private in ("source_path", "source_text", "warnings"):
+            out.pop(private, None)
+        return out
 
     # ------------------------------------------------------------------ views
     @property

@@ -58,7 +58,6 @@ def board_as_read(board: Board) -> str:
     """The board as the loader read it (every part and setting, values in SI units), as
     indented JSON text: what the report shows instead of the board file, so that the
     file's comments (and anything else written between its keys) are never copied."""
-    import dataclasses
     import json
     import math
 
@@ -71,10 +70,7 @@ def board_as_read(board: Board) -> str:
             return str(obj)  # "inf": no Early effect, no probe
         return obj
 
-    fields = dataclasses.asdict(board)
-    for private in ("source_path", "source_text", "warnings"):
-        fields.pop(private, None)
-    return json.dumps(plain(fields), indent=1, ensure_ascii=False, allow_nan=False)
+    return json.dumps(plain(board.to_dict()), indent=1, ensure_ascii=False, allow_nan=False)
 
 
 def _sha(text: str) -> str:

@@ -15,15 +15,6 @@ COLOUR_FIT = "#c4512b"
 COLOUR_PRIOR = "#8a8a8a"
 
 
-def _pyplot():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
 def draw_readings(ax, fit: FitResult) -> None:
     """Each reading's relative difference from the fitted board, with ±u error bars."""
     readings = fit.readings
@@ -74,26 +65,28 @@ def _height(n: int) -> float:
 
 def plot_fit(fit: FitResult, path: str | Path) -> Path:
     """Write a two-panel PNG: readings (left) and parameters (right)."""
-    plt = _pyplot()
+    from matplotlib.figure import Figure
+
     n = max(len(fit.readings), len(fit.parameters))
-    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(12, _height(n)))
+    fig = Figure(figsize=(12, _height(n)))
+    (ax1, ax2) = fig.subplots(1, 2)
     draw_readings(ax1, fit)
     draw_parameters(ax2, fit)
     fig.tight_layout()
     out = Path(path)
     fig.savefig(out, dpi=110)
-    plt.close(fig)
     return out
 
 
 def panel_png(fit: FitResult, which: str) -> bytes:
     """One panel (``readings`` or ``parameters``) as PNG bytes."""
-    plt = _pyplot()
+    from matplotlib.figure import Figure
+
     n = len(fit.readings) if which == "readings" else len(fit.parameters)
-    fig, ax = plt.subplots(figsize=(7, _height(n)))
+    fig = Figure(figsize=(7, _height(n)))
+    ax = fig.subplots()
     (draw_readings if which == "readings" else draw_parameters)(ax, fit)
     fig.tight_layout()
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=100)
-    plt.close(fig)
     return buf.getvalue()

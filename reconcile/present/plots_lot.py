@@ -23,15 +23,13 @@ def plot_lot(result: LotResult, path: str | Path) -> Path:
     VBE for up to :data:`MAX_CURVES` devices (flagged ones first) with each device's
     adopted line; for jig data, fitted log10 IS against beta with ±1σ bars.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure
 
     devs = list(result.devices.values())
     beta = np.array([d.beta for d in devs])
     is_out = np.array([d.name in result.outliers for d in devs])
-    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(12, 4.8))
+    fig = Figure(figsize=(12, 4.8))
+    (ax1, ax2) = fig.subplots(1, 2)
     finite = np.isfinite(beta)
     edges = np.asarray(result.options.bins) if result.options.bins else None
     if edges is None:
@@ -74,7 +72,6 @@ def plot_lot(result: LotResult, path: str | Path) -> Path:
     fig.tight_layout()
     out = Path(path)
     fig.savefig(out, dpi=110)
-    plt.close(fig)
     return out
 
 

@@ -1,5 +1,6 @@
 """Figures for the report that no single command draws: the operating point, the error
-budget and the fault probabilities. Each returns PNG bytes (matplotlib, Agg backend)."""
+budget and the fault probabilities. Each returns PNG bytes (``matplotlib.figure.Figure``,
+no global plotting state)."""
 
 from __future__ import annotations
 
@@ -20,21 +21,10 @@ COLOUR_GROUPS = {
 }
 
 
-def _pyplot():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
 def _png(fig) -> bytes:
-    plt = _pyplot()
     buf = io.BytesIO()
     fig.tight_layout()
     fig.savefig(buf, format="png", dpi=100)
-    plt.close(fig)
     return buf.getvalue()
 
 
@@ -44,10 +34,12 @@ def operating_point_png(
     readings: list[Reading],
 ) -> bytes:
     """Node voltages: as designed, as fitted, and as measured (with ±2u)."""
-    plt = _pyplot()
+    from matplotlib.figure import Figure
+
     names = [n for n, v in design_nodes.items() if v is not None]
     x = np.arange(len(names))
-    fig, ax = plt.subplots(figsize=(8, 3.8))
+    fig = Figure(figsize=(8, 3.8))
+    ax = fig.subplots()
     width = 0.38
     ax.bar(
         x - width / 2,
@@ -88,9 +80,11 @@ def operating_point_png(
 def error_budget_png(budget: dict) -> bytes:
     """One horizontal stacked bar per spec quantity: design, parts, devices, bench,
     as a percentage of the target, with the total error marked."""
-    plt = _pyplot()
+    from matplotlib.figure import Figure
+
     names = list(budget)
-    fig, ax = plt.subplots(figsize=(8, 1.2 + 1.1 * len(names)))
+    fig = Figure(figsize=(8, 1.2 + 1.1 * len(names)))
+    ax = fig.subplots()
     for i, name in enumerate(names):
         q = budget[name]
         target = q["target"]
@@ -135,11 +129,13 @@ def error_budget_png(budget: dict) -> bytes:
 
 def hypotheses_png(hypotheses: list[dict], top: int = 8) -> bytes:
     """Posterior probability of the leading fault hypotheses."""
-    plt = _pyplot()
+    from matplotlib.figure import Figure
+
     shown = hypotheses[:top]
     labels = [f"{h['ref'] or '-'} {h['fault']}" for h in shown]
     probs = [100.0 * (h["probability"] or 0.0) for h in shown]
-    fig, ax = plt.subplots(figsize=(8, 1.0 + 0.45 * len(shown)))
+    fig = Figure(figsize=(8, 1.0 + 0.45 * len(shown)))
+    ax = fig.subplots()
     ax.barh(range(len(shown)), probs, color=COLOUR_FITTED)
     ax.set_yticks(range(len(shown)), labels)
     ax.invert_yaxis()

@@ -30,16 +30,14 @@ def plot_trim(result: TrimResult, path: str | Path, *, bins: int = 60) -> Path:
     ReconcileError
         When the result holds no Monte Carlo draws (``samples = 0``) or no option.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure
 
     best = result.best
     if best is None or result.baseline.draws is None or best.draws is None:
         raise ReconcileError("no Monte Carlo draws to plot: run trim with samples > 0")
     shown = [q for q in QUANTITIES if q[0] in result.baseline.draws]
-    fig, axes = plt.subplots(1, len(shown), figsize=(5.5 * len(shown), 4.2), squeeze=False)
+    fig = Figure(figsize=(5.5 * len(shown), 4.2))
+    axes = fig.subplots(1, len(shown), squeeze=False)
     label_after = "after: " + "; ".join(
         f"{c.ref} {'→' if c.action == 'replace' else '∥'} {numbers.si(c.ohms, 'Ω', 3)}"
         for c in best.changes
@@ -73,7 +71,6 @@ def plot_trim(result: TrimResult, path: str | Path, *, bins: int = 60) -> Path:
     fig.tight_layout()
     out = Path(path)
     fig.savefig(out, dpi=120)
-    plt.close(fig)
     return out
 
 

@@ -12,6 +12,12 @@ SHOW_FROM_ROWS = 50_000
 """Work of fewer rows finishes in about a second or two: no bar for it."""
 
 
+def _bar(*extra) -> Progress:
+    """The one transient bar on stderr: description, bar, done of total, ``extra``."""
+    return Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), *extra,
+                    console=make_console(stderr=True), transient=True)
+
+
 @contextlib.contextmanager
 def chunk_progress(
     description: str, total: int, *, enabled: bool = True
@@ -21,14 +27,7 @@ def chunk_progress(
     if not enabled or total < SHOW_FROM_ROWS:
         yield None
         return
-    progress = Progress(
-        TextColumn("{task.description}"),
-        BarColumn(),
-        MofNCompleteColumn(),
-        TimeRemainingColumn(),
-        console=make_console(stderr=True),
-        transient=True,
-    )
+    progress = _bar(TimeRemainingColumn())
     with progress:
         task = progress.add_task(description, total=total)
 
@@ -48,13 +47,7 @@ def step_progress(
     if not enabled:
         yield None
         return
-    progress = Progress(
-        TextColumn("{task.description}"),
-        BarColumn(),
-        MofNCompleteColumn(),
-        console=Console(stderr=True),
-        transient=True,
-    )
+    progress = _bar()
     with progress:
         task = progress.add_task(description, total=None)
 

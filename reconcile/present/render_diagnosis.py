@@ -10,6 +10,7 @@ from rich.table import Table
 from reconcile.diagnosis.diagnose import Diagnosis, Hypothesis, NextReading
 from reconcile.model.quantities import REGISTRY
 from reconcile.present.console import make_console
+from reconcile.present.escape import markup
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -94,28 +95,62 @@ def _fitted_board(h: Hypothesis, board) -> str:
     return "; ".join(parts)
 
 
-def hypothesis_table(diag: Diagnosis, rows: int = 10) -> Table:
-    """The ranked hypotheses: fault, probability, χ², the fitted board."""
-    t = Table(title="Single-fault explanations, most probable first", title_justify="left")
+def _fault_value_short(h: Hypothesis) -> str:
+    """The fitted value without its uncertainty, for the compact table."""
+    if h.n_faults > 1:
+        return _fault_value(h)
+    if h.fault != "wrong-value" or h.value is None:
+        return ""
+    text = _value(h.value, "Ω")
+    if h.nearest is not None:
+        text += f" ({h.series} {_value(h.nearest, 'Ω')})"
+    if h.decade_slip:
+        text += f" [{STYLE_BAD}]decade slip[/]"
+    return text
+
+
+def hypothesis_table(diag: Diagnosis, rows: int = 10, *, wide: bool = False) -> Table:
+    """The ranked hypotheses: fault, probability, χ², fitted value; with ``wide`` also the
+    fitted board in its own column (compact: :func:`hypothesis_details` below the table)."""
+    pairs = any(h.n_faults > 1 for h in diag.hypotheses)
+    title = ("Explanations (single faults and pairs), most probable first" if pairs
+             else "Single-fault explanations, most probable first")
+    t = Table(title=title, title_justify="left")
     t.add_column("#", justify="right")
-    t.add_column("fault")
-    t.add_column("probability", justify="right")
+    t.add_column("fault", no_wrap=not wide, overflow="fold")
+    t.add_column("probability" if wide else "p", justify="right")
     t.add_column("χ²", justify="right")
-    t.add_column("fitted value")
-    t.add_column("the fitted board then has")
+    t.add_column("fitted value" + ("" if wide else " (nearest)"))
+    if wide:
+        t.add_column("the fitted board then has")
     for i, h in enumerate(diag.hypotheses[:rows], start=1):
         style = "" if h.converged else STYLE_DIM
         chi = numbers.plain(h.chi_square, 3)
         chi = chi if h.converged else f"≥{chi}"
-        t.add_row(
-            str(i), _label(h), _probability(h.probability), chi, _fault_value(h),
-            _fitted_board(h, diag.board), style=style,
-        )
+        cells = [str(i), markup(_label(h)), _probability(h.probability), chi]
+        if wide:
+            cells += [_fault_value(h), _fitted_board(h, diag.board)]
+        else:
+            cells.append(_fault_value_short(h))
+        t.add_row(*cells, style=style)
     more = len(diag.hypotheses) - rows
     if more > 0:
         rest = sum(h.probability for h in diag.hypotheses[rows:])
         t.caption = f"{more} more hypotheses, together probability {_probability(rest)}"
     return t
+
+
+def hypothesis_details(diag: Diagnosis, rows: int = 10) -> list:
+    """The compact layout's details: the fitted value with its uncertainty and what the
+    fitted board then has, one entry per shown hypothesis, wrapped under its own text."""
+    grid = Table.grid(padding=(0, 1))
+    grid.add_column(justify="right", no_wrap=True)
+    grid.add_column()
+    for i, h in enumerate(diag.hypotheses[:rows], start=1):
+        value = _fault_value(h) if h.n_faults == 1 and h.fault == "wrong-value" else ""
+        lead = f"{markup(h.label)} {value}: " if value else f"{markup(h.label)}: "
+        grid.add_row(f"{i}.", f"{lead}{markup(_fitted_board(h, diag.board))}")
+    return [f"[{STYLE_DIM}]The fitted board under each (--wide: as a column):[/]", grid]
 
 
 def readings_table(diag: Diagnosis) -> Table:
@@ -148,14 +183,18 @@ def next_reading_text(nr: NextReading) -> str:
     return f"[bold]Next reading:[/] {nr.label} ({why}). Expected: {expect}"
 
 
-def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3) -> Group:
-    """Everything ``diagnose`` shows: verdict, ranked table, checks, readings, next."""
+def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3,
+                     wide: bool = False) -> Group:
+    """Everything ``diagnose`` shows: verdict, ranked table, checks, readings, next.
+    ``wide``: the full table instead of the compact one with details lines (80 columns)."""
     parts: list = []
     if diag.explained:
         parts.append(f"[{STYLE_OK}]{diag.summary}[/]")
     else:
         parts.append(f"[{STYLE_BAD}]{diag.summary}[/]")
-    parts.append(hypothesis_table(diag, rows))
+    parts.append(hypothesis_table(diag, rows, wide=wide))
+    if not wide:
+        parts += hypothesis_details(diag, rows)
     shown = [
         h for i, h in enumerate(diag.hypotheses[:checks])
         if i == 0 or h.probability >= CHECK_MIN_PROBABILITY
@@ -163,7 +202,8 @@ def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3) -> Gro
     if shown:
         parts.append("[bold]Checks to make with a meter:[/]")
         for i, h in enumerate(shown, start=1):
-            parts.append(f"  {i}. {h.label} (probability {_probability(h.probability)}): {h.check}")
+            parts.append(f"  {i}. {markup(h.label)} (probability "
+                         f"{_probability(h.probability)}): {markup(h.check)}")
     if diag.disagreeing_readings:
         parts.append(readings_table(diag))
     if diag.next_reading is not None:
@@ -197,9 +237,10 @@ def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3) -> Gro
     return Group(*parts)
 
 
-def print_diagnosis(diag: Diagnosis, console: Console | None = None, *, rows: int = 10) -> None:
+def print_diagnosis(diag: Diagnosis, console: Console | None = None, *, rows: int = 10,
+                    wide: bool = False) -> None:
     """Print a diagnosis for a person (the CLI's ``diagnose`` without ``--json``)."""
     console = console or make_console()
     title = diag.board.title or (diag.board.source_path or "board")
-    console.print(f"[bold]{title}[/]: {diag.n_readings} readings")
-    console.print(diagnosis_tables(diag, rows=rows))
+    console.print(f"[bold]{markup(title)}[/]: {diag.n_readings} readings")
+    console.print(diagnosis_tables(diag, rows=rows, wide=wide))

@@ -14,6 +14,7 @@ from pathlib import Path
 
 from reconcile import __version__
 from reconcile.data.readings import standard_uncertainty
+from reconcile.errors import ReconcileError
 from reconcile.present import numbers
 from reconcile.pipeline.report import SECTIONS, ReportData, board_as_read, collect_report
 
@@ -59,7 +60,7 @@ def draw_figures(data: ReportData, work_dir: Path) -> None:
     if data.trim_result is not None:
         try:
             data.plots["trim"] = _png_file(plot_trim(data.trim_result, work_dir / "trim.png"))
-        except Exception:  # no option or no draws: the table says why
+        except ReconcileError:  # no option or no draws: the table says why
             pass
 
 

@@ -37,9 +37,23 @@ def _brief_solution(obj) -> str:
     checks = obj.spec_checks
     spec = "" if not checks else (
         ", meets spec" if all(c.met for c in checks) else ", misses spec")
-    signal = _quantities(obj.small_signal)
+    small = obj.small_signal or {}
+    wanted = list(obj.board.spec.targets) or ["gain", "input_resistance"]
+    signal = _quantities({k: small[k] for k in wanted if k in small})
     return f"BoardSolution({obj.board.title or 'board'!r}{spec}" + (
         f", {signal})" if signal else ")")
+
+
+def _brief_sweep(obj) -> str:
+    import math
+
+    def corner(hz: float) -> str:
+        return numbers.si(hz, "Hz", 3) if math.isfinite(hz) else "none"
+
+    f = obj.frequency
+    return (f"BoardSweep({len(f)} points {numbers.si(f[0], 'Hz', 3)}–{numbers.si(f[-1], 'Hz', 3)}, "
+            f"mid-band gain {numbers.plain(obj.midband_gain, 4)}, low corner "
+            f"{corner(obj.low_corner)}, high corner {corner(obj.high_corner)})")
 
 
 def _brief_fit(obj) -> str:
@@ -158,6 +172,7 @@ def _views() -> dict[type, tuple[Any, Any]]:
     from reconcile.diagnosis.diagnose import Diagnosis
     from reconcile.diagnosis.scoring import Hypothesis
     from reconcile.engine.solution import BoardSolution
+    from reconcile.engine.sweep import BoardSweep
     from reconcile.inference.fitting import FitResult
     from reconcile.lot.characterise import LotResult
     from reconcile.pipeline.analyses import Analysis, FitOutcome, TrimOutcome
@@ -166,6 +181,7 @@ def _views() -> dict[type, tuple[Any, Any]]:
     here = "reconcile.present."
     return {
         BoardSolution: (_brief_solution, _print_with(here + "render_solve", "print_solution")),
+        BoardSweep: (_brief_sweep, _print_with(here + "render_sweep", "print_sweep")),
         FitResult: (_brief_fit, _print_fit),
         FitOutcome: (_brief_fit_outcome, _print_fit_outcome),
         Diagnosis: (_brief_diagnosis, _print_with(here + "render_diagnosis", "print_diagnosis")),

@@ -153,11 +153,11 @@ def _label(url: sa.URL) -> str:
 def _keywords_url(text: str) -> sa.URL:
     """A libpq keyword string (``host=h dbname=d user=u``) as a PostgreSQL URL."""
     _require_psycopg(redact(text))
-    from psycopg import conninfo
+    from psycopg import ProgrammingError, conninfo
 
     try:
         keys = dict(conninfo.conninfo_to_dict(text))
-    except Exception as exc:  # psycopg.ProgrammingError; its text may quote the string
+    except ProgrammingError as exc:  # its text may quote the string
         raise _bad_location(text, _one_line(exc)) from None
     try:
         port = int(keys.pop("port")) if "port" in keys else None

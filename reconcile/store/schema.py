@@ -17,6 +17,8 @@ Timestamps are UTC ISO-8601 strings with milliseconds (``2025-01-31T14:05:09.123
 
 from __future__ import annotations
 
+import typing
+
 from collections.abc import Callable, Sequence
 from datetime import UTC, datetime
 
@@ -24,11 +26,12 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Connection
 
 from reconcile.errors import InputError
+from reconcile.model.kinds import AnalysisKind
 
 SCHEMA_VERSION = 2
 """The newest schema this code knows; ``MIGRATIONS[i]`` brings a store to version i+1."""
 
-ANALYSIS_KINDS = ("fit", "diagnose", "trim", "lot", "capture", "report")
+ANALYSIS_KINDS = typing.get_args(AnalysisKind)
 """Kinds of analysis a session may record."""
 
 

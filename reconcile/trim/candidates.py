@@ -33,6 +33,8 @@ configurable.
 
 from __future__ import annotations
 
+import typing
+
 import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
@@ -42,8 +44,9 @@ import numpy as np
 from reconcile.model.board import Board, Resistor
 from reconcile.errors import InputError
 from reconcile.model.eseries import series_for_tolerance, values_in_range
+from reconcile.model.kinds import ReworkAction
 
-ACTIONS = ("replace", "parallel")
+ACTIONS = typing.get_args(ReworkAction)
 REPLACE, PARALLEL = 0, 1
 
 SeriesChoice = Mapping[str, str] | Callable[[Resistor], str] | None

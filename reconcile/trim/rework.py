@@ -45,11 +45,12 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Literal
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.model.kinds import ReworkAction, SearchKind, TrimMode
 from reconcile.engine import compile_board
 from reconcile.errors import InputError
 from reconcile.inference.priors import ParameterSpace, build_space
@@ -85,7 +86,7 @@ EXHAUSTIVE_LIMIT = 200_000
 PAIR_BUDGET = 40_000
 BEAM = 200
 
-Action = Literal["replace", "parallel"]
+Action = ReworkAction
 
 
 @dataclass(frozen=True)
@@ -165,15 +166,26 @@ class TrimResult:
 
     baseline: TrimOption
     options: tuple[TrimOption, ...]
-    search: Literal["exhaustive", "pruned"]
+    search: SearchKind
     evaluated: int
-    mode: Literal["fitted", "design"] = "fitted"
+    mode: TrimMode = "fitted"
     screened: int = 0
     spec: dict[str, dict[str, float]] = field(default_factory=dict)
     costs: dict[str, float] = field(default_factory=dict)
     k_sigma: float = K_SIGMA
     samples: int = 0
     searched_changes: int = 1
+
+    def __repr__(self) -> str:
+        from reconcile.present.show import brief
+
+        return brief(self)
+
+    def report(self, console=None) -> None:
+        """Print what ``reconcile trim`` prints (a rich console, default stdout)."""
+        from reconcile.present.show import show
+
+        show(self, console)
 
     @property
     def best(self) -> TrimOption | None:

@@ -36,7 +36,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from reconcile.model.board import Board
+from reconcile.model.kinds import TrimMode
 from reconcile.engine import BatchSolution, Circuit, DCState, Parameters, solve_batch
+from reconcile.engine.batch import bytes_per_board
+from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.inference.priors import ParameterSpace
 from reconcile.trim.candidates import PARALLEL, Singles
 
@@ -65,7 +68,7 @@ class Context:
     space: ParameterSpace
     x: np.ndarray  # posterior mean, internal
     covariance: np.ndarray  # posterior covariance, internal
-    mode: str  # fitted | design
+    mode: TrimMode
     base_params: Parameters  # one sample: the built board
     base: BatchSolution
     built_ohms: np.ndarray  # (nR,)
@@ -107,9 +110,16 @@ def build_context(
         base_params = base_params.with_values(resistor_ohms=drawn)
     n_r = len(circuit.resistor_refs)
     h = FD_STEP_OF_PRIOR_SD * space.prior_sd
-    sol = solve_batch(circuit, _probe_boards(space, x, base_params, h, n_r))
-    base = _take(sol, 0)
-    sens, sens_col, v_sens, v_sens_col = _central_differences(sol, board, circuit, space, h)
+    probes = _probe_boards(space, x, base_params, h, n_r)
+    base, watched_parts, v_parts = None, [], []
+    for sl in chunks(probes.n_samples, boards_per_call(circuit)):
+        sol = solve_batch(circuit, probes.take(sl))
+        if base is None:
+            base = _take(sol, 0)
+        watched_parts.append(_watched(sol, board, circuit))
+        v_parts.append(sol.state.v)
+    sens, sens_col, v_sens, v_sens_col = _central_differences(
+        np.concatenate(watched_parts, axis=1), np.concatenate(v_parts), circuit, space, h)
     cov_sens = covariance @ sens.T
     var0 = np.einsum("qp,pq->q", sens, cov_sens)
     param_of_col = np.full(n_r, -1, dtype=np.intp)
@@ -169,23 +179,32 @@ def _probe_boards(space: ParameterSpace, x: np.ndarray, base_params: Parameters,
     return Parameters.concatenate([params, col_params])
 
 
-def _central_differences(sol: BatchSolution, board: Board, circuit: Circuit,
-                         space: ParameterSpace, h: np.ndarray):
-    """Sensitivities of the watched quantities (spec targets, then each VCE when the
-    spec limits it) and of the node voltages, per free parameter and per resistor column,
-    from the boards of :func:`_probe_boards`."""
-    spec = board.spec
-    n_p, n_r = space.size, len(circuit.resistor_refs)
-    watched = [np.nan_to_num(sol.quantity(name), nan=0.0) for name in spec.targets]
-    if spec.min_vce is not None:
+def boards_per_call(circuit: Circuit) -> int:
+    """Boards per engine call within half the memory budget, at most
+    :data:`CHUNK_BOARDS`."""
+    return rows_per_chunk(bytes_per_board(circuit), share=0.5, at_most=CHUNK_BOARDS)
+
+
+def _watched(sol: BatchSolution, board: Board, circuit: Circuit) -> np.ndarray:
+    """The quantities trim watches (Q, N): the spec targets, then each transistor's VCE
+    (polarity-signed) when the spec limits it."""
+    watched = [np.nan_to_num(sol.quantity(name), nan=0.0) for name in board.spec.targets]
+    if board.spec.min_vce is not None:
         watched += list((circuit.polarity * sol.vce).T)
+    return np.array(watched).reshape(len(watched), sol.state.v.shape[0])
+
+
+def _central_differences(watched: np.ndarray, v: np.ndarray, circuit: Circuit,
+                         space: ParameterSpace, h: np.ndarray):
+    """Sensitivities of the watched quantities (Q, N) and of the node voltages (N, size),
+    per free parameter and per resistor column, from the boards of :func:`_probe_boards`."""
+    n_p, n_r = space.size, len(circuit.resistor_refs)
     sens = np.zeros((len(watched), n_p))
     sens_col = np.zeros((len(watched), n_r))
     off = 1 + 2 * n_p
     for i, q in enumerate(watched):
         sens[i] = (q[1 : 1 + n_p] - q[1 + n_p : off]) / (2.0 * h)
         sens_col[i] = (q[off : off + n_r] - q[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
-    v = sol.state.v
     v_sens = (v[1 : 1 + n_p] - v[1 + n_p : off]) / (2.0 * h[:, None])
     v_sens_col = (v[off : off + n_r] - v[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
     for j, fp in enumerate(space.parameters):
@@ -357,16 +376,15 @@ def evaluate(
     single_v: np.ndarray | None = None,
     keep_v: bool = False,
 ) -> Scores:
-    """Solve every candidate exactly and score it (chunks of :data:`CHUNK_BOARDS`).
+    """Solve every candidate exactly and score it (chunks of :data:`CHUNK_BOARDS` or
+    fewer, within the memory budget).
 
     ``single_v`` (node voltages of every single change) seeds Newton at the first-order
     superposition of the changes' effects; otherwise it starts from the built board.
     """
-    parts = []
-    for start in range(0, combos.shape[0], CHUNK_BOARDS):
-        parts.append(
-            _evaluate_chunk(ctx, singles, combos[start : start + CHUNK_BOARDS], single_v, keep_v)
-        )
+    step = boards_per_call(ctx.circuit)
+    parts = [_evaluate_chunk(ctx, singles, combos[sl], single_v, keep_v)
+             for sl in chunks(combos.shape[0], step)]
     if len(parts) == 1:
         return parts[0]
     out = Scores.concatenate(parts)

@@ -21,9 +21,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reconcile.engine import Parameters, solve_batch
+from reconcile.engine import DCState, Parameters, solve_batch
+from reconcile.engine.batch import bytes_per_board
+from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.trim.candidates import Singles
-from reconcile.trim.search import Context, changed_resistors, first_order_state, score_solution
+from reconcile.trim.search import (
+    Context,
+    Scores,
+    boards_per_call,
+    changed_resistors,
+    first_order_state,
+    score_solution,
+)
 
 PERCENTILES = (5.0, 50.0, 95.0)
 
@@ -67,13 +76,31 @@ def yields(
     option_v: np.ndarray | None = None,
 ) -> list[YieldEstimate]:
     """Yield of each candidate in ``combos`` (rows of single-change indices, -1 padded;
-    an all -1 row is the board unchanged), in one engine call of rows × samples boards.
+    an all -1 row is the board unchanged): rows × samples boards, solved in groups of
+    options and chunks of boards within the memory budget, every option on the same
+    posterior draws.
 
     ``option_v`` (rows, n + 1), the DC node voltages of each candidate as predicted, seeds
     Newton for its draws at a first-order step from there (default: the built board).
     """
     n_opt = combos.shape[0]
-    x_draws = posterior_draws(ctx, samples, rng)
+    x_draws = posterior_draws(ctx, samples, rng)  # the same draws for every option
+    if option_v is None:
+        option_v = np.repeat(ctx.base.state.v, n_opt, axis=0)
+    n_r = len(ctx.circuit.resistor_refs)
+    per_option = samples * (bytes_per_board(ctx.circuit) + 64 * (n_r + combos.shape[1]))
+    group = rows_per_chunk(per_option, share=0.5)
+    out: list[YieldEstimate] = []
+    for sl in chunks(n_opt, group):
+        out += _yields_of(ctx, singles, combos[sl], samples, x_draws, rng, option_v[sl])
+    return out
+
+
+def _yields_of(ctx: Context, singles: Singles, combos: np.ndarray, samples: int,
+               x_draws: np.ndarray, rng: np.random.Generator,
+               option_v: np.ndarray) -> list[YieldEstimate]:
+    """:func:`yields` of a group of options that fits the memory budget."""
+    n_opt = combos.shape[0]
     draws = ctx.space.to_parameters(x_draws)
     built = draws.resistor_ohms
     rows = np.repeat(combos, samples, axis=0)
@@ -85,8 +112,6 @@ def yields(
     moved = _with_new_values(singles, rows, jitter)
     r, share = changed_resistors(ctx, moved, _flat_index(rows), base_r)
     params = Parameters.concatenate([draws] * n_opt).with_values(resistor_ohms=r)
-    if option_v is None:
-        option_v = np.repeat(ctx.base.state.v, n_opt, axis=0)
     r_mean, _ = changed_resistors(
         ctx, singles, combos, np.repeat(ctx.built_ohms[None, :], n_opt, axis=0)
     )
@@ -96,8 +121,13 @@ def yields(
         np.tile(x_draws - ctx.x, (n_opt, 1)),
         np.log(r) - np.repeat(np.log(r_mean), samples, axis=0),
     )
-    sol = solve_batch(ctx.circuit, params, seed)
-    scores = score_solution(ctx, moved, _flat_index(rows), sol, share)
+    flat = _flat_index(rows)
+    parts = []
+    for sl in chunks(params.n_samples, boards_per_call(ctx.circuit)):
+        part_seed = DCState(seed.v[sl], seed.vj[sl], seed.converged[sl], seed.iterations[sl])
+        sol = solve_batch(ctx.circuit, params.take(sl), part_seed)
+        parts.append(score_solution(ctx, moved, flat[sl], sol, share[sl]))
+    scores = parts[0] if len(parts) == 1 else Scores.concatenate(parts)
     ok = scores.meets
     out = []
     for o in range(n_opt):

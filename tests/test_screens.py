@@ -1,0 +1,75 @@
+"""Every command's terminal output fits 80 columns (the default terminal width), and the
+diagnose table keeps one line per hypothesis there (its details go below the table;
+``--wide`` restores the full table)."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+S = ROOT / "sample_data"
+BOARD, READINGS = str(S / "line_receiver_cb.toml"), str(S / "line_receiver_built.csv")
+
+COMMANDS = {
+    "solve": ["solve", str(S / "preamp_ce.toml")],
+    "solve-samples": ["solve", str(S / "preamp_ce.toml"), "--samples", "2000"],
+    "solve-sweep": ["solve", BOARD, "--sweep", "1:10M:200"],
+    "fit": ["fit", BOARD, READINGS],
+    "diagnose": ["diagnose", BOARD, READINGS],
+    "trim": ["trim", BOARD, READINGS],
+    "lot-jig": ["lot", str(S / "lot_jig.toml"), str(S / "lot_jig_readings.csv")],
+    "lot-sweep": ["lot", str(S / "lot_sweep.csv")],
+    "help": ["--help"],
+    "fit-help": ["fit", "--help"],
+}
+
+
+def _run(args: list[str], cwd: Path, columns: int = 80) -> subprocess.CompletedProcess:
+    env = {**os.environ, "COLUMNS": str(columns)}
+    return subprocess.run([sys.executable, "-m", "reconcile", *args], capture_output=True,
+                          text=True, cwd=cwd, env=env, timeout=300)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", sorted(COMMANDS))
+def test_terminal_output_fits_80_columns(name: str, tmp_path) -> None:
+    run = _run(COMMANDS[name], tmp_path)
+    assert run.returncode == 0, run.stderr
+    lines = run.stdout.splitlines()
+    assert lines
+    too_long = [line for line in lines if len(line) > 80]
+    assert not too_long, too_long[:3]
+
+
+def _table_rows(stdout: str) -> list[str]:
+    """Body lines of the first box table (between its header rule and its bottom)."""
+    lines = stdout.splitlines()
+    start = next(i for i, line in enumerate(lines) if line.startswith("┡"))
+    end = next(i for i in range(start, len(lines)) if lines[i].startswith("└"))
+    return lines[start + 1:end]
+
+
+def test_diagnose_table_has_one_line_per_hypothesis_at_80_columns(tmp_path) -> None:
+    run = _run(["diagnose", BOARD, READINGS, "--rows", "8"], tmp_path)
+    assert run.returncode == 0, run.stderr
+    rows = _table_rows(run.stdout)
+    assert len(rows) == 8
+    assert [r.split("│")[1].strip() for r in rows] == [str(i) for i in range(1, 9)]
+    assert "The fitted board under each" in run.stdout
+    block = run.stdout.split("The fitted board under each")[1].split("Checks to make")[0]
+    details = [line for line in block.splitlines() if line.lstrip()[:3] in
+               {f"{i}. " for i in range(1, 9)}]
+    assert len(details) == 8  # every shown hypothesis has its details line
+
+
+def test_diagnose_wide_restores_the_fitted_board_column(tmp_path) -> None:
+    run = _run(["diagnose", BOARD, READINGS, "--rows", "3", "--wide"], tmp_path, columns=200)
+    assert run.returncode == 0, run.stderr
+    assert "the fitted board then has" in run.stdout
+    assert "The fitted board under each" not in run.stdout
+    assert len(_table_rows(run.stdout)) == 3
