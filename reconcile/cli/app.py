@@ -355,6 +355,9 @@ def trim(
     top: Annotated[int, typer.Option(help="How many options to show.")] = 10,
     samples: Annotated[int, typer.Option(help="Monte Carlo samples for the yield.")] = 10_000,
     seed: Annotated[int, typer.Option(help="Seed of the Monte Carlo draws.")] = 0,
+    wide: Annotated[bool, typer.Option(
+        "--wide", help="The full table (spec bands in the header, worst-case margins) "
+        "instead of the 80-column layout.")] = False,
     session: SessionOpt = None,
     store: StoreOpt = None,
 ) -> None:
@@ -375,7 +378,9 @@ def trim(
     if json:
         _emit_recorded(out, recorded)
         return
-    outcome.report()
+    from reconcile.present.show import print_trim_outcome
+
+    print_trim_outcome(outcome, wide=wide)
     if plot is not None:
         typer.echo(f"plot written to {plot}")
 
