@@ -87,3 +87,28 @@ class StoreError(ReconcileError, RuntimeError):
 
 class InstrumentError(ReconcileError, RuntimeError):
     """An instrument did not answer, answered garbage, or reported an error."""
+
+
+# ---------------------------------------------------------------------------- warnings
+_INPUT_WARNINGS: list[str] = []
+_COLLECTING = [False]
+
+
+def collect_input_warnings() -> None:
+    """Start noting input warnings for this process (the command line's entry point
+    does; library callers read them from the result instead, e.g. ``Board.warnings``)."""
+    _INPUT_WARNINGS.clear()
+    _COLLECTING[0] = True
+
+
+def warn_input(message: str) -> None:
+    """Note a problem in the user's input that is not an error (a board that parses but
+    looks wrong). Under the command line each is printed once on stderr and added to the
+    JSON object's ``warnings``; otherwise nothing is kept here."""
+    if _COLLECTING[0] and message not in _INPUT_WARNINGS:
+        _INPUT_WARNINGS.append(message)
+
+
+def input_warnings() -> list[str]:
+    """The input warnings noted so far by this command, in order (a copy)."""
+    return list(_INPUT_WARNINGS)

@@ -73,3 +73,15 @@ def test_diagnose_wide_restores_the_fitted_board_column(tmp_path) -> None:
     assert "the fitted board then has" in run.stdout
     assert "The fitted board under each" not in run.stdout
     assert len(_table_rows(run.stdout)) == 3
+
+
+@pytest.mark.slow
+def test_trim_compact_table_keeps_every_column_readable_and_wide_has_the_bands(tmp_path):
+    run = _run(["trim", BOARD, READINGS, "--samples", "500"], tmp_path)
+    assert run.returncode == 0, run.stderr
+    header = next(line for line in run.stdout.splitlines() if line.startswith("┃"))
+    assert "…" not in header  # no column squeezed to an ellipsis
+    assert "spec: gain" in run.stdout and "--wide: full" in run.stdout
+    wide = _run(["trim", BOARD, READINGS, "--samples", "500", "--wide"], tmp_path, columns=200)
+    assert wide.returncode == 0, wide.stderr
+    assert "worst case" in wide.stdout and "input resistance" in wide.stdout

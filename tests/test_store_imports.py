@@ -208,3 +208,22 @@ def test_a_failed_import_says_how_to_resume(location, board, monkeypatch):
         done = store.import_readings(sid, readings, file_sha256="e" * 64, source="r.csv")
         assert done.resumed and done.already_stored == 3 and len(done.ids) == 4
         assert [r.reading.value for r in store.readings(sid)] == [r.value for r in readings]
+
+
+def test_a_store_of_schema_version_2_still_opens_and_knows_its_import(tmp_path, board):
+    # tests/reference/store_v2.sql: a store written at schema version 2 (see its header)
+    path = tmp_path / "v2.sqlite"
+    with sqlite3.connect(path) as conn:
+        conn.executescript((TESTS / "reference" / "store_v2.sql").read_text(encoding="utf-8"))
+    conn.close()
+    text = ("quantity,at,value,unit,uncertainty,instrument,note\n"
+            "voltage,vcc,8.98,V,,,\nvoltage,b,1.5,V,2m,DMM-1,\n")
+    sha = hashlib.sha256(text.encode("utf-8")).hexdigest()  # FIPS 180-4 via hashlib
+    with open_store(path) as store:
+        [record] = store.imports("S-FIXTURE3")
+        assert (record.file_sha256, record.n_rows, record.stored, record.source) == (
+            sha, 2, 2, "bench.csv")
+        assert [r.reading.value for r in store.readings("S-FIXTURE3")] == [8.98, 1.5]
+        readings = readings_from_text(text, path="bench.csv", board=board)
+        with pytest.raises(InputError, match="already added to session S-FIXTURE3: import 1"):
+            store.import_readings("S-FIXTURE3", readings, file_sha256=sha, source="bench.csv")

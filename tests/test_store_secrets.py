@@ -18,7 +18,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from store_support import BOARD_TOML, PG_URL, pg_database
+from store_support import BOARD_TOML, PG_URL, READINGS_CSV, pg_database
 
 from reconcile.store.redact import MASK, redact
 
@@ -135,3 +135,29 @@ def test_a_reachable_store_shows_no_password_in_json_or_tables(tmp_path):
             assert MASK in json.loads(listed.stdout)["store"]
             table = _run("session", "list", "--store", location)
             assert table.returncode == 0 and PW not in table.stdout + table.stderr
+
+
+@pytest.mark.slow  # a whole report from a stored session
+@pytest.mark.postgres
+def test_a_session_report_shows_no_password(tmp_path):
+    if not PG_URL:
+        pytest.skip("RECONCILE_TEST_PG_URL is not set")
+    import sqlalchemy as sa
+
+    board = tmp_path / "board.toml"
+    board.write_text(BOARD_TOML, encoding="utf-8")
+    readings = tmp_path / "r.csv"
+    readings.write_text(READINGS_CSV, encoding="utf-8")
+    with pg_database() as url:
+        u = sa.make_url(url)
+        location = u.update_query_dict({"password": PW}).set(password=PW).render_as_string(
+            hide_password=False)
+        new = _run("session", "new", str(board), "--store", location, "--json")
+        sid = json.loads(new.stdout)["session"]
+        assert _run("session", "add", sid, str(readings), "--store", location).returncode == 0
+        page = tmp_path / "report.html"
+        done = _run("report", "--session", sid, "--store", location, "--out", str(page),
+                    "--json")
+        assert done.returncode == 0, done.stderr
+        assert PW not in done.stdout + done.stderr
+        assert PW not in page.read_text(encoding="utf-8")

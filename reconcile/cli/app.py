@@ -361,6 +361,9 @@ def trim(
     top: Annotated[int, typer.Option(help="How many options to show.")] = 10,
     samples: Annotated[int, typer.Option(help="Monte Carlo samples for the yield.")] = 10_000,
     seed: Annotated[int, typer.Option(help="Seed of the Monte Carlo draws.")] = 0,
+    wide: Annotated[bool, typer.Option(
+        "--wide", help="The full table (spec bands in the header, worst-case margins) "
+        "instead of the 80-column layout.")] = False,
     session: SessionOpt = None,
     store: StoreOpt = None,
 ) -> None:
@@ -386,7 +389,9 @@ def trim(
     if json:
         _emit_recorded(out, recorded)
         return
-    outcome.report()
+    from reconcile.present.show import print_trim_outcome
+
+    print_trim_outcome(outcome, wide=wide)
     if plot is not None:
         typer.echo(f"plot written to {plot}")
 
@@ -486,16 +491,28 @@ def _check_arguments(args: list[str]) -> None:
                 "(or rename the file)") from None
 
 
+def _print_input_warnings(redact) -> None:
+    """Each input warning noted by the command, one line each on stderr (also with
+    ``--json``, whose object lists them in ``warnings``)."""
+    from reconcile.errors import input_warnings
+
+    for message in input_warnings():
+        sys.stderr.write(f"reconcile: warning: {redact(message)}\n")
+
+
 def main() -> None:
     """Console-script entry point with the project's single error handler.
 
-    typer handles usage errors itself (exit 2); everything the project raises on
-    purpose is caught here.
+    Usage errors (an unknown option, a bad integer) and everything the project raises
+    on purpose become one line on stderr here.
     """
     from reconcile.present.console import tolerate_narrow_encoding
     from reconcile.store.redact import redact  # stdlib only; no password is ever printed
 
+    from reconcile.errors import collect_input_warnings
+
     tolerate_narrow_encoding()
+    collect_input_warnings()
     # typer >= 0.26 carries its own click (typer._click); older typer uses click itself
     try:
         from typer._click import exceptions as _usage
@@ -504,7 +521,10 @@ def main() -> None:
     try:
         _check_arguments(sys.argv[1:])
         code = app(standalone_mode=False)
-        sys.exit(code if isinstance(code, int) else 0)
+        code = code if isinstance(code, int) else 0
+        if code == 0:  # a command that failed prints its one line only
+            _print_input_warnings(redact)
+        sys.exit(code)
     except typer.Abort:
         sys.stderr.write("reconcile: interrupted\n")
         sys.exit(130)
@@ -514,16 +534,23 @@ def main() -> None:
     except _usage.UsageError as err:
         # a usage error is bad input like any other: one line, exit 2
         where = err.ctx.command_path if err.ctx is not None else "reconcile"
-        message = " ".join(err.format_message().split())
+        message = redact(" ".join(err.format_message().split()))
         sys.stderr.write(f"reconcile: {message} (see '{where} --help')\n")
         sys.exit(2)
     except _usage.ClickException as err:
-        sys.stderr.write(f"reconcile: {' '.join(err.format_message().split())}\n")
+        sys.stderr.write(f"reconcile: {redact(' '.join(err.format_message().split()))}\n")
         sys.exit(2)
     except ReconcileError as err:
         if _state["debug"]:
             raise
-        sys.stderr.write(f"reconcile: {redact(str(err))}\n")
+        line = str(err)
+        from reconcile.errors import input_warnings
+
+        noted = input_warnings()
+        if noted and err.exit_code == 1:  # a failure a suspicious input may explain
+            more = f"; and {len(noted) - 1} more" if len(noted) > 1 else ""
+            line += f" (warning: {noted[0]}{more})"
+        sys.stderr.write(f"reconcile: {redact(line)}\n")
         sys.exit(err.exit_code)
     except KeyboardInterrupt:
         sys.stderr.write("reconcile: interrupted\n")

@@ -200,6 +200,9 @@ class Board:
     spec: Spec = field(default_factory=Spec)
     source_path: str | None = None
     source_text: str | None = None
+    warnings: tuple[str, ...] = ()
+    """What the loader found suspicious but not wrong (a node only one part touches, a
+    misspelled gnd, an implausible value), each ``path:line: [key] message``."""
 
     def __post_init__(self) -> None:
         for name in _TABLES:
@@ -227,7 +230,7 @@ class Board:
             return obj
 
         out = plain(self)
-        for private in ("source_path", "source_text"):
+        for private in ("source_path", "source_text", "warnings"):
             out.pop(private, None)
         return out
 

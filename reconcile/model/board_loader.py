@@ -44,7 +44,7 @@ from reconcile.model.board import (
     Supply,
     Transistor,
 )
-from reconcile.errors import InputError, InputErrors
+from reconcile.errors import InputError, InputErrors, warn_input
 from reconcile.model.quantities import REGISTRY
 from reconcile.model.text_files import read_text
 from reconcile.model.toml_lines import Key, TomlLines, parse_toml
@@ -133,11 +133,17 @@ class _Checker:
         self.path = path
         self.lines = TomlLines(text)
         self.errors: list[InputError] = []
+        self.warnings: list[str] = []
 
     def error(self, key: Key, message: str) -> None:
         self.errors.append(
             InputError(message, path=self.path, key=".".join(key), line=self.lines.find(key))
         )
+
+    def warn(self, key: Key, message: str) -> None:
+        """A problem that is not an error: located like one, kept on ``Board.warnings``."""
+        where = InputError(message, path=self.path, key=".".join(key), line=self.lines.find(key))
+        self.warnings.append(str(where))
 
     def value(self, key: Key, raw: Any, kind: str) -> float | None:
         try:
@@ -284,6 +290,8 @@ def board_from_text(text: str, path: str = "<text>") -> Board:
             key=lambda i: (check.errors[i].line is None, check.errors[i].line or 0, i),
         )
         raise InputErrors([check.errors[i] for i in order])
+    for message in check.warnings:
+        warn_input(message)
     return board
 
 
@@ -336,6 +344,9 @@ def _build(data: dict[str, Any], check: _Checker, path: str, text: str) -> Board
     _check_dc_paths(check, topology, signal)
     bench = _bench(data, check)
     spec = _spec(data, check)
+    if not check.errors:
+        _warn_connections(check, topology, signal)
+        _warn_implausible(check, data, parts, devices, temperature)
     return Board(
         title=title,
         temperature=temperature,
@@ -349,6 +360,7 @@ def _build(data: dict[str, Any], check: _Checker, path: str, text: str) -> Board
         spec=spec,
         source_path=path,
         source_text=text,
+        warnings=tuple(check.warnings),
     )
 
 
@@ -715,7 +727,7 @@ def _check_dc_paths(check: _Checker, topology: list, signal: Signal) -> None:
         members = [(t, r) for t, r, n in dc_parts if root(n[0]) == group_root]
         hint = ""
         if any(n.lower() in ("ground", "gnd", "0v") for n in nodes):
-            hint = "; the reference node is spelled 'gnd' or '0'"
+            hint = _GND_HINT
         plural = len(nodes) > 1
         check.error(
             members[0],
@@ -724,6 +736,111 @@ def _check_dc_paths(check: _Checker, topology: list, signal: Signal) -> None:
             f"{', '.join(r for _, r in members)} {'they reach' if plural else 'it reaches'} "
             f"neither (capacitors do not conduct at DC){hint}",
         )
+
+
+# ------------------------------------------------------------------------- warnings
+_GND_HINT = "; the reference node is spelled 'gnd'"
+_GROUND_LOOKALIKES = ("ground", "gnd", "grnd", "gound", "groud", "0v", "earth", "agnd", "gnd0")
+_TERMINAL = {"c": "the collector of", "b": "the base of", "e": "the emitter of"}
+
+
+def _looks_like_ground(node: str) -> bool:
+    word = node.strip().lower().replace("_", "").replace("-", "").replace(" ", "")
+    if node == GND:
+        return False
+    return word in _GROUND_LOOKALIKES or bool(
+        difflib.get_close_matches(word, ["ground"], n=1, cutoff=0.8))
+
+
+def _warn_connections(check: _Checker, topology: list, signal: Signal) -> None:
+    """A node that only one part touches (a mistyped node name, a part to nowhere, a
+    floating collector), and a node whose name looks like a misspelled gnd."""
+    touches: dict[str, list[tuple[str, str, str]]] = {}  # node -> (table, ref, terminal)
+    for table, ref, nodes in topology:
+        if table == "supplies":
+            ends = [("node", nodes[0])]
+        elif table == "transistors":
+            ends = list(zip("cbe", nodes, strict=True))
+        else:
+            ends = [("nodes", node) for node in nodes]
+        for terminal, node in ends:
+            if node != GND:
+                touches.setdefault(node, []).append((table, ref, terminal))
+    probed = {signal.input, signal.output}  # the generator and the load connect there
+    for node, found in touches.items():
+        table, ref, terminal = found[0]
+        if _looks_like_ground(node):
+            check.warn(
+                (table, ref, terminal),
+                f"node {node!r} looks like ground, but as written it is an ordinary node"
+                f"{_GND_HINT}")
+        if len({r for _, r, _ in found}) == 1 and node not in probed:
+            what = ", ".join(
+                f"{_TERMINAL[t]} {r}" if tb == "transistors"
+                else (f"supply {r}" if tb == "supplies" else f"one end of {r}")
+                for tb, r, t in found)
+            check.warn(
+                (table, ref, terminal),
+                f"node {node!r} connects only to {what}: a mistyped node name, or a part "
+                "left unconnected?")
+
+
+# (low, high) of what a discrete small-signal board uses, in SI units (common practice)
+_PLAUSIBLE = {
+    "ohms": (0.1, 100e6),
+    "farads": (1e-12, 0.1),
+    "volts": (0.1, 100.0),
+    "temperature": (200.0, 450.0),
+    "IS": (1e-18, 1e-9),
+    "beta": (5.0, 2000.0),
+}
+
+
+def _warn_implausible(
+    check: _Checker, data: dict[str, Any], parts: dict[str, dict[str, Any]],
+    devices: dict[str, Device], temperature: float,
+) -> None:
+    """Values that parse but lie far outside what a discrete board uses."""
+
+    def warn(key: Key, raw: Any, value: float, kind: str, noun: str, unit: str) -> None:
+        low, high = _PLAUSIBLE[kind]
+        if low <= abs(value) <= high:
+            return
+        hint = ""
+        text = str(raw).strip()
+        if kind == "ohms" and abs(value) < low and text.endswith("m"):
+            hint = f"; 'm' is milli: for megohms write {text[:-1] + 'M'!r}"
+        elif kind == "temperature" and value < low and text.upper().endswith("K"):
+            hint = f"; for Celsius write {text[:-1].strip() + ' C'!r}"
+        check.warn(key, f"{noun} {text!r} ({value:g} {unit}) is far outside what a "
+                        f"discrete board uses ({low:g} to {high:g} {unit}){hint}")
+
+    def raw_of(*key: str) -> Any:
+        node: Any = data
+        for part in key:
+            node = node[part]
+        return node
+
+    for ref, r in parts["resistors"].items():
+        key = ("resistors", ref, "ohms")
+        warn(key, raw_of(*key), r.ohms, "ohms", f"resistance of {ref}", "ohm")
+    for ref, c in parts["capacitors"].items():
+        key = ("capacitors", ref, "farads")
+        warn(key, raw_of(*key), c.farads, "farads", f"capacitance of {ref}", "F")
+    for ref, v in parts["supplies"].items():
+        key = ("supplies", ref, "volts")
+        warn(key, raw_of(*key), v.volts, "volts", f"supply {ref}", "V")
+    conditions = data.get("conditions")
+    if isinstance(conditions, dict) and "temperature" in conditions:
+        key = ("conditions", "temperature")
+        warn(key, conditions["temperature"], temperature, "temperature", "temperature", "K")
+    for name, device in devices.items():
+        for param, unit in (("IS", "A"), ("beta", "")):
+            raw = raw_of("devices", name, param)
+            if isinstance(raw, dict):
+                raw = raw.get("value", raw)
+            warn(("devices", name, param), raw, getattr(device, param).value, param,
+                 f"{param} of device {name}", unit)
 
 
 def _bench(data: dict[str, Any], check: _Checker) -> Bench:

@@ -6,7 +6,9 @@ from rich.console import Console
 from rich.table import Table
 
 from reconcile.trim.rework import Change, TrimOption, TrimResult
+from reconcile.model.quantities import REGISTRY
 from reconcile.present.console import make_console
+from reconcile.present.escape import markup
 from reconcile.present import numbers
 
 STYLE_OK = "green"
@@ -16,7 +18,13 @@ STYLE_DIM = "dim"
 
 
 def _unit(quantity: str) -> str:
-    return "Ω" if quantity.endswith("resistance") else ""
+    q = REGISTRY.get(quantity)
+    return "" if q is None else numbers.symbol(q.unit)
+
+
+def _short(quantity: str) -> str:
+    q = REGISTRY.get(quantity)
+    return quantity.replace("_", " ") if q is None else q.short
 
 
 def _value(quantity: str, x: float | None) -> str:
@@ -25,13 +33,17 @@ def _value(quantity: str, x: float | None) -> str:
     return numbers.si(x, _unit(quantity), 4)
 
 
-def describe_change(change: Change) -> str:
-    """``replace RC with 931 Ω (E96)`` or ``RC ∥ 12.4 kΩ (E96) → 940 Ω``."""
+def describe_change(change: Change, *, compact: bool = False) -> str:
+    """``replace RC with 931 Ω (E96)`` or ``RC ∥ 12.4 kΩ (E96) → 940 Ω``; compact (the
+    series said once below the table): ``RC := 931 Ω``, ``RC ∥ 12.4 kΩ → 940 Ω``."""
     new = numbers.si(change.ohms, "Ω", 3)
+    ref = markup(change.ref)
     if change.action == "replace":
-        return f"replace {change.ref} with {new} ({change.series})"
-    combined = numbers.si(change.combined_ohms, "Ω", 4)
-    return f"{change.ref} ∥ {new} ({change.series}) → {combined}"
+        return f"{ref} := {new}" if compact else f"replace {ref} with {new} ({change.series})"
+    combined = numbers.si(change.combined_ohms, "Ω", 3 if compact else 4)
+    if compact:
+        return f"{ref} ∥ {new} → {combined}"
+    return f"{ref} ∥ {new} ({change.series}) → {combined}"
 
 
 def _yield_text(option: TrimOption) -> str:
@@ -41,8 +53,10 @@ def _yield_text(option: TrimOption) -> str:
     return f"[{style}]{100 * option.yield_:.1f}%[/]"
 
 
-def trim_table(result: TrimResult) -> Table:
-    """One row for the board as it is, then one per option, best first."""
+def trim_table(result: TrimResult, *, wide: bool = False) -> Table:
+    """One row for the board as it is, then one per option, best first. Compact (the
+    default, 80 columns): short quantity labels with the spec bands in the caption, the
+    margin alone, changes written short; ``wide``: the full table."""
     quantities = list(result.baseline.predicted)
     mode = "fitted board" if result.mode == "fitted" else "board as drawn (design mode)"
     table = Table(
@@ -50,44 +64,56 @@ def trim_table(result: TrimResult) -> Table:
         f"{result.evaluated} boards solved",
         title_justify="left",
     )
-    table.add_column("#", justify="right")
-    table.add_column("changes")
+    table.add_column("#", justify="right", no_wrap=True)
+    table.add_column("changes", overflow="fold")
     for q in quantities:
-        head = q.replace("_", " ")
-        if q in result.spec:
+        head = q.replace("_", " ") if wide else _short(q)
+        if wide and q in result.spec:
             s = result.spec[q]
             head += f"\n{_value(q, s['low'])} … {_value(q, s['high'])}"
-        table.add_column(head, justify="right")
-    table.add_column("margin\n(worst case)", justify="right")
-    table.add_column("meets", justify="center")
-    table.add_column("yield", justify="right")
-    table.add_column("cost", justify="right")
+        table.add_column(head, justify="right", no_wrap=not wide)
+    table.add_column("margin\n(worst case)" if wide else "margin", justify="right",
+                     no_wrap=not wide)
+    table.add_column("meets" if wide else "ok", justify="center", no_wrap=not wide)
+    table.add_column("yield", justify="right", no_wrap=not wide)
+    table.add_column("cost", justify="right", no_wrap=not wide)
 
     def row(label: str, option: TrimOption, changes: str) -> None:
         meets = f"[{STYLE_OK}]yes[/]" if option.meets_spec else f"[{STYLE_BAD}]no[/]"
         cells = [_value(q, option.predicted.get(q)) for q in quantities]
-        margin = f"{100 * option.margin:+.1f}% ({100 * option.worst_case_margin:+.1f}%)"
+        margin = f"{100 * option.margin:+.1f}%"
+        if wide:
+            margin += f" ({100 * option.worst_case_margin:+.1f}%)"
         table.add_row(
             label, changes, *cells, margin, meets, _yield_text(option), f"{option.cost:g}"
         )
 
     row("", result.baseline, f"[{STYLE_DIM}]as it is[/]")
     for i, option in enumerate(result.options, start=1):
-        changes = "\n".join(describe_change(c) for c in option.changes)
+        changes = "\n".join(describe_change(c, compact=not wide) for c in option.changes)
         if option.problems:
-            changes += "\n" + "\n".join(f"[{STYLE_WARN}]{p}[/]" for p in option.problems)
+            changes += "\n" + "\n".join(f"[{STYLE_WARN}]{markup(p)}[/]" for p in option.problems)
         row(str(i), option, changes)
+    if not wide:
+        bands = "; ".join(
+            f"{_short(q)} {_value(q, result.spec[q]['low'])} … {_value(q, result.spec[q]['high'])}"
+            for q in quantities if q in result.spec)
+        series = sorted({c.series for o in result.options for c in o.changes})
+        table.caption = (f"spec: {bands}" if bands else "") + (
+            f"; new parts from {', '.join(series)}" if series else "") + "; --wide: full table"
     return table
 
 
-def print_trim(result: TrimResult, console: Console | None = None) -> None:
+def print_trim(result: TrimResult, console: Console | None = None, *,
+               wide: bool = False) -> None:
     """Print the options table and a one-line verdict."""
     console = console or make_console()
-    console.print(trim_table(result))
+    console.print(trim_table(result, wide=wide))
     costs = ", ".join(f"{k} {v:g}" for k, v in sorted(result.costs.items()))
     console.print(
         f"[{STYLE_DIM}]margin: distance to the nearer spec limit over the target at the predicted "
-        f"board (in brackets {result.k_sigma:g} predicted σ further in); yield: Monte Carlo over "
+        f"board (worst case, {result.k_sigma:g} predicted σ further in: "
+        f"{'in brackets' if wide else 'with --wide'}); yield: Monte Carlo over "
         f"{result.samples} draws; rework cost per part: {costs}[/]"
     )
     if not result.needed:

@@ -17,7 +17,7 @@ from reconcile.present import numbers
 if TYPE_CHECKING:  # pragma: no cover
     from rich.console import Console
 
-__all__ = ["brief", "show"]
+__all__ = ["brief", "print_trim_outcome", "show"]
 
 
 def _quantities(values: dict[str, float] | None, limit: int = 2) -> str:
@@ -139,12 +139,13 @@ def _print_fit(obj, console: Console | None) -> None:
     print_fit(obj, error_budget(obj), suggest_next(obj), console)
 
 
-def _print_trim_outcome(obj, console: Console | None) -> None:
+def print_trim_outcome(obj, console: Console | None = None, *, wide: bool = False) -> None:
+    """What ``reconcile trim`` prints (``wide``: its ``--wide`` table)."""
     from reconcile.present.console import make_console
     from reconcile.present.escape import markup
     from reconcile.present.render_trim import print_trim
 
-    print_trim(obj.result, console)
+    print_trim(obj.result, console, wide=wide)
     if obj.warning is not None:
         (console or make_console()).print(f"warning: {markup(obj.warning)}")
 
@@ -155,7 +156,7 @@ def _print_analysis(obj, console: Console | None) -> None:
     _print_fit_outcome(obj.fit, console)
     print_diagnosis(obj.diagnosis, console)
     if obj.trim is not None:
-        _print_trim_outcome(obj.trim, console)
+        print_trim_outcome(obj.trim, console)
 
 
 def _print_with(module: str, name: str):
@@ -187,7 +188,7 @@ def _views() -> dict[type, tuple[Any, Any]]:
         Diagnosis: (_brief_diagnosis, _print_with(here + "render_diagnosis", "print_diagnosis")),
         Hypothesis: (lambda h: f"Hypothesis({_brief_hypothesis(h)})", None),
         TrimResult: (_brief_trim, _print_with(here + "render_trim", "print_trim")),
-        TrimOutcome: (_brief_trim_outcome, _print_trim_outcome),
+        TrimOutcome: (_brief_trim_outcome, print_trim_outcome),
         LotResult: (_brief_lot, _print_with(here + "render_lot", "print_lot")),
         Analysis: (_brief_analysis, _print_analysis),
     }
