@@ -186,3 +186,9 @@ def test_series_resistor_zero_is_refused_by_capture_and_derive(tmp_path):
              str(BOARD), "--series-resistor", "0", names="--series-resistor")
     _refused("derive", "input-resistance", "--v1", "1", "--v2", "0.5", "--series-resistor",
              "0", names="--series-resistor")
+
+
+def test_a_tolerance_of_the_wrong_toml_type_is_refused(tmp_path):
+    # found by the fuzz suite: `tolerance = []` reached float() and raised TypeError
+    path = _board_with(tmp_path, r'tolerance = "1%"', "tolerance = []")
+    assert "as a tolerance" in _refused("solve", str(path), names=str(path))

@@ -235,7 +235,7 @@ def _parse_temperature(text: str | int | float) -> float:
 
 
 def _parse_tolerance(text: str | int | float) -> float:
-    if isinstance(text, bool):
+    if isinstance(text, bool) or not isinstance(text, str | int | float):
         raise InputError(f"cannot read {text!r} as a tolerance; write e.g. 5% or 0.05")
     if not isinstance(text, str):
         return _round12(float(text))
