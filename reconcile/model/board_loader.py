@@ -122,7 +122,7 @@ BOARD_LIMITS: dict[str, tuple[float, float]] = {
     "hertz": (1e-6, 1e12),
     "seconds": (1e-12, 1e6),
     "temperature": (1.0, 2000.0),
-    "plain": (1e-12, 1e12),
+    "plain": (1e-30, 1e60),  # wide: a many-stage cascade's gain spec is a plain number
 }
 
 
