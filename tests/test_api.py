@@ -138,6 +138,13 @@ def test_report_prints_what_the_cli_prints_self_consistency(analysis):
     assert _printed(analysis.trim) == _cli("trim", board_file, readings_file, "--samples", "500")
 
 
+def test_whole_analysis_report_prints_fit_diagnosis_and_trim_once_self_consistency(analysis):
+    # Self-consistency: Analysis.report() is the three results' own reports in order.
+    whole = _printed(analysis)
+    parts = [_printed(analysis.fit), _printed(analysis.diagnosis), _printed(analysis.trim)]
+    assert whole == "".join(parts)
+
+
 # ------------------------------------------------------------ a read-only board
 def test_board_is_read_only_all_the_way_down():
     import dataclasses

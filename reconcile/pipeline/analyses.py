@@ -211,11 +211,6 @@ class Analysis:
 
         show(self, console)
 
-        self.fit.report(console)
-        print_diagnosis(self.diagnosis, console)
-        if self.trim is not None:
-            self.trim.report(console)
-
 
 def analyse(
     inputs: AnalysisInputs,
