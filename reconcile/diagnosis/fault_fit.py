@@ -553,7 +553,7 @@ def fit_faults(
             group, x0, max_iterations, reference_chi2, start_owner
         )
         owner = np.arange(len(start_owner))
-        pred, _ = group.evaluate(x, owner, small_signal=True)
+        pred, sol_all = group.evaluate(x, owner, small_signal=True)
         finite = np.all(np.isfinite(pred), axis=1)
         cost = group.cost(x, pred, owner)
         # Of a hypothesis's starts keep the best usable end point.
@@ -563,13 +563,18 @@ def fit_faults(
             rows = np.nonzero(start_owner == m)[0]
             pick = usable[rows] if np.isfinite(usable[rows]).any() else cost[rows]
             picked.append(int(rows[int(np.argmin(pick))]))
-        picked_rows = np.array(picked, dtype=np.intp)
-        sols = {}  # the engine solution of each picked row, solved again in budget chunks
-        for sl in chunks(len(picked_rows), group.model.rows_per_call()):
-            sub = picked_rows[sl]
-            _, sol = group.evaluate(x[sub], sub, small_signal=True)
-            for j, k in enumerate(sub):
-                sols[int(k)] = (sol, j)
+        # The engine solution of each picked row: from the call above when it fitted in
+        # one, else the picked rows solved again in budget chunks.
+        if sol_all is not None:
+            sols = {k: (sol_all, k) for k in picked}
+        else:
+            sols = {}
+            picked_rows = np.array(picked, dtype=np.intp)
+            for sl in chunks(len(picked_rows), group.model.rows_per_call()):
+                sub = picked_rows[sl]
+                _, sol = group.evaluate(x[sub], sub, small_signal=True)
+                for j, k in enumerate(sub):
+                    sols[int(k)] = (sol, j)
         for m, i in enumerate(members):
             k = picked[m]
             if not finite[k]:

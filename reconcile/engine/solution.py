@@ -287,5 +287,7 @@ def solve(board: Board, *, temperature: float | None = None) -> BoardSolution:
     if board.spec.high_corner_min is not None and not math.isfinite(sol.corners.high_corner[0]):
         note = ("high_corner: the model has no upper -3 dB corner (no transistor gives ft "
                 "or c_mu, and no probe capacitance), so the high_corner check tells nothing")
+        corners = sol.corners
         sol = replace(sol, warnings=(*sol.warnings, note))
+        sol.__dict__["corners"] = corners  # the cached_property's value, not solved again
     return sol
