@@ -9,6 +9,8 @@ user would, without starting a process.
 from __future__ import annotations
 
 import importlib
+import os
+import subprocess
 import sys
 import traceback
 from dataclasses import dataclass
@@ -56,3 +58,12 @@ def run_cli(*args: str, input: str | None = None) -> Outcome:
         stdout = out.getvalue().decode("utf-8", "replace")
         stderr = err.getvalue().decode("utf-8", "replace")
     return Outcome(code, stdout, stderr, crash)
+
+
+def run_process(*args: str, cwd, env: dict | None = None, preexec_fn=None,
+                timeout: float = 900) -> subprocess.CompletedProcess:
+    """Run ``reconcile ARGS`` as a new process, as a user does (``env`` adds to the
+    environment; ``preexec_fn`` e.g. sets resource limits)."""
+    return subprocess.run([sys.executable, "-m", "reconcile", *args], capture_output=True,
+                          text=True, cwd=cwd, env={**os.environ, **(env or {})},
+                          preexec_fn=preexec_fn, timeout=timeout)

@@ -9,12 +9,12 @@ from __future__ import annotations
 
 import resource
 import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
 from benchmarks.bench_engine import stages_board_toml
+from cli_support import run_process
 
 from reconcile.data.readings import load_readings, readings_to_csv
 from reconcile.diagnosis.diagnose import WORK_LIMIT, diagnose
@@ -77,8 +77,7 @@ def _limited(*args: str, cwd: Path) -> subprocess.CompletedProcess:
     def limit() -> None:
         resource.setrlimit(resource.RLIMIT_AS, (GIB, GIB))
 
-    return subprocess.run([sys.executable, "-m", "reconcile", *args], capture_output=True,
-                          text=True, cwd=cwd, timeout=900, preexec_fn=limit)
+    return run_process(*args, cwd=cwd, preexec_fn=limit)
 
 
 def test_a_30_transistor_diagnosis_is_refused_up_front_under_1_gib(big_board, tmp_path):
@@ -126,13 +125,9 @@ def test_bad_memory_sizes_are_refused(text: str) -> None:
 
 
 def test_a_bad_memory_environment_is_one_line_exit_2(tmp_path) -> None:
-    import os
-
-    env = {**os.environ, "RECONCILE_MEMORY": "lots"}
-    run = subprocess.run([sys.executable, "-m", "reconcile", "fit",
-                          str(SAMPLES / "line_receiver_cb.toml"),
-                          str(SAMPLES / "line_receiver_built.csv"), "--json"],
-                         capture_output=True, text=True, cwd=tmp_path, env=env, timeout=120)
+    run = run_process("fit", str(SAMPLES / "line_receiver_cb.toml"),
+                      str(SAMPLES / "line_receiver_built.csv"), "--json", cwd=tmp_path,
+                      env={"RECONCILE_MEMORY": "lots"}, timeout=120)
     assert run.returncode == 2
     assert run.stderr.strip().splitlines() == [
         "reconcile: [RECONCILE_MEMORY] 'lots' is not a memory size: write e.g. 256M or 1G"]
@@ -140,9 +135,7 @@ def test_a_bad_memory_environment_is_one_line_exit_2(tmp_path) -> None:
 
 def test_human_diagnose_output_runs(tmp_path) -> None:
     # regression: the pair-search progress bar once raised NameError on every human run
-    run = subprocess.run([sys.executable, "-m", "reconcile", "diagnose",
-                          str(SAMPLES / "line_receiver_cb.toml"),
-                          str(SAMPLES / "line_receiver_built.csv")],
-                         capture_output=True, text=True, cwd=tmp_path, timeout=300)
+    run = run_process("diagnose", str(SAMPLES / "line_receiver_cb.toml"),
+                      str(SAMPLES / "line_receiver_built.csv"), cwd=tmp_path, timeout=300)
     assert run.returncode == 0, run.stderr
     assert "most likely" in run.stdout

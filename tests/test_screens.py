@@ -4,12 +4,11 @@ diagnose table keeps one line per hypothesis there (its details go below the tab
 
 from __future__ import annotations
 
-import os
 import subprocess
-import sys
 from pathlib import Path
 
 import pytest
+from cli_support import run_process
 
 ROOT = Path(__file__).resolve().parents[1]
 S = ROOT / "sample_data"
@@ -30,9 +29,7 @@ COMMANDS = {
 
 
 def _run(args: list[str], cwd: Path, columns: int = 80) -> subprocess.CompletedProcess:
-    env = {**os.environ, "COLUMNS": str(columns)}
-    return subprocess.run([sys.executable, "-m", "reconcile", *args], capture_output=True,
-                          text=True, cwd=cwd, env=env, timeout=300)
+    return run_process(*args, cwd=cwd, env={"COLUMNS": str(columns)}, timeout=300)
 
 
 @pytest.mark.slow

@@ -9,12 +9,11 @@ from __future__ import annotations
 
 import json
 import math
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_support import run_cli
 from test_sweep_reference import _rc_board
 from typer.testing import CliRunner
 
@@ -23,12 +22,6 @@ from reconcile.engine.solution import check_corners, solve
 from reconcile.model.board_loader import board_from_text, load_board
 
 RUNNER = CliRunner()
-
-
-def _process(*args: str, cwd) -> subprocess.CompletedProcess:
-    """The command as the user runs it, with the project's error handler."""
-    return subprocess.run([sys.executable, "-m", "reconcile", *args], capture_output=True,
-                          text=True, cwd=cwd, timeout=120)
 
 
 def _write(tmp_path, text: str):
@@ -122,19 +115,20 @@ def test_sweep_plot_is_written(tmp_path) -> None:
 ])
 def test_bad_sweep_options_are_one_line_exit_2(tmp_path, args, needle) -> None:
     board = _write(tmp_path, _rc_board("high-pass", "10k", "100n"))
-    run = _process("solve", str(board), *args, cwd=tmp_path)
-    assert run.returncode == 2, run.stderr
-    lines = run.stderr.strip().splitlines()
+    run = run_cli("solve", str(board), *args)
+    assert run.exit_code == 2, run.stderr
+    assert run.crash is None
+    lines = run.message_lines
     assert len(lines) == 1 and needle in lines[0]
     assert run.stdout == ""
 
 
 def test_sweep_of_a_board_without_signal_names_the_file(tmp_path) -> None:
     board = Path(__file__).resolve().parents[1] / "sample_data" / "lot_jig.toml"  # no [signal]
-    run = _process("solve", str(board), "--sweep", "1:1k", cwd=tmp_path)
-    assert run.returncode == 2
+    run = run_cli("solve", str(board), "--sweep", "1:1k")
+    assert run.exit_code == 2 and run.crash is None
     assert "lot_jig.toml" in run.stderr and "[signal]" in run.stderr
-    assert len(run.stderr.strip().splitlines()) == 1
+    assert len(run.message_lines) == 1
 
 
 def test_sweep_command_matches_the_library_sweep_self_consistency(tmp_path) -> None:

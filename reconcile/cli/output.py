@@ -38,7 +38,8 @@ def check_plot_path(path) -> None:
     p = Path(path)
     if p.suffix.lower() not in PLOT_SUFFIXES:
         raise InputError(f"cannot draw a {p.suffix or 'file without an extension'!r} plot: "
-                         f"name it .png, .svg or .pdf (also {', '.join(PLOT_SUFFIXES[3:])})",
+                         f"name it .png, .svg or .pdf (also "
+                         f"{', '.join(x for x in PLOT_SUFFIXES if x not in _NAMED)})",
                          path=str(p), key="--plot")
     if not p.parent.is_dir():
         raise InputError("the folder for the plot does not exist", path=str(p), key="--plot")

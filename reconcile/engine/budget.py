@@ -2,9 +2,9 @@
 
 A batched call (the engine, a Monte Carlo, a batch of hypothesis fits) states how many
 bytes one row of its work needs; :func:`rows_per_chunk` turns the budget into a chunk
-size and :func:`chunks` walks the rows in slices of that size. The budget is process-wide
-and set once by the CLI (``--memory``); library users can set it with :func:`set_budget`
-or for a block with :func:`budget`.
+size and :func:`chunks` walks the rows in slices of that size. The budget is process-wide,
+read once from ``RECONCILE_MEMORY`` on first use; library users can set it with
+:func:`set_budget` or for a block with :func:`budget`.
 
 The default, 512 MiB, leaves room on a small machine for the interpreter and the
 libraries (about 150–250 MiB) beside one batch. The environment variable
@@ -44,7 +44,10 @@ def parse_budget(text: str, *, key: str = ENVIRONMENT) -> int:
     m = re.fullmatch(r"\s*([0-9]+(?:\.[0-9]+)?)\s*([KMG]?)(?:i?B)?\s*", str(text), re.I)
     if not m:
         raise InputError(f"{text!r} is not a memory size: write e.g. 256M or 1G", key=key)
-    nbytes = int(float(m.group(1)) * _UNITS[m.group(2).upper()])
+    return _at_least_minimum(int(float(m.group(1)) * _UNITS[m.group(2).upper()]), key)
+
+
+def _at_least_minimum(nbytes: int, key: str) -> int:
     if nbytes < MIN_BUDGET_BYTES:
         raise InputError(f"a memory budget of {nbytes / MIB:.3g} MiB is too small: give at "
                          f"least {MIN_BUDGET_BYTES // MIB} MiB", key=key)
@@ -61,12 +64,7 @@ def budget_bytes() -> int:
 
 def set_budget(nbytes: int) -> None:
     """Set the process-wide budget (bytes); refuses values under :data:`MIN_BUDGET_BYTES`."""
-    nbytes = int(nbytes)
-    if nbytes < MIN_BUDGET_BYTES:
-        raise InputError(
-            f"a memory budget of {nbytes / MIB:.3g} MiB is too small: give at least "
-            f"{MIN_BUDGET_BYTES // MIB} MiB", key="--memory")
-    _budget["bytes"] = nbytes
+    _budget["bytes"] = _at_least_minimum(int(nbytes), "--memory")
 
 
 @contextlib.contextmanager

@@ -21,8 +21,7 @@ OFF_TOLERANCE_SHOWN = 3
 
 
 def _unit(quantity: str) -> str:
-    q = REGISTRY.get(quantity)
-    return "" if q is None else numbers.symbol(q.unit)
+    return numbers.quantity_symbol(quantity)
 
 
 def _value(x: float | None, unit: str) -> str:

@@ -112,7 +112,7 @@ def _spec_table(sol: BoardSolution) -> Table:
     for col in ("quantity", "target", "allowed", "value", "margin", "result"):
         sp.add_column(col, justify="left" if col in ("quantity", "result") else "right")
     for c in sol.spec_checks:
-        unit = REGISTRY[c.quantity].unit if c.quantity in REGISTRY else ""
+        unit = numbers.quantity_symbol(c.quantity)
         sp.add_row(
             markup(c.quantity),
             _si(c.target, unit),

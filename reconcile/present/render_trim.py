@@ -18,8 +18,7 @@ STYLE_DIM = "dim"
 
 
 def _unit(quantity: str) -> str:
-    q = REGISTRY.get(quantity)
-    return "" if q is None else numbers.symbol(q.unit)
+    return numbers.quantity_symbol(quantity)
 
 
 def _short(quantity: str) -> str:
