@@ -12,7 +12,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from reconcile.present.escape import html_text, markup, plot_text
+from reconcile.present.escape import html_text, markup, one_line, plot_text
 
 # Text a hostile user might type: markup-like brackets, dollars, backslashes, tags.
 _NASTY = [
@@ -122,3 +122,22 @@ def test_html_text_round_trips(s):
     assert p.tags == ["p"]
     assert "".join(p.data) == s
     assert p.attrs == [("title", s)]
+
+
+# ------------------------------------------------------------------------- one_line
+@settings(max_examples=200, deadline=None)
+@given(st.text())
+def test_one_line_never_breaks_a_line_and_can_be_read_back(s):
+    # str.splitlines() (Python docs, "str.splitlines": its list of line boundaries) is
+    # the outside judge of what breaks a line; unicode_escape decoding the inverse
+    line = one_line(s)
+    assert len(line.splitlines()) <= 1
+    assert not any(ord(c) < 0x20 or 0x7F <= ord(c) <= 0x9F for c in line)
+    if "\\" not in s:  # a backslash typed by the user is left as typed
+        assert line.encode("ascii", "backslashreplace").decode("unicode_escape") == s
+
+
+def test_one_line_shows_each_breaking_character_by_its_escape():
+    assert one_line("a\rb\x00c\u2028d\x1b[31me\tf") == r"a\rb\x00c\u2028d\x1b[31me\tf"
+    assert one_line("R1 [rev/B] 4k7 é") == "R1 [rev/B] 4k7 é"
+    assert one_line(None) == ""

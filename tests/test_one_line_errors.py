@@ -192,3 +192,12 @@ def test_a_tolerance_of_the_wrong_toml_type_is_refused(tmp_path):
     # found by the fuzz suite: `tolerance = []` reached float() and raised TypeError
     path = _board_with(tmp_path, r'tolerance = "1%"', "tolerance = []")
     assert "as a tolerance" in _refused("solve", str(path), names=str(path))
+
+
+@pytest.mark.parametrize("value", ["\r", "plot\r.xyz", "a\u2028b", "\x1b[2J.txt"])
+def test_a_control_character_in_an_echoed_option_stays_on_its_line(value, tmp_path):
+    # found by the option fuzzer: `--plot "\r"` echoed a bare carriage return
+    err = _refused("solve", str(BOARD), "--sweep", "10:1e5", "--plot", str(tmp_path / value),
+                   names="--plot")
+    assert "\x1b" not in err and "\r" not in err and "\u2028" not in err
+    assert str(tmp_path / value).encode("unicode_escape").decode("ascii") in err

@@ -497,7 +497,16 @@ def _print_input_warnings(redact) -> None:
     from reconcile.errors import input_warnings
 
     for message in input_warnings():
-        sys.stderr.write(f"reconcile: warning: {redact(message)}\n")
+        _say(f"warning: {message}", redact)
+
+
+def _say(text: str, redact) -> None:
+    """One line on stderr: ``reconcile: `` and the text, with every password redacted
+    and every control character or line separator shown escaped (user values such as
+    ``--plot "\\r"`` are echoed in messages and must not break the line)."""
+    from reconcile.present.escape import one_line
+
+    sys.stderr.write(f"reconcile: {one_line(redact(text))}\n")
 
 
 def main() -> None:
@@ -526,7 +535,7 @@ def main() -> None:
             _print_input_warnings(redact)
         sys.exit(code)
     except typer.Abort:
-        sys.stderr.write("reconcile: interrupted\n")
+        _say("interrupted", redact)
         sys.exit(130)
     except _usage.NoArgsIsHelpError as err:
         err.show()  # no arguments: the help, as click shows it
@@ -534,11 +543,11 @@ def main() -> None:
     except _usage.UsageError as err:
         # a usage error is bad input like any other: one line, exit 2
         where = err.ctx.command_path if err.ctx is not None else "reconcile"
-        message = redact(" ".join(err.format_message().split()))
-        sys.stderr.write(f"reconcile: {message} (see '{where} --help')\n")
+        message = " ".join(err.format_message().split())
+        _say(f"{message} (see '{where} --help')", redact)
         sys.exit(2)
     except _usage.ClickException as err:
-        sys.stderr.write(f"reconcile: {redact(' '.join(err.format_message().split()))}\n")
+        _say(" ".join(err.format_message().split()), redact)
         sys.exit(2)
     except ReconcileError as err:
         if _state["debug"]:
@@ -550,10 +559,10 @@ def main() -> None:
         if noted and err.exit_code == 1:  # a failure a suspicious input may explain
             more = f"; and {len(noted) - 1} more" if len(noted) > 1 else ""
             line += f" (warning: {noted[0]}{more})"
-        sys.stderr.write(f"reconcile: {redact(line)}\n")
+        _say(line, redact)
         sys.exit(err.exit_code)
     except KeyboardInterrupt:
-        sys.stderr.write("reconcile: interrupted\n")
+        _say("interrupted", redact)
         sys.exit(130)
     except BrokenPipeError:
         sys.exit(1)
@@ -562,17 +571,17 @@ def main() -> None:
             raise
         from reconcile.engine.budget import MIB, budget_bytes
 
-        sys.stderr.write(
-            "reconcile: ran out of memory (the batch budget is "
-            f"{budget_bytes() / MIB:.0f} MiB; the machine or its limits allow less): give "
-            "fewer samples or a smaller board, or lower the budget with RECONCILE_MEMORY\n")
+        _say("ran out of memory (the batch budget is "
+             f"{budget_bytes() / MIB:.0f} MiB; the machine or its limits allow less): give "
+             "fewer samples or a smaller board, or lower the budget with RECONCILE_MEMORY",
+             redact)
         sys.exit(1)
     except OSError as err:
         if _state["debug"]:
             raise
         name = getattr(err, "filename", None)
-        where = redact(str(name)) + ": " if name else ""
-        sys.stderr.write(f"reconcile: {where}{redact(str(err.strerror or err))}\n")
+        where = f"{name}: " if name else ""
+        _say(f"{where}{err.strerror or err}", redact)
         sys.exit(2)
 
 

@@ -3,8 +3,9 @@
 Titles, serials, operators, notes, part and node names are the user's own text. Printed
 as rich markup, ``[/]`` raises and ``[rev/B]`` vanishes; drawn by matplotlib, a ``$``
 starts math text (and an unbalanced one raises); written into HTML, ``<`` starts a tag.
-Every place that shows user text passes it through one of these three functions, and
-nothing else escapes by hand.
+In a one-line message on stderr, a carriage return, a line separator or a terminal
+escape sequence would break the line or drive the terminal. Every place that shows user
+text passes it through one of these four functions, and nothing else escapes by hand.
 
 ``None`` becomes the empty string; anything else is shown through ``str()``.
 """
@@ -14,7 +15,7 @@ from __future__ import annotations
 import html as _html
 import re
 
-__all__ = ["html_text", "markup", "plot_text"]
+__all__ = ["html_text", "markup", "one_line", "plot_text"]
 
 
 def _text(value: object) -> str:
@@ -58,3 +59,16 @@ def plot_text(value: object) -> str:
 def html_text(value: object) -> str:
     """Text for HTML element content and quoted attribute values."""
     return _html.escape(_text(value), quote=True)
+
+
+# C0 and C1 control characters (tab, CR, LF, NUL, ESC...), DEL, and the two Unicode
+# separators that str.splitlines() and many terminals treat as line breaks.
+_LINE_BREAKING = re.compile("[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def one_line(value: object) -> str:
+    """Text for a one-line message on a terminal: every control character and line
+    separator shown as its Python escape (``\\r``, ``\\x00``, ``\\u2028``), so the
+    message stays one line and cannot move the cursor or recolour the terminal."""
+    return _LINE_BREAKING.sub(
+        lambda m: m.group().encode("unicode_escape").decode("ascii"), _text(value))
