@@ -179,6 +179,7 @@ def test_fault_free_boards_rank_none_first() -> None:
     assert sum(firsts) / len(firsts) >= 0.90
 
 
+@pytest.mark.slow  # three diagnoses
 def test_indistinguishable_pair_is_separated_by_the_suggested_reading() -> None:
     """Two emitter resistors in series, V(e2) between them not read: RE1 open and RE2
     open give the same readings, so they share the probability; the suggested reading

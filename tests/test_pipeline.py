@@ -11,12 +11,11 @@ is wrong in a way no tolerance covers) wherever a trim is made.
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
 from pathlib import Path
 
 import numpy as np
 import pytest
+from cli_support import run_cli
 
 from reconcile.data.derived_readings import series_resistor_uncertainty
 from reconcile.inference.simulate import simulate_readings
@@ -37,11 +36,9 @@ PLAN = [
 
 
 def _cli(*args: str) -> dict:
-    done = subprocess.run(
-        [sys.executable, "-m", "reconcile", *args], capture_output=True, text=True,
-        cwd=ROOT, timeout=300,
-    )
-    assert done.returncode == 0, done.stderr
+    """``reconcile ARGS --json`` through the real entry point, in this process."""
+    done = run_cli(*args)
+    assert done.exit_code == 0 and done.crash is None, done.crash or done.stderr
     return json.loads(done.stdout)
 
 
@@ -51,29 +48,14 @@ def _plain(result: dict) -> dict:
 
 
 # ----------------------------------------------------------- front ends agree
-@pytest.fixture(scope="module")
-def demo_session(tmp_path_factory):
-    """The demo's session: its store, id and the analyses the demo recorded (last of
-    each kind)."""
-    from reconcile.cli.demo import run_demo
-    from reconcile.store.repository import open_store
-
-    out = tmp_path_factory.mktemp("demo")
-    summary = run_demo(json_output=False, out_dir=out)
-    store_path, sid = summary["session"]["store"], summary["session"]["id"]
-    with open_store(store_path) as store:
-        view = store.show_session(sid)
-        recorded = {a.kind: store.analysis(a.id).result for a in view.analyses}
-    return {"store": store_path, "id": sid, "recorded": recorded, "summary": summary}
-
-
 @pytest.mark.slow
+@pytest.mark.xdist_group("demo")
 def test_demo_cli_and_report_agree_on_fit_diagnosis_trim_self_consistency(
-    demo_session, tmp_path
+    demo_run, tmp_path
 ):
     # Self-consistency: the same session through the demo, the CLI and the report.
-    sid, store = demo_session["id"], demo_session["store"]
-    demo = demo_session["recorded"]
+    sid, store = demo_run["id"], demo_run["store"]
+    demo = demo_run["recorded"]
     by_cli = {
         kind: _plain(_cli(kind, "--session", sid, "--store", store, "--json"))
         for kind in ("fit", "diagnose", "trim")
@@ -103,14 +85,15 @@ class _Verdict:
 
 
 @pytest.mark.slow
-def test_demo_trim_carries_the_untrusted_fit_warning(demo_session):
+@pytest.mark.xdist_group("demo")
+def test_demo_trim_carries_the_untrusted_fit_warning(demo_run):
     # Policy: the demo's fit is inconsistent (the hidden board has a wrong RE1), so its
     # trim must carry the warning, naming the diagnosis' leader.
-    summary = demo_session["summary"]
+    summary = demo_run["summary"]
     assert summary["fit_after_new_reading"]["verdict"] != "consistent"
     warning = summary["trim"]["warning"]
     assert "RE1 wrong-value" in warning
-    assert demo_session["recorded"]["trim"]["warning"] == warning
+    assert demo_run["recorded"]["trim"]["warning"] == warning
 
 
 # ------------------------------------------------------------------ policies
@@ -154,6 +137,7 @@ def test_the_warning_names_the_diagnosis_leader(faulty_inputs):
     assert analysis.results()["trim"]["warning"] == analysis.trim.warning
 
 
+@pytest.mark.slow  # a whole report with its plots
 def test_the_report_applies_the_untrusted_fit_rule(faulty_inputs, tmp_path):
     from reconcile.present.report import build_report, render_html
 

@@ -476,6 +476,7 @@ def test_a_killed_writer_loses_at_most_the_reading_in_flight(location, session):
         store.add_reading(session, numbered_reading(0, "after"))
 
 
+@pytest.mark.slow  # two writer processes
 def test_two_writers_lose_and_duplicate_nothing(location, session):
     count = 1000
     writers = [_start_writer(location, session, count, tag) for tag in ("p", "q")]
