@@ -297,3 +297,80 @@ def test_text_options_of_a_session_are_stored_as_typed_or_refused(tmp_path, alph
         result = run_cli("session", "new", str(BOARD), "--serial", text, "--operator", text,
                          "--notes", text, "--store", store, "--json")
         _clean(result)
+
+
+# ------------------------------------------------------------- sessions and stores
+@pytest.fixture(scope="module")
+def fuzz_store(tmp_path_factory):
+    """A store holding one session with the sample readings: (store, session id, a
+    reading id)."""
+    import json
+
+    folder = tmp_path_factory.mktemp("fuzz-store")
+    store = str(folder / "s.sqlite")
+    made = run_cli("session", "new", str(BOARD), "--store", store, "--json")
+    sid = json.loads(made.stdout)["session"]
+    added = run_cli("session", "add", sid, str(READINGS), "--store", store, "--json")
+    assert added.exit_code == 0, added
+    shown = json.loads(run_cli("session", "show", sid, "--store", store, "--json").stdout)
+    return store, sid, str(shown["readings"][0]["id"])
+
+
+_IDS = st.one_of(_OPTION_VALUES, st.sampled_from(["S-AAAAAAAA", "s-0", "1", "0", "-1",
+                                                    str(2**64), "9" * 40]))
+_ROWS = st.one_of(_TEXT, st.sampled_from([
+    "voltage,b,1.2,V,,,", "voltage,b,1.2,V,0,,", "voltage,b,1e-300,V,1e-300,,",
+    "gain,,1e308,,,,", "bogus,b,1,V,,,", 'voltage,b,"1.2,V,,,', "voltage,nowhere,1,V,,,"]))
+
+
+@st.composite
+def session_lines(draw: st.DrawFn, store: str, sid: str, rid: str) -> list[str]:
+    command = draw(st.sampled_from(["new", "add", "correct", "retract", "end", "list",
+                                    "show", "export"]))
+    session = draw(st.one_of(st.just(sid), _IDS))
+    reading = draw(st.one_of(st.just(rid), _IDS))
+    args = {
+        "new": [str(BOARD), "--serial", draw(_TEXT), "--operator", draw(_TEXT)],
+        "add": [session, str(READINGS)] + draw(st.sampled_from([[], ["--again"]])),
+        "correct": [session, reading, draw(_ROWS)],
+        "retract": [session, reading, "--note", draw(_TEXT)],
+        "end": [session],
+        "list": [],
+        "show": [session],
+        "export": [session],
+    }[command]
+    store_value = draw(st.one_of(st.just(store), st.just(store), st.sampled_from([
+        "", "sqlite://", "sqlite:////nonexistent/dir/s.db", "postgresql://u:pw@[::1/db",
+        "postgresql://h:99999/db", "host=h port=x", "mysql://h/db", "\x7f", "[/]"])))
+    return ["session", command, *args, "--store", store_value,
+            *draw(st.sampled_from([["--json"], []]))]
+
+
+@_profile(30 if _CI else 40)
+@given(data=st.data())
+def test_fuzz_session_commands_and_store_values(fuzz_store, data):
+    store, sid, rid = fuzz_store
+    args = data.draw(session_lines(store, sid, rid))
+    _clean(run_cli(*[a.replace("\x00", "") for a in args]))
+
+
+@pytest.mark.parametrize("value", ["S-AAAAAAAA", "", "[/]", "x" * 3000, str(2**64), "\r"])
+def test_a_bad_session_value_is_one_line(fuzz_store, value):
+    store, _sid, _rid = fuzz_store
+    for command in ("fit", "diagnose", "trim", "report"):
+        _clean(run_cli(command, "--session", value, "--store", store, "--json"))
+
+
+@pytest.mark.parametrize("where", ["a-file/out", "/dev/null/out", "a-file\r/out"])
+def test_demo_and_report_refuse_an_unwritable_out_in_one_line(tmp_path, where):
+    # a folder cannot be made under a file (what is made of a missing folder is a choice:
+    # both commands make the folders they need)
+    (tmp_path / "a-file").write_text("x")
+    (tmp_path / "a-file\r").write_text("x")
+    where = where if where.startswith("/") else str(tmp_path / where)
+    report = run_cli("report", str(BOARD), str(READINGS), "--out", where + ".html", "--json")
+    _clean(report)
+    assert report.exit_code == 2
+    demo = run_cli("demo", "--out", where, "--json")
+    _clean(demo)
+    assert demo.exit_code == 2

@@ -161,3 +161,30 @@ def test_a_session_report_shows_no_password(tmp_path):
         assert done.returncode == 0, done.stderr
         assert PW not in done.stdout + done.stderr
         assert PW not in page.read_text(encoding="utf-8")
+
+
+@pytest.mark.parametrize("form", list(_forms("h", 1, "d")))
+def test_a_debug_traceback_shows_no_password(form):
+    # --debug lets a traceback through; it is printed as a whole through the one
+    # redaction, chained causes included (an error planted with the password in its text)
+    location = _forms("127.0.0.1", 1, "sessions")[form]
+    script = (
+        "import sys\n"
+        "import importlib\n"
+        "app = importlib.import_module('reconcile.cli.app')\n"
+        "import reconcile.store.sessions as sessions\n"
+        "def boom(*a, **k):\n"
+        "    try:\n"
+        f"        raise ValueError({location!r})\n"
+        "    except ValueError as exc:\n"
+        f"        raise RuntimeError('planted: ' + {location!r}) from exc\n"
+        "sessions.list_sessions = boom\n"
+        "app.main()\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", script, "--debug", "session", "list", "--store", location],
+        capture_output=True, text=True, cwd=ROOT, timeout=120)
+    assert done.returncode == 1
+    assert "Traceback (most recent call last)" in done.stderr
+    assert "planted: " in done.stderr and "ValueError" in done.stderr
+    assert PW not in done.stdout + done.stderr

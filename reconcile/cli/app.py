@@ -265,6 +265,9 @@ def lot(
     early_voltage: Annotated[
         OptStr, typer.Option(help="Sweeps: VA for the Early correction.")
     ] = None,
+    wide: Annotated[bool, typer.Option(
+        "--wide", help="The full device table (a column per value and error, flags "
+                       "written out) instead of the 80-column one.")] = False,
 ) -> None:
     """Characterise a transistor lot from jig readings or sweeps: spread, outliers, pairs."""
     from reconcile.lot.characterise import run_lot
@@ -295,7 +298,7 @@ def lot(
         return
     from reconcile.present.render_lot import print_lot
 
-    print_lot(result)
+    print_lot(result, wide=wide)
     if plot is not None:
         typer.echo(f"plot written to {plot}")
 
@@ -509,6 +512,18 @@ def _say(text: str, redact) -> None:
     sys.stderr.write(f"reconcile: {one_line(redact(text))}\n")
 
 
+def _redacted_tracebacks(redact) -> None:
+    """Print any traceback that reaches the interpreter (``--debug``, or a bug) with
+    every password redacted, as a whole: exception messages, chained causes and all."""
+    import traceback
+
+    def hook(kind, error, tb) -> None:
+        text = "".join(traceback.format_exception(kind, error, tb))
+        sys.stderr.write(redact(text))
+
+    sys.excepthook = hook
+
+
 def main() -> None:
     """Console-script entry point with the project's single error handler.
 
@@ -520,6 +535,7 @@ def main() -> None:
 
     from reconcile.errors import collect_input_warnings
 
+    _redacted_tracebacks(redact)
     tolerate_narrow_encoding()
     collect_input_warnings()
     # typer >= 0.26 carries its own click (typer._click); older typer uses click itself
@@ -529,7 +545,8 @@ def main() -> None:
         from click import exceptions as _usage
     try:
         _check_arguments(sys.argv[1:])
-        code = app(standalone_mode=False)
+        # the click command itself: Typer.__call__ would put its own excepthook back
+        code = typer.main.get_command(app)(standalone_mode=False)
         code = code if isinstance(code, int) else 0
         if code == 0:  # a command that failed prints its one line only
             _print_input_warnings(redact)

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 
 from reconcile.inference.fitting import FitResult
+from reconcile.present.escape import plot_text
 
 COLOUR_MEASURED = "#1b6a8a"
 COLOUR_BAND = "#d9e8cf"
@@ -18,7 +19,7 @@ COLOUR_PRIOR = "#8a8a8a"
 def draw_readings(ax, fit: FitResult) -> None:
     """Each reading's relative difference from the fitted board, with ±u error bars."""
     readings = fit.readings
-    labels = [f"{r.quantity} {r.at}".strip() for r in readings]
+    labels = [plot_text(f"{r.quantity} {r.at}".strip()) for r in readings]
     y = np.arange(len(readings))
     rel = [
         (r.measured - r.predicted) / abs(r.predicted) * 100 if r.predicted else 0.0
@@ -37,7 +38,7 @@ def draw_readings(ax, fit: FitResult) -> None:
 def draw_parameters(ax, fit: FitResult) -> None:
     """Each parameter's fitted value (±2σ) relative to nominal, over its tolerance band."""
     params = list(fit.parameters.values())
-    keys = [p.key for p in params]
+    keys = [plot_text(p.key) for p in params]
     y = np.arange(len(params))
     for i, p in enumerate(params):
         if p.tolerance_low is not None and p.tolerance_high is not None and p.nominal:

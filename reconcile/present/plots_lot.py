@@ -7,6 +7,7 @@ from pathlib import Path
 import numpy as np
 
 from reconcile.lot.characterise import LotResult
+from reconcile.present.escape import plot_text
 
 COLOUR_BAR = "#1b6a8a"
 COLOUR_OUT = "#c4512b"
@@ -87,7 +88,7 @@ def _sweep_panel(ax, result: LotResult) -> None:
         grid = np.linspace(v.min(), v.max(), 50)
         ax.plot(grid, ex.intercept[i] + ex.slope[i] * grid, "-", lw=0.8, color=colour, alpha=0.6)
         if flagged[i]:
-            ax.annotate(sw.devices[i], (v[-1], y[-1]), fontsize=7, color=colour)
+            ax.annotate(plot_text(sw.devices[i]), (v[-1], y[-1]), fontsize=7, color=colour)
     ax.set_xlabel("VBE  [V]")
     ax.set_ylabel("ln(IC / A)  (Early factor removed)")
     shown = len(order)

@@ -9,6 +9,7 @@ import io
 import numpy as np
 
 from reconcile.data.readings import Reading
+from reconcile.present.escape import plot_text
 
 COLOUR_DESIGN = "#8a8a8a"
 COLOUR_FITTED = "#c4512b"
@@ -70,7 +71,7 @@ def operating_point_png(
             label="measured ±2u",
             capsize=3,
         )
-    ax.set_xticks(x, names)
+    ax.set_xticks(x, [plot_text(n) for n in names])
     ax.set_ylabel("DC voltage to gnd [V]")
     ax.set_title("Operating point: node voltages")
     ax.legend(fontsize=8)
@@ -132,7 +133,7 @@ def hypotheses_png(hypotheses: list[dict], top: int = 8) -> bytes:
     from matplotlib.figure import Figure
 
     shown = hypotheses[:top]
-    labels = [f"{h['ref'] or '-'} {h['fault']}" for h in shown]
+    labels = [plot_text(f"{h['ref'] or '-'} {h['fault']}") for h in shown]
     probs = [100.0 * (h["probability"] or 0.0) for h in shown]
     fig = Figure(figsize=(8, 1.0 + 0.45 * len(shown)))
     ax = fig.subplots()

@@ -8,6 +8,7 @@ import numpy as np
 
 from reconcile.errors import ReconcileError
 from reconcile.trim.rework import TrimResult
+from reconcile.present.escape import plot_text
 from reconcile.model.quantities import REGISTRY
 from reconcile.present import numbers
 
@@ -38,10 +39,10 @@ def plot_trim(result: TrimResult, path: str | Path, *, bins: int = 60) -> Path:
     shown = [q for q in QUANTITIES if q[0] in result.baseline.draws]
     fig = Figure(figsize=(5.5 * len(shown), 4.2))
     axes = fig.subplots(1, len(shown), squeeze=False)
-    label_after = "after: " + "; ".join(
+    label_after = "after: " + plot_text("; ".join(
         f"{c.ref} {'→' if c.action == 'replace' else '∥'} {numbers.si(c.ohms, 'Ω', 3)}"
         for c in best.changes
-    )
+    ))
     for ax, (name, label, unit) in zip(axes[0], shown, strict=True):
         before = result.baseline.draws[name]
         after = best.draws[name]

@@ -8,6 +8,7 @@ from rich.table import Table
 from reconcile.inference.fitting import FitResult
 from reconcile.analysis.error_budget import GROUPS, ErrorBudget
 from reconcile.analysis.next_reading import Suggestion
+from reconcile.present.escape import markup
 from reconcile.present.console import make_console
 from reconcile.present import numbers
 
@@ -48,7 +49,7 @@ def parameters_table(fit: FitResult) -> Table:
             status = f"[{BAD}]OUT[/]"
         src = "readings" if e.informed_by == "readings" else f"[{DIM}]prior[/]"
         t.add_row(
-            key.replace("temperature", "T junction"),
+            markup(key.replace("temperature", "T junction")),
             _fmt(e.nominal, e.unit),
             _fmt_u(e.value, e.stderr, e.unit),
             band,
@@ -64,7 +65,7 @@ def readings_table(fit: FitResult) -> Table:
         t.add_column(col, justify="left" if col == "reading" else "right")
     for r in fit.readings:
         unit = numbers.quantity_symbol(r.quantity)
-        label = f"{r.quantity} {r.at}".strip()
+        label = markup(f"{r.quantity} {r.at}".strip())
         z = f"{r.normalized_residual:+.2f}"
         if r.suspect:
             z = f"[{BAD}]{z} suspect[/]"
@@ -134,7 +135,7 @@ def next_table(suggestions: list[Suggestion]) -> Table:
             f"{k}: ±{numbers.si(s.after[k], _unit_of(k), 2)} ({numbers.si(s.before[k], _unit_of(k), 2)})"
             for k in list(s.after)[:3]
         )
-        t.add_row(str(i), s.label, f"{100 * s.score:.1f}%", detail)
+        t.add_row(str(i), markup(s.label), f"{100 * s.score:.1f}%", markup(detail))
     return t
 
 
@@ -149,7 +150,7 @@ def print_fit(
     console.print(readings_table(fit))
     console.print(verdict_line(fit))
     if fit.suspects:
-        names = ", ".join(f"{r.quantity} {r.at}".strip() for r in fit.suspects)
+        names = markup(", ".join(f"{r.quantity} {r.at}".strip() for r in fit.suspects))
         console.print(f"[{BAD}]suspect readings (more than 3σ off):[/] {names}")
     if budget is not None:
         console.print(budget_table(budget))

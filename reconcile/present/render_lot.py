@@ -9,6 +9,7 @@ from rich.table import Table
 
 from reconcile.lot.characterise import LotResult
 from reconcile.present.console import make_console
+from reconcile.present.escape import markup
 from reconcile.present import numbers
 
 OK, BAD, WARN, DIM = "green", "bold red", "yellow", "dim"
@@ -28,26 +29,61 @@ def _rel(stderr: float, value: float) -> str:
     return f"{100 * stderr / abs(value):.2g}%"
 
 
-def devices_table(result: LotResult, limit: int = MAX_DEVICE_ROWS) -> Table:
-    """One row per device (flagged devices first when the lot is longer than ``limit``)."""
-    items = list(result.devices.values())
-    if len(items) > limit:
-        items = sorted(items, key=lambda d: not d.flags)[:limit]
+def devices_table(result: LotResult, limit: int = MAX_DEVICE_ROWS, *,
+                  wide: bool = False) -> Table:
+    """One row per device (flagged devices first when the lot is longer than ``limit``).
+
+    Compact (the default, for 80 columns): value and standard error in one cell, each
+    flag as a number that :func:`flag_lines` spells out below the table. ``wide``: a
+    column each, the flags written in full.
+    """
+    items = _shown_devices(result, limit)
     t = Table(title=f"Devices ({len(result.devices)}; IS at 25 C, VBE at "
                     f"{numbers.si(result.options.current_a, 'A')})", title_justify="left")
-    for col in ("device", "beta", "±1σ", "IS", "±1σ", "n", "VBE", "bin", "flags"):
-        t.add_column(col, justify="left" if col in ("device", "bin", "flags") else "right")
+    heads = (("device", "beta", "±1σ", "IS", "±1σ", "n", "VBE", "bin", "flags") if wide
+             else ("device", "beta ±1σ", "IS ±1σ", "n", "VBE", "bin", "flags"))
+    for col in heads:
+        t.add_column(col, justify="left" if col in ("device", "bin", "flags") else "right",
+                     no_wrap=not wide and col != "device", overflow="fold")
+    notes = _flag_numbers(items)
     for d in items:
-        flags = ", ".join(d.flags)
         style = BAD if "outlier" in d.flags or "not-converged" in d.flags else WARN
+        if wide:
+            flags = ", ".join(d.flags)
+            cells = [f"{d.beta:.1f}", f"{d.beta_stderr:.2g}", _fmt(d.is_25c, "A", 3),
+                     _rel(d.is_stderr, d.is_25c)]
+        else:
+            flags = " ".join(f"({notes[f]})" for f in d.flags)
+            cells = [f"{d.beta:.1f} ±{d.beta_stderr:.2g}",
+                     f"{_fmt(d.is_25c, 'A', 3)} ±{_rel(d.is_stderr, d.is_25c)}"]
         t.add_row(
-            d.name, f"{d.beta:.1f}", f"{d.beta_stderr:.2g}", _fmt(d.is_25c, "A", 3),
-            _rel(d.is_stderr, d.is_25c), f"{d.n:.4f}", _fmt(d.vbe_v, "V", 5), d.bin or "",
-            f"[{style}]{flags}[/]" if flags else f"[{OK}]ok[/]",
+            markup(d.name), *cells, f"{d.n:.4f}", _fmt(d.vbe_v, "V", 5), markup(d.bin or ""),
+            f"[{style}]{markup(flags)}[/]" if flags else f"[{OK}]ok[/]",
         )
     if len(result.devices) > limit:
         t.caption = f"{len(result.devices) - limit} more devices not shown (all in --json)"
     return t
+
+
+def _shown_devices(result: LotResult, limit: int) -> list:
+    items = list(result.devices.values())
+    if len(items) > limit:
+        items = sorted(items, key=lambda d: not d.flags)[:limit]
+    return items
+
+
+def _flag_numbers(items) -> dict[str, int]:
+    """Each distinct flag of the shown devices, numbered in order of first appearance."""
+    numbered: dict[str, int] = {}
+    for d in items:
+        for flag in d.flags:
+            numbered.setdefault(flag, len(numbered) + 1)
+    return numbered
+
+
+def flag_lines(result: LotResult, limit: int = MAX_DEVICE_ROWS) -> list[str]:
+    """The compact table's flag numbers spelled out, one line each."""
+    return [f"({k}) {markup(flag)}" for flag, k in _flag_numbers(_shown_devices(result, limit)).items()]
 
 
 def summary_table(result: LotResult) -> Table:
@@ -72,7 +108,7 @@ def bins_table(result: LotResult) -> Table:
         t.add_column(col, justify="right" if col == "count" else "left")
     for b in result.bins:
         names = ", ".join(b.devices[:12]) + (" ..." if len(b.devices) > 12 else "")
-        t.add_row(b.label, str(len(b.devices)), names)
+        t.add_row(markup(b.label), str(len(b.devices)), markup(names))
     return t
 
 
@@ -86,7 +122,7 @@ def pairs_table(result: LotResult, limit: int = MAX_PAIR_ROWS) -> Table:
     for col in ("devices", "ΔVBE", "±1σ", "beta ratio"):
         t.add_column(col, justify="left" if col == "devices" else "right")
     for p in result.pairs[:limit]:
-        t.add_row(" + ".join(p.devices), _fmt(p.delta_vbe_v, "V", 3),
+        t.add_row(markup(" + ".join(p.devices)), _fmt(p.delta_vbe_v, "V", 3),
                   _fmt(p.delta_vbe_stderr_v, "V", 3), f"{p.beta_ratio:.3f}")
     if len(result.pairs) > limit:
         t.caption = f"{len(result.pairs) - limit} more sets not shown"
@@ -105,14 +141,18 @@ def cpk_line(result: LotResult) -> str | None:
             f"{100 * c.fraction_out:.1f}% of the devices used outside")
 
 
-def print_lot(result: LotResult, console: Console | None = None) -> None:
+def print_lot(result: LotResult, console: Console | None = None, *,
+              wide: bool = False) -> None:
     """Print the lot: devices, summary, outliers, bins, matched sets, Cpk, device table."""
     console = console or make_console()
-    console.print(devices_table(result))
+    console.print(devices_table(result, wide=wide))
+    if not wide:
+        for line in flag_lines(result):
+            console.print(line)
     console.print(summary_table(result))
     if result.outliers:
         rule = f"modified z-score > {result.options.outlier_z:g}"
-        console.print(f"[{BAD}]outliers ({rule}):[/] {', '.join(result.outliers)}")
+        console.print(f"[{BAD}]outliers ({rule}):[/] {markup(', '.join(result.outliers))}")
     else:
         console.print(f"[{OK}]no outliers[/] (modified z-score > {result.options.outlier_z:g})")
     if result.bins:
