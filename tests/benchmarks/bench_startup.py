@@ -5,8 +5,9 @@ invented line receiver, output discarded), timed against a bare interpreter impo
 the one library the command cannot avoid: ``python -c "import numpy"`` for solve,
 diagnose and trim, ``python -c "import lmfit"`` for fit. The command and its baseline
 are timed alternately in the same loop, so machine load hits both alike; the figure
-is the ratio of the medians. Peak memory (max RSS of the child process, from
-``os.wait4``) is reported for every command; the trim target is on it.
+is the ratio of the medians. Peak memory (max RSS of one more run of each command, read
+with ``os.wait4`` by a small launcher, since Linux carries a parent's peak into its
+children) is reported for every command; the trim target is on it.
 
 Targets (issue 16): solve ≤ 3×, diagnose ≤ 6×, trim ≤ 10× ``import numpy`` with peak
 memory ≤ 250 MiB, fit ≤ 1.2× ``import lmfit``.
@@ -37,19 +38,37 @@ COMMANDS = {
 TRIM_PEAK_MIB = 250.0
 
 
-def _time_process(argv: list[str]) -> tuple[float, float]:
-    """(wall seconds, peak RSS in MiB) of one child process."""
+# Linux keeps a process's peak RSS across fork and exec: a child started straight from
+# this (large) benchmark process reports this process's own peak. So the peak of each
+# command is read by a small launcher that starts it and reports its child's rusage.
+_PEAK_LAUNCHER = (
+    "import os, subprocess, sys\n"
+    "p = subprocess.Popen(sys.argv[1:], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)\n"
+    "_, status, usage = os.wait4(p.pid, 0)\n"
+    "print(os.waitstatus_to_exitcode(status), usage.ru_maxrss)\n"
+)
+
+
+def _time_process(argv: list[str]) -> float:
+    """Wall seconds of one child process."""
     env = dict(os.environ, PYTHONDONTWRITEBYTECODE="0")
     start = time.perf_counter()
-    proc = subprocess.Popen(
-        argv, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=ROOT, env=env
-    )
-    _, status, usage = os.wait4(proc.pid, 0)
+    done = subprocess.run(argv, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=ROOT,
+                          env=env, check=False)
     wall = time.perf_counter() - start
-    proc.returncode = os.waitstatus_to_exitcode(status)
-    if proc.returncode != 0:
-        raise RuntimeError(f"{' '.join(argv)} exited {proc.returncode}")
-    return wall, usage.ru_maxrss / 1024.0  # Linux: KiB
+    if done.returncode != 0:
+        raise RuntimeError(f"{' '.join(argv)} exited {done.returncode}")
+    return wall
+
+
+def _peak_mib(argv: list[str]) -> float:
+    """Peak RSS in MiB of one run of ``argv``, through the small launcher."""
+    done = subprocess.run([sys.executable, "-c", _PEAK_LAUNCHER, *argv], capture_output=True,
+                          text=True, cwd=ROOT, check=True)
+    code, kib = done.stdout.split()
+    if int(code) != 0:
+        raise RuntimeError(f"{' '.join(argv)} exited {code}")
+    return int(kib) / 1024.0  # Linux: KiB
 
 
 def run(repeats: int = REPEATS) -> dict:
@@ -69,14 +88,12 @@ def run(repeats: int = REPEATS) -> dict:
         _time_process([py, "-m", "reconcile", *args])
     times: dict[str, list[float]] = {name: [] for name in COMMANDS}
     base_times: dict[str, list[float]] = {name: [] for name in COMMANDS}
-    peaks: dict[str, float] = {}
     for _ in range(repeats):
         for name, (args, lib, _) in COMMANDS.items():
-            t_base, _ = _time_process(baselines[lib])
-            t_cmd, peak = _time_process([py, "-m", "reconcile", *args])
-            base_times[name].append(t_base)
-            times[name].append(t_cmd)
-            peaks[name] = max(peaks.get(name, 0.0), peak)
+            base_times[name].append(_time_process(baselines[lib]))
+            times[name].append(_time_process([py, "-m", "reconcile", *args]))
+    peaks = {name: _peak_mib([py, "-m", "reconcile", *args])
+             for name, (args, _, _) in COMMANDS.items()}
     out: dict = {"repeats": repeats, "commands": {}}
     for name, (_, lib, target) in COMMANDS.items():
         cmd_s = statistics.median(times[name])
