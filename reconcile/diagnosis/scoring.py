@@ -237,7 +237,7 @@ def _hypothesis(board: Board, ft: FaultFit, none_fit: FaultFit, weights: dict[st
                 n_obs: int, uncertainty: np.ndarray | None, cplx: float, score: float,
                 p: float, note: str, same: dict) -> Hypothesis:
     """One scored fit as the :class:`Hypothesis` the user reads."""
-    from scipy.special import chdtrc
+    from reconcile.inference.chi_square import upper_tail
 
     f = ft.fault
     parts = [_fault_entry(board, ft, m) for m in f.parts]
@@ -255,7 +255,8 @@ def _hypothesis(board: Board, ft: FaultFit, none_fit: FaultFit, weights: dict[st
         complexity=cplx,
         score=score,
         dof=n_obs,
-        p_value=float(chdtrc(n_obs, ft.chi_square)) if math.isfinite(score) else 0.0,
+        p_value=(upper_tail(ft.chi_square, n_obs) if n_obs > 0 else 1.0)
+        if math.isfinite(score) else 0.0,
         converged=ft.converged,
         stderr=e.get("stderr"),
         nominal=_nominal(board, f.ref) if not f.members else None,

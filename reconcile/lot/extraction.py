@@ -261,10 +261,10 @@ def extract(
 
 def _flags(sweeps: SweepSet, m: np.ndarray, *, bent, curved, three, chi, dof, chi_b, dof_b):
     """The flag names of each device (see the module docstring)."""
-    from scipy.special import chdtrc  # chi-square upper tail
+    from reconcile.inference.chi_square import upper_tail
 
-    p_fit = np.where(dof > 0, chdtrc(np.maximum(dof, 1), chi), 1.0)
-    p_beta = np.where(dof_b > 0, chdtrc(np.maximum(dof_b, 1), chi_b), 1.0)
+    p_fit = np.where(dof > 0, upper_tail(chi, np.maximum(dof, 1)), 1.0)
+    p_beta = np.where(dof_b > 0, upper_tail(chi_b, np.maximum(dof_b, 1)), 1.0)
     with np.errstate(invalid="ignore"):
         vbc_pts = np.where(m & np.isfinite(sweeps.vce), sweeps.vbe - sweeps.vce, -np.inf)
     saturated = np.any(vbc_pts > devices.REGION_THRESHOLD_V, axis=1)

@@ -241,9 +241,9 @@ def fit_jig(
         cov = np.linalg.pinv(a)
     n_obs = np.isfinite(meas).sum(axis=1)
     chi = np.where(np.isfinite(cost), cost, np.nan)
-    from scipy.special import chdtrc  # chi-square upper tail
+    from reconcile.inference.chi_square import upper_tail
 
-    p_value = np.where(n_obs > 0, chdtrc(np.maximum(n_obs, 1), chi), 1.0)
+    p_value = np.where(n_obs > 0, upper_tail(chi, np.maximum(n_obs, 1)), 1.0)
     span = hi - lo
     at_bound = np.any((x - lo < 1e-6 * span) | (hi - x < 1e-6 * span), axis=1)
     predicted = np.where(np.isfinite(meas), f, np.nan)
