@@ -275,20 +275,25 @@ def lot(
     if plot is not None:
         check_plot_path(plot)
     jig, data = (first, readings) if readings is not None else (None, first)
-    result = run_lot(
-        jig,
-        data,
-        bins=bins,
-        vbe_limit=_value_option(vbe_limit, "volts", "--vbe-limit"),
-        beta_ratio=beta_ratio,
-        current=_value_option(current, "amps", "--current"),
-        spec_low=spec_low,
-        spec_high=spec_high,
-        socket=socket,
-        set_size=set_size,
-        device_name=device_name,
-        early_voltage=_value_option(early_voltage, "volts", "--early-voltage"),
-    )
+    from reconcile.present.progress import stage_progress
+
+    with stage_progress(enabled=not json) as stage:
+        if stage is not None:
+            stage("characterising the lot")
+        result = run_lot(
+            jig,
+            data,
+            bins=bins,
+            vbe_limit=_value_option(vbe_limit, "volts", "--vbe-limit"),
+            beta_ratio=beta_ratio,
+            current=_value_option(current, "amps", "--current"),
+            spec_low=spec_low,
+            spec_high=spec_high,
+            socket=socket,
+            set_size=set_size,
+            device_name=device_name,
+            early_voltage=_value_option(early_voltage, "volts", "--early-voltage"),
+        )
     if plot is not None:
         from reconcile.present.plots_lot import plot_lot
 
@@ -382,7 +387,12 @@ def trim(
         check_count(value, option, minimum=minimum)
     options = AnalysisOptions(max_changes=max_changes, top=top, trim_samples=samples, seed=seed)
     inputs = _gather(board, readings, session, store, "trim", options, readings_optional=True)
-    outcome = trim_step(inputs)
+    from reconcile.present.progress import stage_progress
+
+    with stage_progress(enabled=not json) as stage:
+        if stage is not None:
+            stage("fitting the board, then searching reworks and their yield")
+        outcome = trim_step(inputs)
     out = outcome.to_dict()
     recorded = inputs.record("trim", out)
     if plot is not None and samples > 0:
@@ -429,22 +439,20 @@ def report(
         from reconcile.store.sessions import show_session
 
         meta = {k: v for k, v in show_session(session, store=store).items() if k != "readings"}
-    lot_result = lot_png = None
-    if lot_readings is not None:
-        from reconcile.lot.characterise import run_lot
-        from reconcile.present.plots_lot import plot_lot
+    from reconcile.present.progress import stage_progress
 
-        lot_result = run_lot(lot_jig, lot_readings)
-        with tempfile.TemporaryDirectory() as tmp:
+    lot_result = lot_png = None
+    with stage_progress(enabled=not json) as stage, tempfile.TemporaryDirectory() as tmp:
+        if lot_readings is not None:
+            from reconcile.lot.characterise import run_lot
+            from reconcile.present.plots_lot import plot_lot
+
+            if stage is not None:
+                stage("characterising the lot")
+            lot_result = run_lot(lot_jig, lot_readings)
             lot_png = plot_lot(lot_result, Path(tmp) / "lot.png").read_bytes()
-    with tempfile.TemporaryDirectory() as tmp:
-        data = build_report(
-            inputs,
-            session=meta,
-            lot_result=lot_result,
-            lot_plot=lot_png,
-            work_dir=Path(tmp),
-        )
+        data = build_report(inputs, session=meta, lot_result=lot_result, lot_plot=lot_png,
+                            work_dir=Path(tmp), on_stage=stage)
     path = write_report(data, out)
     data.analysis.record()
     recorded = inputs.record("report", {"path": str(path.resolve()), **data.hashes})

@@ -98,12 +98,26 @@ def run_demo(*, json_output: bool = False, out_dir: Path | None = None) -> dict:
 class _Story:
     def __init__(self, data: Path, out: Path, console, rng) -> None:
         self.data, self.out, self.console, self.rng = data, out, console, rng
+        self.status = None
         self.summary: dict = {"sample_data": str(data), "output_folder": str(out), "files": {}}
 
     def step(self, title: str) -> None:
         self.console.rule(title)
+        if self.status is not None:
+            self.status.update(f"{title} …")
 
     def run(self) -> dict:
+        """The story, with a spinner under it while each step computes (on a terminal
+        only: rich leaves it out when the output is piped, and the --json console is
+        quiet)."""
+        with self.console.status("starting the demo …") as status:
+            self.status = status
+            try:
+                return self._story()
+            finally:
+                self.status = None
+
+    def _story(self) -> dict:
         from reconcile.model.board_loader import load_board
         from reconcile.pipeline.analyses import Analysis
         from reconcile.store.repository import open_store

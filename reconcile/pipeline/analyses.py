@@ -219,12 +219,20 @@ def analyse(
     diagnosis: Diagnosis | None = None,
     trim: TrimOutcome | None = None,
     on_progress: Progress = None,
+    on_stage: Callable[[str], None] | None = None,
 ) -> Analysis:
     """Fit, diagnose and (when the board has spec targets) trim; a step already run may
-    be passed in and is not run again."""
+    be passed in and is not run again. ``on_stage(text)`` is told each step as it
+    starts (a progress display)."""
+    stage = on_stage or (lambda _text: None)
+    if fit is None:
+        stage("fitting the board to its readings")
     outcome = fit if fit is not None else fit_step(inputs)
+    if diagnosis is None:
+        stage("weighing the fault hypotheses")
     diag = diagnosis if diagnosis is not None else diagnose_step(inputs, on_progress=on_progress)
     trimmed = trim
     if trimmed is None and wants_trim(inputs.board):
+        stage("searching reworks and their yield")
         trimmed = trim_step(inputs, outcome.fit, diagnosis=diag)
     return Analysis(inputs, outcome, diag, trimmed)

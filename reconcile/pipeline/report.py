@@ -87,13 +87,14 @@ def collect_report(
     trim_samples: int | None = None,
     seed: int | None = None,
     analysis: Analysis | None = None,
+    on_stage=None,
 ) -> ReportData:
     """Run every analysis of the pipeline (:func:`reconcile.pipeline.analyses.analyse`)
     on ``inputs`` (or on a board and its readings) and keep the results.
 
     ``analysis`` may be passed in when it was run already; ``trim_samples`` and ``seed``
     override the inputs' options; ``lot_plot`` is the lot's figure (PNG bytes) when a
-    lot is given."""
+    lot is given; ``on_stage(text)`` is told each step as it starts."""
     from reconcile.engine.solution import solve
     from reconcile.pipeline.analyses import analyse
 
@@ -112,7 +113,7 @@ def collect_report(
     )
     data.design = solve(board)
     if analysis is None:
-        analysis = analyse(inputs)
+        analysis = analyse(inputs, on_stage=on_stage)
     data.analysis = analysis
     data.outcome = analysis.fit
     data.fit = analysis.fit.fit.to_dict()

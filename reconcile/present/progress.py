@@ -55,3 +55,29 @@ def step_progress(
             progress.update(task, completed=done, total=total)
 
         yield update
+
+
+Stage = Callable[[str], None]
+"""``stage(text)``: the work moves on to ``text`` (shown until the next stage)."""
+
+
+@contextlib.contextmanager
+def stage_progress(enabled: bool = True) -> Iterator[Stage | None]:
+    """Yield ``stage(text)`` for work that goes through a few named steps (a report, a
+    trim, a lot): a transient spinner on stderr with the step and the time it has taken,
+    or None when disabled (``--json``) or when stderr is not a terminal."""
+    from rich.progress import SpinnerColumn, TimeElapsedColumn
+
+    console = make_console(stderr=True)
+    if not enabled or not console.is_terminal:
+        yield None
+        return
+    progress = Progress(SpinnerColumn(), TextColumn("{task.description}"), TimeElapsedColumn(),
+                        console=console, transient=True)
+    with progress:
+        task = progress.add_task("starting", total=None)
+
+        def stage(text: str) -> None:
+            progress.update(task, description=text)
+
+        yield stage

@@ -69,6 +69,8 @@ def build_report(inputs, readings=None, *, work_dir: Path, **analyses) -> Report
     :class:`~reconcile.pipeline.inputs.AnalysisInputs`, or a board and its readings;
     keyword arguments passed on), then :func:`draw_figures`."""
     data = collect_report(inputs, readings, **analyses)
+    if analyses.get("on_stage") is not None:
+        analyses["on_stage"]("drawing the figures")
     draw_figures(data, work_dir)
     return data
 
