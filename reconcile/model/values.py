@@ -122,6 +122,7 @@ TOLERANCE_LETTERS: dict[str, float] = {
 
 _SYMBOL = {
     "ohms": "Ω",
+    "ohm": "Ω",  # the unit word the JSON and the quantity registry write
     "farads": "F",
     "volts": "V",
     "amps": "A",

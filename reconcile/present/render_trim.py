@@ -87,12 +87,13 @@ def trim_table(result: TrimResult, *, wide: bool = False) -> Table:
             label, changes, *cells, margin, meets, _yield_text(option), f"{option.cost:g}"
         )
 
-    row("", result.baseline, f"[{STYLE_DIM}]as it is[/]")
+    def why(option: TrimOption) -> str:
+        return "".join(f"\n[{STYLE_WARN}]{markup(p)}[/]" for p in option.problems)
+
+    row("", result.baseline, f"[{STYLE_DIM}]as it is[/]" + why(result.baseline))
     for i, option in enumerate(result.options, start=1):
         changes = "\n".join(describe_change(c, compact=not wide) for c in option.changes)
-        if option.problems:
-            changes += "\n" + "\n".join(f"[{STYLE_WARN}]{markup(p)}[/]" for p in option.problems)
-        row(str(i), option, changes)
+        row(str(i), option, changes + why(option))
     if not wide:
         bands = "; ".join(
             f"{_short(q)} {_value(q, result.spec[q]['low'])} … {_value(q, result.spec[q]['high'])}"

@@ -51,6 +51,8 @@ import numpy as np
 
 from reconcile.model.board import Board
 from reconcile.model.kinds import ReworkAction, SearchKind, TrimMode
+from reconcile.model.quantities import REGISTRY
+from reconcile.model.values import format_si
 from reconcile.engine import compile_board
 from reconcile.errors import InputError
 from reconcile.inference.priors import ParameterSpace, build_space
@@ -492,32 +494,39 @@ def _changes(ctx: Context, singles: Singles, row: np.ndarray) -> tuple[Change, .
     return tuple(out)
 
 
-def _problems(
-    ctx: Context,
-    q: np.ndarray,
-    vce: np.ndarray,
-    ratio: np.ndarray,
-    converged: bool,
-    forward_active: bool,
-) -> tuple[str, ...]:
-    if not converged:
+def _problems(ctx: Context, scores: Scores, i: int) -> tuple[str, ...]:
+    """Why option ``i`` falls short, short enough for a table cell: each spec quantity
+    outside its limits, a transistor out of forward-active or under ``min_vce``, a part
+    over its rating; for one in spec only at the predicted board, that ``k_sigma``
+    predicted standard deviations reach a limit (the worst-case margin, which is what
+    lowers its yield) or bring |VCE| under ``min_vce``."""
+    if not bool(scores.converged[i]):
         return ("no DC operating point",)
+    q, vce, ratio = scores.q[i], scores.vce[i], scores.power_ratio[i]
     out = []
-    for i in range(ctx.n_spec):
-        name = ctx.quantities[i]
-        if not q[i] >= ctx.low[i]:
-            out.append(f"{name} {q[i]:.4g} below {ctx.low[i]:.4g}")
-        elif not q[i] <= ctx.high[i]:
-            out.append(f"{name} {q[i]:.4g} above {ctx.high[i]:.4g}")
-    if not forward_active:
-        out.append("a transistor is not forward-active")
+    for k in range(ctx.n_spec):
+        entry = REGISTRY.get(ctx.quantities[k])
+        name, unit = (entry.short, entry.unit) if entry else (ctx.quantities[k], "")
+        if not q[k] >= ctx.low[k]:
+            out.append(f"{name} {format_si(q[k], unit, 4)} < min {format_si(ctx.low[k], unit, 4)}")
+        elif not q[k] <= ctx.high[k]:
+            out.append(f"{name} {format_si(q[k], unit, 4)} > max {format_si(ctx.high[k], unit, 4)}")
+    if not bool(scores.forward_active[i]):
+        out.append("a transistor not forward-active")
     if ctx.min_vce is not None:
         for t, ref in enumerate(ctx.circuit.transistor_refs):
             if ctx.circuit.polarity[t] * vce[t] < ctx.min_vce:
-                out.append(f"{ref} |VCE| {abs(vce[t]):.3g} V under min_vce {ctx.min_vce:.3g} V")
+                out.append(f"{ref} |VCE| {format_si(abs(vce[t]), 'V', 3)} < min_vce "
+                           f"{format_si(ctx.min_vce, 'V', 3)}")
     for c, ref in enumerate(ctx.circuit.resistor_refs):
         if ratio[c] > 1.0:
             out.append(f"{ref} at {ratio[c]:.0%} of its rating")
+    if not out and bool(scores.in_spec[i]):
+        sigma = f"{ctx.k_sigma:g}σ"
+        if not scores.worst_case_margin[i] >= 0.0:
+            out.append(f"{sigma} reaches a limit ({100 * scores.worst_case_margin[i]:+.1f}%)")
+        if ctx.min_vce is not None and not bool(scores.headroom_robust[i]):
+            out.append(f"|VCE| within {sigma} of min_vce")
     return tuple(out)
 
 
@@ -535,14 +544,7 @@ def _option(
         cost=cost,
         worst_case_margin=float(scores.worst_case_margin[i]),
         vce={ref: float(scores.vce[i, t]) for t, ref in enumerate(ctx.circuit.transistor_refs)},
-        problems=_problems(
-            ctx,
-            q,
-            scores.vce[i],
-            scores.power_ratio[i],
-            bool(scores.converged[i]),
-            bool(scores.forward_active[i]),
-        ),
+        problems=_problems(ctx, scores, i),
         draws=None if est is None else est.draws,
     )
 
