@@ -79,7 +79,7 @@ def test_contract_example_parses(tmp_path: Path, board: Board) -> None:
     # temperature stored in kelvin (Celsius zero from scipy.constants)
     assert by_line[11].value == pytest.approx(27 + sc.zero_Celsius)
     assert by_line[11].unit == "C" and by_line[11].uncertainty is None
-    assert by_line[3].raw == ("voltage", "vcc", "4.98", "V", "", "", "", "")
+    assert by_line[3].raw == ("voltage", "vcc", "4.98", "V", "", "", "", "", "")
 
 
 def test_round_trip_text_readings_csv_readings(board: Board) -> None:

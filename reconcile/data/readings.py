@@ -2,7 +2,7 @@
 
 One row per reading::
 
-    quantity,at,value,unit,uncertainty,instrument,note[,device]
+    quantity,at,value,unit,uncertainty,instrument,note[,device][,frequency]
 
 - ``quantity`` is one of :data:`QUANTITIES`; ``at`` says where (see below);
 - ``value`` is a value string (:mod:`reconcile.values`: ``0.54m``, ``9.93k``, ``4k7``)
@@ -16,7 +16,11 @@ One row per reading::
 - ``at``: a node, or ``a/b`` for V(a) − V(b) (voltage); a supply ref or a resistor ref
   (current); a resistor ref (resistance, measured out of circuit); a capacitor ref
   (capacitance); blank for gain, input_resistance, output_resistance and temperature.
-  Ground is ``gnd``; ``0`` is refused with that hint.
+  Ground is ``gnd``; ``0`` is refused with that hint;
+- ``gain`` may have unit ``dB`` (:mod:`reconcile.model.decibels`): its uncertainty is
+  then a bare number in dB;
+- ``frequency`` (a value string, ``100``, ``1k``, ``10 kHz``) is the test frequency of a
+  small-signal reading; blank means the board's ``[signal] frequency``.
 
 Header names are case-insensitive; only ``quantity`` and ``value`` are required.
 Lines starting with ``#`` and blank lines are skipped; a UTF-8 byte-order mark is
@@ -39,6 +43,7 @@ from reconcile.data import csv_dialect, csv_rows
 from reconcile.data.validation import check_reading, reading_problems
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InputErrors
+from reconcile.model import decibels
 from reconcile.model.text_files import read_text
 from reconcile.model.quantities import COUNTS_FULL_SCALE, REGISTRY, UncertaintyRule
 from reconcile.model.values import KINDS, ZERO_CELSIUS_K, parse_value
@@ -57,11 +62,14 @@ __all__ = [
     "standard_uncertainty",
 ]
 
-#: Columns in the order they are written; ``device`` only when a reading has one.
-COLUMNS = ("quantity", "at", "value", "unit", "uncertainty", "instrument", "note", "device")
+#: Columns in the order they are written; ``device`` and ``frequency`` only when a
+#: reading has one.
+COLUMNS = ("quantity", "at", "value", "unit", "uncertainty", "instrument", "note", "device",
+           "frequency")
+_OPTIONAL_COLUMNS = ("device", "frequency")
 _REQUIRED_COLUMNS = ("quantity", "value")
 #: columns that hold numbers (a decimal comma is read in a semicolon export)
-_NUMBER_COLUMNS = ("value", "uncertainty")
+_NUMBER_COLUMNS = ("value", "uncertainty", "frequency")
 
 #: quantity -> (value kind for :func:`reconcile.values.parse_value`, what ``at`` names):
 #: the readable quantities of the registry (:mod:`reconcile.model.quantities`).
@@ -91,6 +99,9 @@ class Reading:
         default of :func:`default_uncertainty`.
     instrument, note, device
         Free text; ``device`` names the device under test in lot files.
+    frequency
+        The test frequency of a small-signal reading, Hz; ``None`` for the board's
+        ``[signal] frequency`` (and for every other quantity).
     line
         Line in the file the reading came from (not compared).
     raw
@@ -106,6 +117,7 @@ class Reading:
     instrument: str = ""
     note: str = ""
     device: str = ""
+    frequency: float | None = None
     line: int | None = field(default=None, compare=False)
     raw: tuple[str, ...] = field(default=(), compare=False)
 
@@ -116,10 +128,11 @@ class Reading:
         at: str,
         value: float,
         uncertainty: float | None = None,
-        **fields: str,
+        **fields,
     ) -> Reading:
         """A reading made in code, in SI units: its unit is the registry's
-        (:mod:`reconcile.model.quantities`). ``fields``: instrument, note, device."""
+        (:mod:`reconcile.model.quantities`). ``fields``: instrument, note, device,
+        frequency."""
         return cls(quantity, at, float(value), REGISTRY[quantity].unit, uncertainty, **fields)
 
 
@@ -319,7 +332,7 @@ def _unit_scale(unit: str, kind: str) -> float:
 def _reading_from_cells(
     raw: tuple[str, ...], line: int | None, board: Board | None, problems: list[str]
 ) -> Reading | None:
-    quantity_cell, at_cell, value_cell, unit_cell, unc_cell, instrument, note, device = raw
+    quantity_cell, at_cell, value_cell, unit_cell, unc_cell, instrument, note, device = raw[:8]
     quantity = quantity_cell.strip().lower()
     if quantity not in QUANTITIES:
         hint = _suggest(quantity, QUANTITIES)
@@ -334,12 +347,13 @@ def _reading_from_cells(
     value = _value(quantity, kind, value_cell.strip(), unit, problems)
     uncertainty = _uncertainty(quantity, kind, unc_cell.strip(), unit, value, problems)
     at = _at(quantity, at_cell.strip(), board, problems)
+    frequency = _frequency(quantity, raw[8].strip() if len(raw) > 8 else "", problems)
     if problems or value is None or at is None:
         return None
     reading = Reading(
         quantity=quantity, at=at, value=value, unit=unit, uncertainty=uncertainty,
         instrument=instrument.strip(), note=note.strip(), device=device.strip(),
-        line=line, raw=raw,
+        frequency=frequency, line=line, raw=raw,
     )
     found = reading_problems(reading)  # the rule every way in shares (data/validation.py)
     if found:
@@ -348,12 +362,48 @@ def _reading_from_cells(
     return reading
 
 
+def _frequency(quantity: str, text: str, problems: list[str]) -> float | None:
+    """The frequency cell: None when blank (the board's [signal] frequency)."""
+    if not text:
+        return None
+    if not REGISTRY[quantity].small_signal:
+        problems.append(f"{quantity} takes no frequency (found {text!r}): only small-signal "
+                        "readings do; leave it blank")
+        return None
+    try:
+        f = parse_value(text, "hertz")
+    except InputError as err:
+        problems.append(f"frequency: {err.message}")
+        return None
+    if not (math.isfinite(f) and f > 0.0):
+        problems.append(f"frequency {text!r} must be a positive finite number of Hz")
+        return None
+    return f
+
+
+def _decibel_value(quantity: str, text: str, problems: list[str]) -> float | None:
+    if not REGISTRY[quantity].decibels:
+        problems.append(f"unit 'dB' does not fit a {quantity} reading (only gain takes dB)")
+        return None
+    try:
+        level = parse_value(text, "plain")
+    except InputError as err:
+        problems.append(f"{quantity}: {err.message}")
+        return None
+    if not (math.isfinite(level) and abs(level) <= 200.0):
+        problems.append(f"{quantity} level {text!r} dB must be finite, within ±200 dB")
+        return None
+    return decibels.to_ratio(level)
+
+
 def _value(
     quantity: str, kind: str, text: str, unit: str, problems: list[str]
 ) -> float | None:
     if not text:
         problems.append(f"{quantity} reading has no value")
         return None
+    if decibels.is_decibels(unit):
+        return _decibel_value(quantity, text, problems)
     if unit:
         try:
             parse_value(f"1 {unit}", kind)
@@ -382,6 +432,8 @@ def _uncertainty(
 ) -> float | None:
     if not text:
         return None
+    if decibels.is_decibels(unit):
+        return _decibel_uncertainty(text, value, problems)
     try:
         if text.endswith("%") and kind != "temperature":
             if value is None:
@@ -404,6 +456,18 @@ def _uncertainty(
         )
         return None
     return u
+
+
+def _decibel_uncertainty(text: str, ratio: float | None, problems: list[str]) -> float | None:
+    """A dB reading's uncertainty cell (a bare number of dB) as a ratio's (GUM)."""
+    if not _BARE_NUMBER.match(text):
+        problems.append(f"uncertainty {text!r} of a dB reading must be a bare number of dB")
+        return None
+    u_db = float(text)
+    if not (u_db > 0.0 and math.isfinite(u_db)):
+        problems.append(f"uncertainty {text!r} must be a positive finite number of dB")
+        return None
+    return None if ratio is None else decibels.ratio_uncertainty(ratio, u_db)
 
 
 def _at(quantity: str, text: str, board: Board | None, problems: list[str]) -> str | None:
@@ -472,15 +536,19 @@ def _number(x: float) -> str:
 
 def _cells(reading: Reading) -> tuple[str, ...]:
     """The row for a reading: its raw cells when they still say the same, else formatted."""
-    if len(reading.raw) == len(COLUMNS):
+    raw = reading.raw + ("",) * (len(COLUMNS) - len(reading.raw))  # older: no frequency
+    if len(raw) == len(COLUMNS):
         problems: list[str] = []
-        again = _reading_from_cells(reading.raw, reading.line, None, problems)
+        again = _reading_from_cells(raw, reading.line, None, problems)
         if again == reading:
-            return reading.raw
+            return raw
     kind = QUANTITIES[reading.quantity][0]
     unit = reading.unit
     value, u = reading.value, reading.uncertainty
-    if kind == "temperature":
+    if decibels.is_decibels(unit):
+        value_text = _number(decibels.to_level(value))
+        unc_text = "" if u is None else _number(decibels.level_uncertainty(value, u))
+    elif kind == "temperature":
         if unit in ("", "K"):
             unit, value_text = "K", repr(value)
         else:
@@ -492,25 +560,29 @@ def _cells(reading: Reading) -> tuple[str, ...]:
         scale = _unit_scale(unit, kind)
         value_text = _number(value / scale)
         unc_text = "" if u is None else _number(u / scale)
+    frequency = "" if reading.frequency is None else repr(float(reading.frequency))
     return (reading.quantity, reading.at, value_text, unit, unc_text,
-            reading.instrument, reading.note, reading.device)
+            reading.instrument, reading.note, reading.device, frequency)
 
 
 def readings_to_csv(readings: Iterable[Reading]) -> str:
     """Readings as CSV text, header first.
 
     The header is ``quantity,at,value,unit,uncertainty,instrument,note``, plus
-    ``,device`` when any reading has a device. A reading loaded from a file is written
+    ``,device`` when any reading has a device and ``,frequency`` when any has a
+    frequency. A reading loaded from a file is written
     with its cells as they were (so a file round-trips cell by cell); any other is
     written in its own unit with ``repr`` floats, so reading the text back gives an
     equal :class:`Reading`.
     """
     readings = list(readings)
-    with_device = any(r.device for r in readings)
-    width = len(COLUMNS) if with_device else len(COLUMNS) - 1
+    used = {"device": any(r.device for r in readings),
+            "frequency": any(r.frequency is not None for r in readings)}
+    keep = [i for i, c in enumerate(COLUMNS) if c not in _OPTIONAL_COLUMNS or used[c]]
     out = io.StringIO()
     writer = csv.writer(out, lineterminator="\n")
-    writer.writerow(COLUMNS[:width])
+    writer.writerow([COLUMNS[i] for i in keep])
     for reading in readings:
-        writer.writerow(_cells(reading)[:width])
+        cells = _cells(reading)
+        writer.writerow([cells[i] for i in keep])
     return out.getvalue()

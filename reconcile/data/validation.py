@@ -86,6 +86,19 @@ def _value_problem(reading: Reading) -> str | None:
     return None
 
 
+def _frequency_problem(reading: Reading) -> str | None:
+    f = getattr(reading, "frequency", None)
+    if f is None:
+        return None
+    q = REGISTRY[reading.quantity]
+    if not q.small_signal:
+        return f"{q.name} takes no frequency: only small-signal readings do"
+    value = _float(f)
+    if value is None or not (math.isfinite(value) and value > 0.0):
+        return f"frequency {f!r} must be a positive finite number of Hz"
+    return None
+
+
 def _uncertainty_problem(reading: Reading) -> str | None:
     if reading.uncertainty is None:
         return None
@@ -120,7 +133,8 @@ def reading_problems(reading: Reading) -> list[str]:
     if q is None or not q.readable:
         readable = ", ".join(n for n, r in REGISTRY.items() if r.readable)
         return [f"unknown quantity {reading.quantity!r}; one of {readable}"]
-    problems = [p for p in (_value_problem(reading), _uncertainty_problem(reading)) if p]
+    problems = [p for p in (_value_problem(reading), _uncertainty_problem(reading),
+                            _frequency_problem(reading)) if p]
     for what, text in (("at", reading.at), ("the instrument", reading.instrument),
                        ("the note", reading.note), ("the device", reading.device)):
         if not isinstance(text, str):

@@ -8,7 +8,9 @@ Every reading is predicted the way it was taken:
 * a ``current`` from the board with no meter attached (a supply's read-back, or an
   ammeter in series with a resistor whose burden voltage is neglected);
 * ``gain``, ``input_resistance`` and ``output_resistance`` with the [signal] set-up:
-  the generator's source resistance and the load, as the contract defines them;
+  the generator's source resistance and the load, as the contract defines them, each at
+  its own ``frequency`` (blank: ``[signal] frequency``); the distinct frequencies of a
+  set of readings are one batched AC response (``LinearModel.response``) per call;
 * ``resistance`` and ``capacitance`` of a part measured out of circuit are direct
   readings of that parameter.
 
@@ -57,6 +59,7 @@ class Observation:
     measured: float
     uncertainty: float
     reading: Reading | None = None
+    frequency: float | None = None  # small-signal: Hz; None for [signal] frequency
 
 
 def observations_from(readings: list[Reading]) -> list[Observation]:
@@ -65,7 +68,8 @@ def observations_from(readings: list[Reading]) -> list[Observation]:
     for r in readings:
         if r.quantity not in PREDICTED:
             continue
-        out.append(Observation(r.quantity, r.at, r.value, standard_uncertainty(r), r))
+        out.append(Observation(r.quantity, r.at, r.value, standard_uncertainty(r), r,
+                               r.frequency))
     return out
 
 
@@ -109,6 +113,10 @@ class MeasurementModel:
         self.group = 1 + len(self.probes)
         self.base = nominal_parameters(self.circuit, 1)
         self._state: DCState | None = None
+        #: distinct frequencies small-signal readings were taken at (other than [signal])
+        self.frequencies = tuple(sorted({ob.frequency for ob in observations
+                                         if ob.quantity in SMALL_SIGNAL
+                                         and ob.frequency is not None}))
         self._plan = [self._plan_one(ob) for ob in observations]
 
     # ------------------------------------------------------------------ set-up
@@ -124,6 +132,8 @@ class MeasurementModel:
                 return ("supply_current", 0, c.supply_refs.index(ob.at))
             return ("resistor_current", 0, c.resistor_refs.index(ob.at))
         if q in SMALL_SIGNAL:
+            if ob.frequency is not None:
+                return ("small_signal_at", 0, (q, self.frequencies.index(ob.frequency)))
             return ("small_signal", 0, q)
         if q in ("resistance", "capacitance"):
             key = ob.at
@@ -198,6 +208,9 @@ class MeasurementModel:
         ext = self.space.external(x)
         out = np.empty((m, len(self.observations)))
         base_rows = np.arange(m) * self.group
+        at_freq = None
+        if self.frequencies and sol.linear is not None:  # (m, F): the board alone
+            at_freq = sol.linear.take(base_rows).response(np.array(self.frequencies))
         for k, (kind, row, what) in enumerate(self._plan):
             rows = base_rows + row
             if kind == "voltage":
@@ -211,6 +224,9 @@ class MeasurementModel:
                 out[:, k] = sol.resistor_current[rows, what]
             elif kind == "small_signal":
                 out[:, k] = getattr(sol.small_signal, what)[rows]
+            elif kind == "small_signal_at":
+                name, j = what
+                out[:, k] = getattr(at_freq, name)[:, j]
             elif kind == "parameter":
                 out[:, k] = ext[:, what]
             else:

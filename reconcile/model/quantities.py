@@ -133,6 +133,9 @@ class Quantity:
     min_uncertainty : float
         The smallest standard uncertainty accepted, SI units, whatever the reading
         (together with :data:`MIN_RELATIVE_UNCERTAINTY` of the reading).
+    decibels : bool
+        A reading may be written in ``dB`` (20·log10 of the ratio; its uncertainty in
+        dB too), converted by :mod:`reconcile.model.decibels`.
     """
 
     name: str
@@ -151,6 +154,7 @@ class Quantity:
     digits: int = 4
     value_range: tuple[float, float] = (-math.inf, math.inf)
     min_uncertainty: float = 0.0
+    decibels: bool = False
 
     @property
     def takes_at(self) -> bool:
@@ -206,7 +210,7 @@ REGISTRY: Mapping[str, Quantity] = _register(
         "gain", "", "plain", QuantityKind.SMALL_SIGNAL,
         UncertaintyRule(0.01, basis="1 % of reading, standard uncertainty"),
         "gain |v_out / v_in|", "gain", non_negative=True, spec_target=True,
-        value_range=(0.0, 1e6), min_uncertainty=1e-9,
+        value_range=(0.0, 1e6), min_uncertainty=1e-9, decibels=True,
     ),
     Quantity(
         "gain_phase_deg", "deg", "plain", QuantityKind.SMALL_SIGNAL, None,

@@ -59,6 +59,7 @@ from reconcile.store.schema import (
     T_READINGS,
     T_SESSIONS,
     _iso,
+    reading_columns,
     utc_now,
 )
 
@@ -569,6 +570,7 @@ class Store(Database):
             "unit": reading.unit,
             "uncertainty": None if reading.uncertainty is None else float(reading.uncertainty),
             "instrument": reading.instrument, "note": reading.note, "device": reading.device,
+            "frequency": None if reading.frequency is None else float(reading.frequency),
             "raw": json.dumps(list(reading.raw), ensure_ascii=False),
             "source": source, "source_line": reading.line,
             "taken_at": now if taken_at is None else _iso(taken_at), "stored": now,
@@ -578,8 +580,8 @@ class Store(Database):
     def _rows(self, conn: Connection, sid: str) -> tuple[list[StoredReading], int]:
         """Current readings in order, and how many rows they supersede."""
         rows = conn.execute(
-            sa.select(T_READINGS).where(T_READINGS.c.session_id == sid)
-            .order_by(T_READINGS.c.id)).all()
+            sa.select(*reading_columns(self._version(conn)))
+            .where(T_READINGS.c.session_id == sid).order_by(T_READINGS.c.id)).all()
         root: dict[int, int] = {}
         superseded: set[int] = set()
         for row in rows:
@@ -743,7 +745,8 @@ def _stored(row: Any) -> StoredReading:
     reading = Reading(
         quantity=row.quantity, at=row.at, value=row.value, unit=row.unit,
         uncertainty=row.uncertainty, instrument=row.instrument, note=row.note,
-        device=row.device, line=row.source_line, raw=tuple(json.loads(row.raw)))
+        device=row.device, frequency=getattr(row, "frequency", None), line=row.source_line,
+        raw=tuple(json.loads(row.raw)))
     return StoredReading(
         id=row.id, session=row.session_id, reading=reading, taken_at=row.taken_at,
         stored=row.stored, source=row.source, supersedes=row.supersedes)

@@ -12,6 +12,11 @@ row committed with its reading), so that a rerun after a crash resumes instead o
 storing the first part twice. It adds tables only: code that reads sessions works on a
 version-1 store unchanged, so a read-only open never needs to upgrade.
 
+Version 3 adds the nullable column ``readings.frequency`` (Hz, the test frequency of a
+small-signal reading; NULL for ``[signal] frequency``). Every stored row keeps its
+values (NULL there: what it meant before); a read-only open of an older store reads
+the readings without the column (:func:`reading_columns`).
+
 Timestamps are UTC ISO-8601 strings with milliseconds (``2025-01-31T14:05:09.123Z``).
 """
 
@@ -28,7 +33,7 @@ from sqlalchemy.engine import Connection
 from reconcile.errors import InputError
 from reconcile.model.kinds import AnalysisKind
 
-SCHEMA_VERSION = 2
+SCHEMA_VERSION = 3
 """The newest schema this code knows; ``MIGRATIONS[i]`` brings a store to version i+1."""
 
 ANALYSIS_KINDS = typing.get_args(AnalysisKind)
@@ -186,16 +191,36 @@ def _migrate_to_2(conn: Connection) -> None:
     _forbid_changes(conn, _APPEND_ONLY_V2)  # (PostgreSQL: the same function, replaced)
 
 
-MIGRATIONS: tuple[Callable[[Connection], None], ...] = (_migrate_to_1, _migrate_to_2)
+def _migrate_to_3(conn: Connection) -> None:
+    # Adding a nullable column keeps every row and the append-only triggers as they are.
+    conn.exec_driver_sql("ALTER TABLE readings ADD COLUMN frequency DOUBLE PRECISION")
+
+
+def _define_v3(md: sa.MetaData) -> None:
+    """What schema version 3 adds to the tables (frozen)."""
+    md.tables["readings"].append_column(
+        sa.Column("frequency", sa.Float(precision=53), nullable=True))
+
+
+MIGRATIONS: tuple[Callable[[Connection], None], ...] = (
+    _migrate_to_1, _migrate_to_2, _migrate_to_3)
 """Schema migrations in order; each runs inside the one transaction that upgrades."""
 
 _MD = sa.MetaData()
 _define_v1(_MD)  # the tables queried by this code: the newest version's
 _define_v2(_MD)
+_define_v3(_MD)
 T_VERSION, T_BOARDS, T_SESSIONS, T_EVENTS, T_READINGS, T_ANALYSES, T_IMPORTS, T_IMPORT_ROWS = (
     _MD.tables[name] for name in _OUR_TABLES
 )
 
+
+
+def reading_columns(version: int) -> list[sa.Column]:
+    """The columns of ``readings`` a store of schema ``version`` holds."""
+    if version >= 3:
+        return list(T_READINGS.c)
+    return [c for c in T_READINGS.c if c.name != "frequency"]
 
 
 # ---------------------------------------------------------------------------- values
