@@ -100,7 +100,11 @@ def error_budget(fit: FitResult, *, rng: np.random.Generator | None = None) -> E
         return None
     circuit = compile_board(board)
     space = ParameterSpace(circuit, fit.space.parameters)
-    groups = np.array([GROUPS.index(_GROUP_OF[p.kind]) for p in space.parameters])
+    # an instrument's calibration factor (inference/calibration.py) is in no group: it
+    # is not the board's, so it takes no share
+    groups = np.array(
+        [GROUPS.index(_GROUP_OF[p.kind]) if p.kind in _GROUP_OF else -1 for p in space.parameters]
+    )
     subsets = list(itertools.product((0, 1), repeat=len(GROUPS)))  # 8 masks
     rng = rng or np.random.default_rng(0)
     draws = rng.multivariate_normal(fit.x, fit.covariance, size=MC_DRAWS, method="eigh")
@@ -110,7 +114,7 @@ def error_budget(fit: FitResult, *, rng: np.random.Generator | None = None) -> E
     xs = []
     for c in centres:
         for mask in subsets:
-            use = np.array([mask[g] for g in groups], dtype=bool)
+            use = np.array([g >= 0 and mask[g] for g in groups], dtype=bool)
             xs.append(np.where(use, c, nominal))
     xs = np.array(xs)
     sol = solve_batch(circuit, space.to_parameters(xs))

@@ -99,6 +99,7 @@ from reconcile.inference.measure import (
     ambient_from,
     observations_from,
 )
+from reconcile.inference.calibration import calibration_parameters
 from reconcile.inference.priors import build_space
 from reconcile.model.board import Board
 
@@ -276,7 +277,10 @@ def diagnose(
     if not obs:
         raise InputError("diagnose needs at least one reading the board model predicts")
     ambient, ambient_u = ambient_from(readings)
-    space = build_space(compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u)
+    space = build_space(
+        compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u,
+        calibration=calibration_parameters(readings),
+    )
     faults = single_faults(board)
     check_work(board, faults, obs, space, work_limit)
     kw = {} if max_iterations is None else {"max_iterations": max_iterations}

@@ -23,6 +23,7 @@ import numpy as np
 from reconcile.model.board import Board
 from reconcile.model.kinds import Verdict
 from reconcile.engine import compile_board
+from reconcile.inference.calibration import calibration_parameters
 from reconcile.inference.measure import MeasurementModel, ambient_from, observations_from
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading
@@ -109,6 +110,7 @@ class FitResult:
     success: bool
     evaluations: int
     message: str
+    calibration: dict[str, Estimate] = field(default_factory=dict)
 
     def __repr__(self) -> str:
         from reconcile.present.show import brief
@@ -166,6 +168,7 @@ class FitResult:
                     strong.append({"a": keys[i], "b": keys[j], "r": float(corr[i, j])})
         return {
             "parameters": {k: e.to_dict() for k, e in self.parameters.items()},
+            "calibration": {k: _calibration_dict(e) for k, e in self.calibration.items()},
             "readings": [r.to_dict() for r in self.readings],
             "chi_square": self.chi_square,
             "dof": self.dof,
@@ -207,7 +210,8 @@ def fit_board(
     if space is None:
         ambient, ambient_u = ambient_from(readings)
         space = build_space(
-            compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u, fixed=fixed
+            compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u, fixed=fixed,
+            calibration=calibration_parameters(readings),
         )
     model = MeasurementModel(board, obs, space, model_meter=model_meter)
     space = model.space
@@ -227,8 +231,9 @@ def fit_board(
     dof = len(obs)
     p_value = upper_tail(chi2, dof) if dof > 0 else 1.0
     estimates = _estimates(space, x, post_sd)
+    factors = {fp.key: estimates.pop(fp.key) for fp in space.parameters if fp.kind == "calibration"}
     fits = [
-        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), ob.uncertainty, float(z[k]))
+        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), float(unc[k]), float(z[k]))
         for k, ob in enumerate(obs)
     ]
     converged = bool(result.success) and bool(np.all(np.isfinite(pred0)))
@@ -245,7 +250,18 @@ def fit_board(
         success=converged,
         evaluations=evaluations,
         message=str(result.message),
+        calibration=factors,
     )
+
+
+def _calibration_dict(e: Estimate) -> dict:
+    """An instrument range's fitted calibration factor (docs/formats.md §4)."""
+    return {
+        "value": e.value,
+        "stderr": e.stderr,
+        "prior_sd": e.stderr / e.prior_sd_ratio if e.prior_sd_ratio > 0 else None,
+        "informed_by": e.informed_by,
+    }
 
 
 def _minimise(model: MeasurementModel, x0: np.ndarray):

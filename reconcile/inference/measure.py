@@ -14,6 +14,9 @@ Every reading is predicted the way it was taken:
 * ``resistance`` and ``capacitance`` of a part measured out of circuit are direct
   readings of that parameter.
 
+A reading whose instrument's range has a calibration factor in the parameter space is
+predicted times that factor (:mod:`reconcile.inference.calibration`).
+
 A ``temperature`` reading is the ambient; it sets the prior of the junction
 temperature (see :mod:`reconcile.priors`) and is not predicted.
 
@@ -33,6 +36,7 @@ from reconcile.model.board import GND, Board
 from reconcile.engine import BatchSolution, DCState, compile_board, nominal_parameters, solve_batch
 from reconcile.engine.batch import bytes_per_board
 from reconcile.engine.budget import chunks, rows_per_chunk
+from reconcile.inference.calibration import calibration_map
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
@@ -118,6 +122,10 @@ class MeasurementModel:
                                          if ob.quantity in SMALL_SIGNAL
                                          and ob.frequency is not None}))
         self._plan = [self._plan_one(ob) for ob in observations]
+        self._calibration, self._random_u = calibration_map(
+            self.space, [ob.reading for ob in observations],
+            np.array([ob.uncertainty for ob in observations], dtype=float),
+        )
 
     # ------------------------------------------------------------------ set-up
     def _plan_one(self, ob: Observation) -> tuple[str, int, object]:
@@ -150,7 +158,9 @@ class MeasurementModel:
 
     @property
     def uncertainty(self) -> np.ndarray:
-        return np.array([ob.uncertainty for ob in self.observations])
+        """Each reading's own (independent) uncertainty: the part its instrument's
+        calibration factor does not carry (:mod:`reconcile.inference.calibration`)."""
+        return self._random_u.copy()
 
     # --------------------------------------------------------------- predict
     def rows_per_call(self) -> int:
@@ -232,6 +242,9 @@ class MeasurementModel:
             else:
                 name, col = what
                 out[:, k] = getattr(self.base, name)[0, col]
+        scaled = self._calibration >= 0
+        if scaled.any():
+            out[:, scaled] *= ext[:, self._calibration[scaled]]
         bad = ~sol.converged.reshape(m, self.group).all(axis=1)
         out[bad] = np.nan
         return out

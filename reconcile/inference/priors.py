@@ -13,6 +13,7 @@ Q.beta            ln beta      ln(value), range as ±2σ (else 0.3)           1 
 Q.VA (range)      ln VA        ln(value), range as ±2σ                      range ÷/× 10
 Q.n (range)       n            value, range as ±2σ                          0.5 … 3
 temperature       T (K)        ambient reading or board temperature, 3 K    −60 … +200 C
+calibration       ln f         0, the instrument's systematic part          f in 0.5 … 2
 ================  ===========  ==========================================  ==================
 
 Why these choices:
@@ -29,6 +30,8 @@ Why these choices:
   the two log distances from the value to the range ends, halved.
 * A bench supply set to its nominal has a setting error of its own, hence the 0.1 %
   floor (common practice for a bench supply's set-point accuracy).
+* A calibration factor belongs to an instrument's range, not to the board: see
+  :mod:`reconcile.inference.calibration`.
 * The junction temperature sits a little above ambient (self-heating of a few mW);
   3 K covers that and the ambient reading's own uncertainty (an assumed figure).
 """
@@ -169,6 +172,8 @@ class ParameterSpace:
         }
         ext = self.external(x)
         for j, fp in enumerate(self.parameters):
+            if fp.kind == "calibration":
+                continue  # an instrument's factor, not the board's (inference/calibration.py)
             if fp.kind == "temperature":
                 arrays["temperature"] = ext[:, j].copy()
             else:
@@ -204,11 +209,14 @@ def build_space(
     ambient_k: float | None = None,
     ambient_sd_k: float | None = None,
     fixed: tuple[str, ...] = (),
+    calibration: tuple[FreeParameter, ...] = (),
 ) -> ParameterSpace:
     """The free parameters of ``circuit``'s board (see the module docstring).
 
     ``ambient_k`` (from a temperature reading) centres the junction-temperature prior;
-    ``fixed`` lists keys to leave out (held at nominal).
+    ``fixed`` lists keys to leave out (held at nominal); ``calibration`` holds the
+    instruments' calibration factors, appended last
+    (:func:`reconcile.inference.calibration.calibration_parameters`).
     """
     board: Board = circuit.board
     out: list[FreeParameter] = []
@@ -230,6 +238,8 @@ def build_space(
             add(fp)
     if circuit.transistor_refs:
         add(_temperature_parameter(board, ambient_k, ambient_sd_k))
+    for fp in calibration:
+        add(fp)
     return ParameterSpace(circuit=circuit, parameters=tuple(out))
 
 

@@ -24,7 +24,7 @@ Region = Literal["forward-active", "saturation", "cutoff", "reverse-active"]
 """A transistor's operating region (engine/devices.py ``REGIONS``, in that order)."""
 
 ParameterKind = Literal[
-    "resistor", "capacitor", "supply", "IS", "beta", "VA", "n", "temperature"
+    "resistor", "capacitor", "supply", "IS", "beta", "VA", "n", "temperature", "calibration"
 ]
 """What a fitted parameter is (inference/priors.py ``FreeParameter.kind``)."""
 

@@ -73,14 +73,25 @@ class UncertaintyRule:
     divisor: float = 1.0
     basis: str = ""
 
+    def full_scale(self, value: float) -> float | None:
+        """The auto-selected range for ``value`` (the smallest of ``ranges`` above
+        |value|, else the largest); ``None`` when the rule has no ranges."""
+        if not self.ranges:
+            return None
+        magnitude = abs(value)
+        return next((r for r in self.ranges if magnitude < r), self.ranges[-1])
+
+    @property
+    def systematic_relative(self) -> float:
+        """The proportional part as one relative standard uncertainty: the instrument's
+        calibration (gain) error, shared by every reading on one range."""
+        return self.relative / self.divisor
+
     def limits(self, value: float) -> float:
         """Half-width of the limits of error, SI units."""
-        magnitude = abs(value)
-        resolution = 0.0
-        if self.ranges:
-            full_scale = next((r for r in self.ranges if magnitude < r), self.ranges[-1])
-            resolution = full_scale / COUNTS_FULL_SCALE
-        return self.relative * magnitude + self.counts * resolution + self.absolute
+        full_scale = self.full_scale(value)
+        resolution = 0.0 if full_scale is None else full_scale / COUNTS_FULL_SCALE
+        return self.relative * abs(value) + self.counts * resolution + self.absolute
 
     def standard(self, value: float) -> float:
         """One standard uncertainty, SI units."""

@@ -59,6 +59,20 @@ def parameters_table(fit: FitResult) -> Table:
     return t
 
 
+def calibration_table(fit: FitResult) -> Table:
+    """One row per instrument range's fitted calibration factor (1 = no error); the
+    instrument is the readings file's cell, escaped."""
+    t = Table(title="Instrument calibration (shared by its readings)", title_justify="left")
+    for col in ("instrument", "reading, range", "factor ± 1σ", "from"):
+        t.add_column(col, justify="right" if col == "factor ± 1σ" else "left")
+    for key, e in fit.calibration.items():
+        instrument, _, what = key.partition(":")
+        src = "readings" if e.informed_by == "readings" else f"[{DIM}]prior[/]"
+        t.add_row(markup(instrument), markup(what.replace(":", " ")),
+                  _fmt_u(e.value, e.stderr, ""), src)
+    return t
+
+
 def readings_table(fit: FitResult) -> Table:
     t = Table(title="Readings: measured against the fitted board", title_justify="left")
     for col in ("reading", "measured ± u", "predicted", "z"):
@@ -147,6 +161,8 @@ def print_fit(
 ) -> None:
     console = console or make_console()
     console.print(parameters_table(fit))
+    if fit.calibration:
+        console.print(calibration_table(fit))
     console.print(readings_table(fit))
     console.print(verdict_line(fit))
     if fit.suspects:
