@@ -25,3 +25,62 @@ def test_rows_per_chunk_follows_the_budget():
 def test_a_budget_too_small_is_refused():
     with pytest.raises(InputError, match="--memory"):
         b.set_budget(1024)
+
+
+# ------------------------------------------------------- the command line's --memory
+def test_memory_option_sets_the_budget_for_that_command_line_only(monkeypatch):
+    from pathlib import Path
+
+    from cli_support import run_cli
+
+    monkeypatch.delenv(b.ENVIRONMENT, raising=False)
+    board = str(Path(__file__).resolve().parent.parent / "sample_data" / "line_receiver_cb.toml")
+    out = run_cli("--memory", "64M", "solve", board, "--json")
+    assert out.exit_code == 0, out.stderr
+    assert b.budget_bytes() == 64 * b.MIB  # in force for the command that was given it
+    out = run_cli("solve", board, "--json")
+    assert out.exit_code == 0, out.stderr
+    assert b.budget_bytes() == b.DEFAULT_BUDGET_BYTES  # and forgotten by the next one
+
+
+@pytest.mark.parametrize("value, why", [("2X", "not a memory size"), ("1M", "too small"),
+                                        ("5000G", "at most 1024 GiB"), ("", "not a memory size")])
+def test_a_bad_memory_option_is_one_line_exit_2(value, why):
+    from cli_support import run_cli
+
+    out = run_cli("--memory", value, "solve", "x.toml")
+    assert out.exit_code == 2 and out.crash is None
+    (line,) = out.message_lines
+    assert line.startswith("reconcile: [--memory] ") and why in line
+
+
+# ---------------------------------------------------------------- BLAS threads
+def test_small_problems_run_blas_on_one_thread_and_restore_it(monkeypatch):
+    # threadpoolctl (a reference library) reports what the BLAS library was set to
+    from threadpoolctl import threadpool_info, threadpool_limits
+
+    from reconcile.inference.threads import small_problem_threads
+
+    def blas_threads() -> set[int]:
+        return {i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"}
+
+    if not blas_threads():
+        pytest.skip("no BLAS library that threadpoolctl can see")
+    monkeypatch.delenv("RECONCILE_BLAS_THREADS", raising=False)
+    with threadpool_limits(limits=2, user_api="blas"):
+        before = blas_threads()
+
+        @small_problem_threads()
+        def inner() -> set[int]:
+            return blas_threads()
+
+        @small_problem_threads()
+        def outer() -> tuple[set[int], set[int], set[int]]:
+            first = blas_threads()
+            nested = inner()
+            return first, nested, blas_threads()
+
+        assert outer() == ({1}, {1}, {1})
+        assert blas_threads() == before
+        monkeypatch.setenv("RECONCILE_BLAS_THREADS", "2")
+        assert inner() == before  # two threads asked for, as outside

@@ -296,7 +296,7 @@ def test_wrong_value_reports_e_series_and_decade_slip() -> None:
     assert abs(top.value - true_ohms) < 4.0 * top.stderr + 0.06 * true_ohms
     assert top.series == "E24" and top.nearest == 47000.0
     assert top.decade_slip and top.slip_decades == 1
-    assert "47 kohm" in top.check and "decade slip" in top.check
+    assert "47 kΩ" in top.check and "decade slip" in top.check
 
 
 def test_contract_json_and_fault_names() -> None:

@@ -51,8 +51,19 @@ BoardArg = Annotated[Path, typer.Argument(help="Board file (TOML).", show_defaul
 @app.callback()
 def _root(
     debug: Annotated[bool, typer.Option("--debug", help="Show tracebacks for errors.")] = False,
+    memory: Annotated[Optional[str], typer.Option(  # noqa: UP045 - typer needs Optional
+        "--memory", metavar="SIZE",
+        help="Memory budget of each batched step, e.g. 256M or 2G (default 512M, or "
+             "RECONCILE_MEMORY); 16M to 1024G.")] = None,
 ) -> None:
     _state["debug"] = debug
+    loaded = sys.modules.get("reconcile.engine.budget")  # (importing it loads the engine)
+    if loaded is not None:  # each command line starts from RECONCILE_MEMORY or the default
+        loaded.forget_budget()
+    if memory is not None:
+        from reconcile.engine.budget import parse_budget, set_budget
+
+        set_budget(parse_budget(memory, key="--memory"))
 
 
 def _value_option(text: str | None, kind: str, option: str) -> float | None:
@@ -598,7 +609,7 @@ def main() -> None:
 
         _say("ran out of memory (the batch budget is "
              f"{budget_bytes() / MIB:.0f} MiB; the machine or its limits allow less): give "
-             "fewer samples or a smaller board, or lower the budget with RECONCILE_MEMORY",
+             "fewer samples or a smaller board, or lower the budget with --memory",
              redact)
         sys.exit(1)
     except OSError as err:

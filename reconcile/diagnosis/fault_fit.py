@@ -48,6 +48,7 @@ from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
 from reconcile.inference.priors import ParameterSpace
+from reconcile.inference.threads import small_problem_threads
 
 __all__ = ["FaultFit", "fit_faults", "predict_faults"]
 
@@ -502,6 +503,7 @@ def _lm(
             st.last_decrement)
 
 
+@small_problem_threads()
 def fit_faults(
     faults: list[Fault],
     observations: list[Observation],

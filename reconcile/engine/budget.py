@@ -3,8 +3,9 @@
 A batched call (the engine, a Monte Carlo, a batch of hypothesis fits) states how many
 bytes one row of its work needs; :func:`rows_per_chunk` turns the budget into a chunk
 size and :func:`chunks` walks the rows in slices of that size. The budget is process-wide,
-read once from ``RECONCILE_MEMORY`` on first use; library users can set it with
-:func:`set_budget` or for a block with :func:`budget`.
+read once from ``RECONCILE_MEMORY`` on first use; the command line's ``--memory SIZE``
+(before the command) overrides it; library users can set it with :func:`set_budget` or
+for a block with :func:`budget`.
 
 The default, 512 MiB, leaves room on a small machine for the interpreter and the
 libraries (about 150–250 MiB) beside one batch. The environment variable
@@ -51,6 +52,10 @@ def _at_least_minimum(nbytes: int, key: str) -> int:
     if nbytes < MIN_BUDGET_BYTES:
         raise InputError(f"a memory budget of {nbytes / MIB:.3g} MiB is too small: give at "
                          f"least {MIN_BUDGET_BYTES // MIB} MiB", key=key)
+    if nbytes > MAX_BUDGET_BYTES:
+        raise InputError(f"a memory budget of {nbytes / MIB / 1024:.3g} GiB is more than any "
+                         f"machine here has: give at most {MAX_BUDGET_BYTES // MIB // 1024} GiB",
+                         key=key)
     return nbytes
 
 
@@ -60,6 +65,17 @@ def budget_bytes() -> int:
         text = os.environ.get(ENVIRONMENT, "").strip()
         _budget["bytes"] = parse_budget(text) if text else DEFAULT_BUDGET_BYTES
     return _budget["bytes"]
+
+
+MAX_BUDGET_BYTES = 1024 * 1024 * MIB
+"""Largest budget accepted (1 TiB): beyond any machine this tool runs on, so a larger
+figure is a typing slip."""
+
+
+def forget_budget() -> None:
+    """Drop a budget set in this process: the next use reads ``RECONCILE_MEMORY`` or the
+    default again (each command line starts so)."""
+    _budget.pop("bytes", None)
 
 
 def set_budget(nbytes: int) -> None:

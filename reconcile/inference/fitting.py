@@ -27,6 +27,7 @@ from reconcile.inference.calibration import calibration_parameters
 from reconcile.inference.measure import MeasurementModel, ambient_from, observations_from
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading
+from reconcile.inference.threads import small_problem_threads
 
 SUSPECT_SIGMA = 3.0
 P_CONSISTENT = 0.01
@@ -181,6 +182,7 @@ class FitResult:
         }
 
 
+@small_problem_threads()
 def fit_board(
     board: Board,
     readings: list[Reading],

@@ -45,6 +45,7 @@ from reconcile.errors import InputError, InputErrors
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
+from reconcile.inference.threads import small_problem_threads
 
 FD_STEP = 1e-6
 """Forward-difference step in internal coordinates (as :meth:`MeasurementModel.jacobian`)."""
@@ -184,6 +185,7 @@ def _layout(per_device: dict[str, list[Reading]]):
     return keys, meas, unc
 
 
+@small_problem_threads()
 def fit_jig(
     board: Board,
     readings: list[Reading],
