@@ -40,6 +40,7 @@ ALLOWED = {
     "pytestmark": "pytest module marker",
     "dps": "mpmath precision setting (tests)",
     "pg_location": "pytest fixture",
+    "_recreate_cm": "contextlib.ContextDecorator hook (inference/threads.py: a fresh one per call)",
     # result fields: part of the result a notebook user reads
     "prior_sd_ratio": "FitResult field (posterior sd / prior sd)",
     "beta_chi_square": "lot extraction result field",
