@@ -35,38 +35,3 @@ def pytest_terminal_summary(terminalreporter) -> None:
         for seconds, nodeid in unmarked:
             terminalreporter.write_line(f"{seconds:6.1f} s  {nodeid}")
 
-
-@pytest.fixture(scope="session")
-def demo_run(tmp_path_factory):
-    """The demo, run once per test process, in-process: its summary (the object
-    ``demo --json`` prints), what it printed, its session (store, id) and the analyses
-    it recorded (the last of each kind).
-
-    Tests that use it carry ``@pytest.mark.xdist_group("demo")``, so that under
-    ``pytest -n`` they share one worker and the demo still runs once. The demo as a
-    separate process (``demo --json`` from an installed wheel) is ``.ci/wheel_check.sh``.
-    """
-    import contextlib
-    import io
-    import os
-
-    from reconcile.cli.demo import run_demo
-    from reconcile.store.repository import open_store
-
-    out_dir = tmp_path_factory.mktemp("demo")
-    printed = io.StringIO()
-    mpl_before = os.environ.get("MPLCONFIGDIR")
-    try:
-        with contextlib.redirect_stdout(printed):
-            summary = run_demo(json_output=False, out_dir=out_dir)
-    finally:  # the demo points matplotlib's cache into its folder; undo that here
-        if mpl_before is None:
-            os.environ.pop("MPLCONFIGDIR", None)
-        else:
-            os.environ["MPLCONFIGDIR"] = mpl_before
-    store_path, sid = summary["session"]["store"], summary["session"]["id"]
-    with open_store(store_path) as store:
-        view = store.show_session(sid)
-        recorded = {a.kind: store.analysis(a.id).result for a in view.analyses}
-    return {"out_dir": out_dir, "summary": summary, "printed": printed.getvalue(),
-            "store": store_path, "id": sid, "recorded": recorded}

@@ -1,21 +1,17 @@
 """One analysis pipeline for every front end, and its policies.
 
-The front-end checks are self-consistency checks (our own engine's results compared
-with themselves through different front ends, no outside reference): the demo, the
-command line and the report, given the same stored session, must report the same fit,
-diagnosis and trim. The policy checks test the rule "do not trust a rework from a fit
+(The demo, command line and report agreeing on one stored session is in
+tests/test_demo_story.py.) The policy checks test the rule "do not trust a rework from a fit
 that does not explain the readings" (common practice: a model fitted to a faulty board
 is wrong in a way no tolerance covers) wherever a trim is made.
 """
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 import numpy as np
 import pytest
-from cli_support import run_cli
 
 from reconcile.data.derived_readings import series_resistor_uncertainty
 from reconcile.inference.simulate import simulate_readings
@@ -33,67 +29,6 @@ PLAN = [
     ("voltage", "e1b"), ("voltage", "e2"), ("voltage", "out"), ("current", "VCC"),
     ("gain", ""), ("input_resistance", ""),
 ]
-
-
-def _cli(*args: str) -> dict:
-    """``reconcile ARGS --json`` through the real entry point, in this process."""
-    done = run_cli(*args)
-    assert done.exit_code == 0 and done.crash is None, done.crash or done.stderr
-    return json.loads(done.stdout)
-
-
-def _plain(result: dict) -> dict:
-    """A result as the store keeps it (JSON), without where it was recorded."""
-    return json.loads(json.dumps({k: v for k, v in result.items() if k != "recorded"}))
-
-
-# ----------------------------------------------------------- front ends agree
-@pytest.mark.slow
-@pytest.mark.xdist_group("demo")
-def test_demo_cli_and_report_agree_on_fit_diagnosis_trim_self_consistency(
-    demo_run, tmp_path
-):
-    # Self-consistency: the same session through the demo, the CLI and the report.
-    sid, store = demo_run["id"], demo_run["store"]
-    demo = demo_run["recorded"]
-    by_cli = {
-        kind: _plain(_cli(kind, "--session", sid, "--store", store, "--json"))
-        for kind in ("fit", "diagnose", "trim")
-    }
-    _cli("report", "--session", sid, "--store", store, "--json", "--out",
-         str(tmp_path / "report.html"))
-    from reconcile.store.repository import open_store
-
-    with open_store(store) as db:
-        by_report = {a.kind: db.analysis(a.id).result for a in db.show_session(sid).analyses}
-    for kind in ("fit", "diagnose", "trim"):
-        assert by_report[kind] == demo[kind], kind
-    assert by_cli["fit"] == demo["fit"] and by_cli["diagnose"] == demo["diagnose"]
-    # `trim` alone has no diagnosis at hand, so its warning does not name a leader.
-    cli_warning = by_cli["trim"].pop("warning")
-    demo_trim = dict(demo["trim"])
-    assert cli_warning == policies.rework_warning(_Verdict(demo["fit"]["verdict"]))
-    assert demo_trim.pop("warning").startswith(cli_warning.split(";")[0])
-    assert by_cli["trim"] == demo_trim
-
-
-class _Verdict:
-    """Just a fit's verdict, for the warning the policy gives without a diagnosis."""
-
-    def __init__(self, verdict: str) -> None:
-        self.verdict = verdict
-
-
-@pytest.mark.slow
-@pytest.mark.xdist_group("demo")
-def test_demo_trim_carries_the_untrusted_fit_warning(demo_run):
-    # Policy: the demo's fit is inconsistent (the hidden board has a wrong RE1), so its
-    # trim must carry the warning, naming the diagnosis' leader.
-    summary = demo_run["summary"]
-    assert summary["fit_after_new_reading"]["verdict"] != "consistent"
-    warning = summary["trim"]["warning"]
-    assert "RE1 wrong-value" in warning
-    assert demo_run["recorded"]["trim"]["warning"] == warning
 
 
 # ------------------------------------------------------------------ policies
