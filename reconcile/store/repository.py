@@ -46,6 +46,7 @@ from reconcile.store.connection import (
     open_engine,
     timeout_from_env,
 )
+from reconcile.store.legacy_imports import adoptable_legacy_rows
 from reconcile.store.schema import (
     _ENDED,
     _READING,
@@ -417,6 +418,7 @@ class Store(Database):
                 raise InputError(
                     f"this file was already added to session {sid}: {earlier.describe()}; "
                     "give --again to add its readings a second time", key="again")
+            legacy = None if earlier is not None or again else adoptable_legacy_rows(conn, sid, readings)
             if resume:
                 assert earlier is not None
                 import_id = earlier.id
@@ -428,6 +430,12 @@ class Store(Database):
                     n_rows=len(readings), again=int(earlier is not None), started=utc_now(),
                     tool_version=__version__)).inserted_primary_key[0])
                 done = set()
+            if legacy is not None:  # adopt the rows stored before import records
+                resume = True
+                for position, reading_id in sorted(legacy.ids.items()):
+                    conn.execute(T_IMPORT_ROWS.insert().values(
+                        import_id=import_id, position=position, reading_id=reading_id))
+                done = set(legacy.ids)
         ids: list[int] = []
         for position, reading in enumerate(readings):
             if position in done:
