@@ -18,7 +18,6 @@ from pathlib import Path
 import pytest
 from cli_support import run_cli
 
-from reconcile.pipeline import policies
 @pytest.fixture(scope="module")
 def demo_run(tmp_path_factory):
     """The demo, run once for this file, in-process: its summary (the object
@@ -77,6 +76,12 @@ def test_demo_tells_the_whole_story_inside_its_folder(demo_run):
     assert top["value"] == pytest.approx(270.8, rel=0.03)
     assert data["design"]["meets_spec"] is True
     assert data["hidden_board_after_rework"]["meets_spec"] is True
+    # the trim follows the decisive diagnosis: restore the drawn RE1 first
+    repair = data["trim"]["repair"]
+    assert repair["source"] == "diagnosis" and repair["hypothesis"] == "RE1 wrong-value"
+    assert [(s["ref"], s["action"], s["value"]) for s in repair["steps"]] == [
+        ("RE1", "replace", 220.0)]
+    assert data["hidden_board_after_rework"]["repair"] == ["replace RE1 with the drawn 220 Ω"]
     assert data["trim"]["options"][0]["meets_spec"] is True
     for key in ("report", "fit_plot", "trim_plot", "lot_plot"):
         assert Path(data["files"][key]).is_file()
@@ -110,27 +115,17 @@ def test_demo_cli_and_report_agree_on_fit_diagnosis_trim_self_consistency(
     for kind in ("fit", "diagnose", "trim"):
         assert by_report[kind] == demo[kind], kind
     assert by_cli["fit"] == demo["fit"] and by_cli["diagnose"] == demo["diagnose"]
-    # `trim` alone has no diagnosis at hand, so its warning does not name a leader.
-    cli_warning = by_cli["trim"].pop("warning")
-    demo_trim = dict(demo["trim"])
-    assert cli_warning == policies.rework_warning(_Verdict(demo["fit"]["verdict"]))
-    assert demo_trim.pop("warning").startswith(cli_warning.split(";")[0])
-    assert by_cli["trim"] == demo_trim
-
-
-class _Verdict:
-    """Just a fit's verdict, for the warning the policy gives without a diagnosis."""
-
-    def __init__(self, verdict: str) -> None:
-        self.verdict = verdict
+    # `trim` alone diagnoses an unexplained fit itself, and follows the same leader
+    assert by_cli["trim"] == demo["trim"]
 
 
 @pytest.mark.slow
-def test_demo_trim_carries_the_untrusted_fit_warning(demo_run):
-    # Policy: the demo's fit is inconsistent (the hidden board has a wrong RE1), so its
-    # trim must carry the warning, naming the diagnosis' leader.
+def test_demo_trim_follows_the_diagnosis_instead_of_the_untrusted_fit(demo_run):
+    # Policy: the demo's fit of the board as drawn is inconsistent (the hidden board has
+    # a wrong RE1). Its trim does not rework that fit: it works under the diagnosis'
+    # decisive leader, whose fit explains the readings, so it needs no warning.
     summary = demo_run["summary"]
     assert summary["fit_after_new_reading"]["verdict"] != "consistent"
-    warning = summary["trim"]["warning"]
-    assert "RE1 wrong-value" in warning
-    assert demo_run["recorded"]["trim"]["warning"] == warning
+    trim = summary["trim"]
+    assert trim["hypothesis"]["label"] == "RE1 wrong-value" and "warning" not in trim
+    assert demo_run["recorded"]["trim"]["repair"] == trim["repair"]

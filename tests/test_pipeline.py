@@ -49,10 +49,26 @@ def healthy_inputs(design):
     return AnalysisInputs.from_objects(design, readings, AnalysisOptions(trim_samples=200))
 
 
-def test_a_trim_from_an_inconsistent_fit_is_flagged(faulty_inputs):
+@pytest.fixture(scope="module")
+def misassumed_inputs(faulty_inputs):
+    """The faulty board's readings analysed under a hypothesis that does not explain them
+    (the hidden fault is RE1's value, not a missing C_E1)."""
+    return faulty_inputs.with_options(assume=("C_E1:missing",))
+
+
+def test_a_trim_from_an_inconsistent_fit_follows_the_decisive_diagnosis(faulty_inputs):
+    # The drawn board's fit does not explain the readings; trim diagnoses it and works
+    # under the decisive leader, whose fit does, so its rework carries no warning.
+    assert fit_step(faulty_inputs).fit.verdict != "consistent"
     outcome = trim_step(faulty_inputs)
-    fit = fit_step(faulty_inputs).fit
-    assert fit.verdict != "consistent"
+    assert outcome.repair is not None and outcome.repair.source == "diagnosis"
+    assert outcome.repair.label == "RE1 wrong-value" and outcome.warning is None
+
+
+def test_a_trim_from_an_inconsistent_fit_is_flagged(misassumed_inputs):
+    outcome = trim_step(misassumed_inputs)
+    fit = fit_step(misassumed_inputs).fit
+    assert fit.verdict != "consistent" and fit_step(misassumed_inputs).assumed is not None
     assert outcome.warning is not None and fit.verdict in outcome.warning
     assert outcome.to_dict()["warning"] == outcome.warning
 
@@ -65,20 +81,20 @@ def test_a_trim_from_a_consistent_fit_and_design_mode_carry_no_warning(healthy_i
     assert trim_step(design_mode).warning is None
 
 
-def test_the_warning_names_the_diagnosis_leader(faulty_inputs):
-    analysis = analyse(faulty_inputs)
+def test_the_warning_names_the_diagnosis_leader(misassumed_inputs):
+    analysis = analyse(misassumed_inputs)
     top = analysis.diagnosis.top
     assert top.label in analysis.trim.warning
     assert analysis.results()["trim"]["warning"] == analysis.trim.warning
 
 
 @pytest.mark.slow  # a whole report with its plots
-def test_the_report_applies_the_untrusted_fit_rule(faulty_inputs, tmp_path):
+def test_the_report_applies_the_untrusted_fit_rule(misassumed_inputs, tmp_path):
     from reconcile.present.report import build_report, render_html
 
-    data = build_report(faulty_inputs, work_dir=tmp_path)
+    data = build_report(misassumed_inputs, work_dir=tmp_path)
     assert data.trim["warning"] == policies.rework_warning(
-        data.analysis.fit.fit, data.analysis.diagnosis
+        data.analysis.working_fit.fit, data.analysis.diagnosis
     )
     assert "Warning: the fit&#x27;s verdict is" in render_html(data)
 

@@ -127,7 +127,7 @@ def test_version_2_store_gains_the_frequency_column_and_loses_nothing(
         assert old.reading.frequency is None
     monkeypatch.setattr(store_connection, "SCHEMA_VERSION", SCHEMA_VERSION)
     with open_store(location) as store:
-        assert store.schema_version() == SCHEMA_VERSION == 3
+        assert store.schema_version() == SCHEMA_VERSION == 4
         new = readings_from_text("quantity,value,unit,uncertainty,frequency\n"
                                  "gain,-1.5,dB,0.1,50\n", path="new.csv")
         store.import_readings(sid, new, file_sha256="d" * 64, source="new.csv")

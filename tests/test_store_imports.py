@@ -122,7 +122,7 @@ def test_a_version_1_store_is_upgraded_to_record_imports(tmp_path, board):
     with open_store(path, read_only=True) as store:  # a reader leaves it at version 1
         assert store.schema_version() == 1 and store.imports("S-FIXTURE2") == []
     with open_store(path) as store:
-        assert store.schema_version() == SCHEMA_VERSION == 3
+        assert store.schema_version() == SCHEMA_VERSION == 4
         sid = store.create_session(board)
         readings = readings_from_text(READINGS_CSV, path="r.csv", board=board)
         store.import_readings(sid, readings, file_sha256="c" * 64, source="r.csv")

@@ -177,6 +177,13 @@ StoreOpt = Annotated[
     Optional[str],  # noqa: UP045
     typer.Option("--store", help="Store file path or database URL (default: your data folder)."),
 ]
+AssumeOpt = Annotated[
+    Optional[list[str]],  # noqa: UP045
+    typer.Option(
+        "--assume", metavar="REF:FAULT|REF=VALUE",
+        help="Analyse the board as built under this fault (repeatable): CE:missing, "
+        "RC:open, RE:short, Q1:reversed, RE1:wrong-value, or RE1=270 for a part read out "
+        "of circuit.")]
 BoardOptArg = Annotated[
     Optional[Path],  # noqa: UP045
     typer.Argument(help="Board file (TOML); not needed with --session.", show_default=False),
@@ -198,6 +205,7 @@ def fit(
     ] = True,
     session: SessionOpt = None,
     store: StoreOpt = None,
+    assume: AssumeOpt = None,
 ) -> None:
     """Fit the built board to its readings: values, uncertainties, error budget, next reading."""
     from reconcile.pipeline.analyses import fit_step
@@ -205,7 +213,8 @@ def fit(
 
     if plot is not None:
         check_plot_path(plot)
-    inputs = _gather(board, readings, session, store, "fit", AnalysisOptions(model_meter=meter_model))
+    options = AnalysisOptions(model_meter=meter_model, assume=tuple(assume or ()))
+    inputs = _gather(board, readings, session, store, "fit", options)
     outcome = fit_step(inputs)
     result = outcome.to_dict()
     recorded = inputs.record("fit", result)
@@ -385,6 +394,7 @@ def trim(
         "instead of the 80-column layout.")] = False,
     session: SessionOpt = None,
     store: StoreOpt = None,
+    assume: AssumeOpt = None,
 ) -> None:
     """Propose the least rework (standard values, swaps or parts in parallel) that restores
     the spec, with its yield. Without readings: design mode on the drawn board."""
@@ -396,7 +406,8 @@ def trim(
     for value, option, minimum in ((max_changes, "--max-changes", 1), (top, "--top", 1),
                                    (samples, "--samples", 0), (seed, "--seed", 0)):
         check_count(value, option, minimum=minimum)
-    options = AnalysisOptions(max_changes=max_changes, top=top, trim_samples=samples, seed=seed)
+    options = AnalysisOptions(max_changes=max_changes, top=top, trim_samples=samples, seed=seed,
+                              assume=tuple(assume or ()))
     inputs = _gather(board, readings, session, store, "trim", options, readings_optional=True)
     from reconcile.present.progress import stage_progress
 
@@ -438,13 +449,16 @@ def report(
         typer.Option(help="Add a lot: jig readings or sweep data (CSV)."),
     ] = None,
     json: JsonOpt = False,
+    assume: AssumeOpt = None,
 ) -> None:
     """Write the bench story as one self-contained HTML page (plots embedded)."""
     import tempfile
 
+    from reconcile.pipeline.inputs import AnalysisOptions
     from reconcile.present.report import build_report, write_report
 
-    inputs = _gather(board, readings, session, store, "report")
+    inputs = _gather(board, readings, session, store, "report",
+                     AnalysisOptions(assume=tuple(assume or ())))
     meta = None
     if session is not None:
         from reconcile.store.sessions import show_session

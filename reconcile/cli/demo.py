@@ -14,7 +14,9 @@ SP-7-0113 came off the line with too little gain. The demo
    through the same pipeline as the command line and the report;
 4. asks which single fault explains them, takes the reading the diagnosis suggests
    (on the simulated bench) and asks again;
-5. proposes the least rework and its yield, and checks it against the hidden board;
+5. follows the decisive diagnosis: restore the drawn design first (replace RE1 with the
+   drawn value), then any standard-value rework the repaired board still needs, with
+   predicted spec and yield, and checks that against the hidden board;
 6. characterises a small transistor lot from a jig;
 7. writes the HTML report.
 
@@ -241,7 +243,8 @@ class _Story:
         from reconcile.pipeline.analyses import trim_step
         from reconcile.present.plots_trim import plot_trim
 
-        self.step("5. The least rework that restores the spec, and its yield")
+        self.step("5. The repair the diagnosis points to, the least rework after it, and "
+                  "their yield")
         trimmed = trim_step(inputs, outcome.fit, diagnosis=diag)
         trimmed.report(self.console)
         self.summary["trim"] = trimmed.to_dict()
@@ -251,21 +254,28 @@ class _Story:
             )
         except ReconcileError:  # no option with draws: the table says why
             pass
-        if trimmed.result.best is not None and trimmed.result.best.changes:
-            self._check_rework(inputs.board, truth, trimmed.result.best)
+        best = trimmed.result.best
+        if trimmed.repair is not None or (best is not None and best.changes):
+            self._check_rework(inputs.board, truth, trimmed)
         return trimmed
 
-    def _check_rework(self, design, truth, best) -> None:
-        """Apply the best option to the hidden board and say whether it meets spec."""
+    def _check_rework(self, design, truth, trimmed) -> None:
+        """Apply the repair (when the trim follows a hypothesis), then the best option when
+        the repaired board still needs one, to the hidden board; say whether it meets spec."""
         import dataclasses
 
         from reconcile.engine.solution import check_spec, solve
+        from reconcile.pipeline.repair import apply_repair
+        from reconcile.present.escape import markup
 
-        reworked = truth
-        for c in best.changes:
-            built = truth.resistors[c.ref].ohms
+        reworked = truth if trimmed.repair is None else apply_repair(truth, trimmed.repair)
+        best = trimmed.result.best
+        changes = best.changes if best is not None and trimmed.result.needed else ()
+        for c in changes:
+            built = reworked.resistors[c.ref].ohms
             ohms = c.ohms if c.action == "replace" else built * c.ohms / (built + c.ohms)
-            reworked = reworked.replace_part(dataclasses.replace(truth.resistors[c.ref], ohms=ohms))
+            reworked = reworked.replace_part(
+                dataclasses.replace(reworked.resistors[c.ref], ohms=ohms))
         after = solve(reworked)
         checks = check_spec(design, after.small_signal or {})
         verdict = all(ch.met for ch in checks)
@@ -273,9 +283,14 @@ class _Story:
             "small_signal": after.small_signal,
             "meets_spec": verdict,
         }
+        self.summary["hidden_board_after_rework"]["repair"] = (
+            None if trimmed.repair is None else [s["text"] for s in trimmed.repair.steps])
+        self.summary["hidden_board_after_rework"]["changes"] = [c.to_dict() for c in changes]
         values = ", ".join(f"{ch.quantity} {ch.value:.4g}" for ch in checks)
+        done = [s["text"] for s in trimmed.repair.steps] if trimmed.repair is not None else []
+        done += [f"{c.ref} {c.action} {c.ohms:.4g} ohm" for c in changes]
         self.console.print(
-            f"The hidden board with that rework: {values} — "
+            f"The hidden board after {markup('; '.join(done))} (power off first): {values} — "
             + ("[green]meets its spec[/]" if verdict else "[red]still misses[/]")
             + " (the demo can check this; on a real bench, measure again after rework)."
         )

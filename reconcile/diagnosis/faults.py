@@ -42,6 +42,7 @@ __all__ = [
     "SHORT_SIEMENS",
     "WRONG_VALUE_LN_SD",
     "Fault",
+    "as_built",
     "single_faults",
 ]
 
@@ -168,3 +169,30 @@ def single_faults(board: Board) -> list[Fault]:
         swapped = board.replace_part(dataclasses.replace(q, c=q.e, e=q.c))
         out.append(Fault(ref, "reversed", swapped))
     return out
+
+
+_PART_FIELDS = {
+    "resistor_ohms": ("resistors", "ohms"),
+    "capacitor_farads": ("capacitors", "farads"),
+    "capacitor_leak_siemens": ("capacitors", "leak_siemens"),
+}
+"""Which board part and field each engine override of a fault sets."""
+
+
+def as_built(fault: Fault, *, onto: Board | None = None) -> Board:
+    """The board as built if ``fault`` is true: its overrides written into the parts
+    (an open resistor at :data:`OPEN_OHMS`, a missing capacitor at 0 F, a shorted one
+    with :data:`SHORT_SIEMENS` across it), a reversed transistor swapped, applied onto
+    ``onto`` (default the fault's own board; another fault's board as built, to join
+    faults). A fit of that board must hold ``fault.fixed`` and widen ``fault.widened``
+    as diagnosis does; a wrong value without a known value changes no part."""
+    board = fault.board if onto is None else onto
+    for member in fault.parts:
+        if member.kind == "reversed" and onto is not None:
+            board = board.replace_part(member.board.transistors[member.ref])
+        for name, col, value in member.overrides:
+            table, attr = _PART_FIELDS[name]
+            parts = getattr(board, table)
+            part = parts[list(parts)[col]]
+            board = board.replace_part(dataclasses.replace(part, **{attr: float(value)}))
+    return board

@@ -13,7 +13,9 @@ values weighs 1.6 against a single wrong value's 4 and ``none``'s 10.
 
 Testable. A hypothesis is ``testable`` when the readings taken can tell it from
 ``none``: its fitted predictions differ from the ``none`` fit's by at least
-:data:`TESTABLE_SIGMA` standard uncertainties in some reading. A fault no reading sees
+:data:`TESTABLE_SIGMA` standard uncertainties in some reading, or its χ² lies
+:data:`TESTABLE_CHI_SQUARE` below ``none``'s (``none`` fits the readings only by pushing
+parts far outside their tolerance). A fault no reading sees
 (a bleed resistor open with no reading across it) is not: its probability is its prior
 share, and nothing should be reworked on its account.
 """
@@ -47,6 +49,11 @@ _SERIES_FALLBACK = ("E24", "E12", "E6", "E48", "E96", "E192")
 TESTABLE_SIGMA = 1.0
 """A hypothesis is testable when some reading's prediction under it differs from the
 ``none`` fit's by at least this many standard uncertainties."""
+TESTABLE_CHI_SQUARE = 9.0
+"""... or when its fit's χ² (readings and priors) lies this far below ``none``'s: the
+``none`` fit then reproduces the readings only with parts far outside their tolerance
+(the readings see the fault through the priors). Removing the one prior row of a fixed
+part, as an invisible fault does, gains a few units at most."""
 
 
 
@@ -177,6 +184,8 @@ def _testable(ft: FaultFit, none_fit: FaultFit, uncertainty: np.ndarray) -> bool
     """Whether the readings taken can tell ``ft``'s hypothesis from ``none``
     (:data:`TESTABLE_SIGMA`); a reading one of them cannot produce tells them apart."""
     if ft.fault.kind == "none":
+        return True
+    if none_fit.chi_square - ft.chi_square >= TESTABLE_CHI_SQUARE:
         return True
     a, b = ft.predicted, none_fit.predicted
     with np.errstate(invalid="ignore"):

@@ -254,7 +254,7 @@ def nominal_parameters(
     return Parameters(
         resistor_ohms=rows([r.ohms for r in board.resistors.values()], nR),
         capacitor_farads=rows([c.farads for c in board.capacitors.values()], nC),
-        capacitor_leak_siemens=np.zeros((n, nC)),
+        capacitor_leak_siemens=rows([c.leak_siemens for c in board.capacitors.values()], nC),
         probe_siemens=np.full((n, n_probe), probe_g),
         supply_volts=rows([s.volts for s in board.supplies.values()], nS),
         IS=rows([d.IS.value for d in devs], nT),

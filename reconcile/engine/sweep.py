@@ -226,7 +226,9 @@ def low_corner_shares(stacked: LinearModel, corners: Corners) -> tuple[Capacitor
     out = []
     for k, ref in enumerate(refs):
         r_seen = float(one.resistance_seen(k)[0])
-        est = 1.0 / (2.0 * math.pi * r_seen * farads[k]) if r_seen > 0 else math.inf
+        # a missing capacitor (0 F, a board as built under a fault) sets no corner
+        est = (1.0 / (2.0 * math.pi * r_seen * float(farads[k]))
+               if r_seen > 0 and farads[k] > 0 else math.inf)
         out.append(CapacitorShare(ref, float(farads[k]), r_seen, float(est), float(shares[k])))
     return tuple(out)
 

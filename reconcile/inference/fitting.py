@@ -15,6 +15,7 @@ is balanced by its parameter). The verdict uses that distribution's upper tail.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import dataclass, field
 
@@ -189,6 +190,7 @@ def fit_board(
     *,
     model_meter: bool = True,
     fixed: tuple[str, ...] = (),
+    widened: tuple[tuple[str, float], ...] = (),
     start: np.ndarray | None = None,
     space: ParameterSpace | None = None,
 ) -> FitResult:
@@ -201,6 +203,9 @@ def fit_board(
         what ignoring meter loading does.
     fixed
         Parameter keys to hold at nominal.
+    widened
+        ``(key, internal prior sd)`` of parameters fitted with a wider prior (an
+        assumed wrong value, as diagnosis fits it).
     start
         Internal starting vector (default: the prior mean).
     space
@@ -215,6 +220,11 @@ def fit_board(
             compile_board(board), ambient_k=ambient, ambient_sd_k=ambient_u, fixed=fixed,
             calibration=calibration_parameters(readings),
         )
+    if widened:
+        wide = dict(widened)
+        space = ParameterSpace(space.circuit, tuple(
+            dataclasses.replace(fp, prior_sd=wide[fp.key]) if fp.key in wide else fp
+            for fp in space.parameters))
     model = MeasurementModel(board, obs, space, model_meter=model_meter)
     space = model.space
     meas = model.measured

@@ -225,12 +225,15 @@ def build_space(
         if fp.key not in fixed:
             out.append(fp)
 
+    # a fixed part is not built at all: a board as built may hold a missing one at 0 F
     for col, ref in enumerate(circuit.resistor_refs):
         r = board.resistors[ref]
-        add(_passive(ref, "resistor", col, r.ohms, r.tolerance, "ohm"))
+        if ref not in fixed:
+            add(_passive(ref, "resistor", col, r.ohms, r.tolerance, "ohm"))
     for col, ref in enumerate(circuit.capacitor_refs):
         c = board.capacitors[ref]
-        add(_passive(ref, "capacitor", col, c.farads, c.tolerance, "F"))
+        if ref not in fixed:
+            add(_passive(ref, "capacitor", col, c.farads, c.tolerance, "F"))
     for col, ref in enumerate(circuit.supply_refs):
         add(_supply_parameter(ref, col, board.supplies[ref]))
     for col, ref in enumerate(circuit.transistor_refs):

@@ -69,6 +69,10 @@ class Capacitor:
     farads: float
     tolerance: float = 0.20
     trim: bool = True
+    leak_siemens: float = 0.0
+    """DC conductance across the part: 0 for a good capacitor; a shorted one on a board
+    as built under a fault hypothesis (:func:`reconcile.diagnosis.faults.as_built`).
+    Not a board-file key."""
 
     def __post_init__(self) -> None:
         _set(self, "nodes", tuple(self.nodes))

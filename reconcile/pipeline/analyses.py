@@ -28,10 +28,12 @@ from reconcile.data.readings import Reading
 from reconcile.inference.fitting import FitResult, fit_board
 from reconcile.model.board import Board
 from reconcile.pipeline.inputs import AnalysisInputs
-from reconcile.pipeline.policies import rework_warning
+from reconcile.pipeline.policies import rework_warning, working_hypothesis
 
 if TYPE_CHECKING:  # pragma: no cover
+    from reconcile.diagnosis.assumed import Assumption
     from reconcile.diagnosis.diagnose import Diagnosis
+    from reconcile.pipeline.repair import Repair
     from reconcile.trim.rework import TrimResult
 
 __all__ = [
@@ -51,14 +53,30 @@ Progress = Callable[[int, int], None] | None
 
 @dataclass(frozen=True)
 class FitOutcome:
-    """The fit, its error budget (None without a spec) and the suggested next readings."""
+    """The fit, its error budget (None without a spec) and the suggested next readings;
+    ``assumed`` is the hypothesis the board was fitted under (None: as drawn) and
+    ``source`` where it came from (``assumed``: ``--assume``; ``diagnosis``)."""
 
     fit: FitResult
     budget: ErrorBudget | None
     suggestions: list[Suggestion]
+    assumed: Assumption | None = None
+    source: str = "drawn"
+    probability: float | None = None
+
+    def assumed_dict(self) -> dict | None:
+        """The hypothesis fitted under, as the JSON names it (None: the board as drawn)."""
+        if self.assumed is None:
+            return None
+        from reconcile.pipeline.repair import hypothesis_dict
+
+        return hypothesis_dict(self.assumed, self.source, self.probability)
 
     def to_dict(self) -> dict:
+        from reconcile.pipeline.repair import hypothesis_json
+
         out = self.fit.to_dict()
+        out.update(hypothesis_json(self.assumed_dict()))
         out["error_budget"] = self.budget.to_dict() if self.budget is not None else None
         # the version-1 name, kept readable for one version (README: migration notes)
         out["miss_budget"] = out["error_budget"]
@@ -83,9 +101,17 @@ class TrimOutcome:
 
     result: TrimResult
     warning: str | None = None
+    repair: Repair | None = None
+    """Under a hypothesis, the repair that restores the drawn design: the first option;
+    ``result.baseline`` is then the board after it and ``result.options`` reworks of
+    the repaired board."""
 
     def to_dict(self) -> dict:
         out = self.result.to_dict()
+        from reconcile.pipeline.repair import hypothesis_json
+
+        out["repair"] = None if self.repair is None else self.repair.to_dict()
+        out.update(hypothesis_json(None if self.repair is None else self.repair.hypothesis_dict()))
         if self.warning is not None:
             out["warning"] = self.warning
         return out
@@ -102,10 +128,20 @@ class TrimOutcome:
         show(self, console)
 
 
-def run_fit(board: Board, readings: list[Reading], *, model_meter: bool = True) -> FitOutcome:
-    """Fit, then the error budget (when the board has a spec) and the next readings."""
-    result = fit_board(board, readings, model_meter=model_meter)
-    return FitOutcome(result, error_budget(result), suggest_next(result))
+def run_fit(
+    board: Board, readings: list[Reading], *, model_meter: bool = True,
+    assumed: Assumption | None = None, source: str = "assumed",
+    probability: float | None = None,
+) -> FitOutcome:
+    """Fit (the board as built under ``assumed``, when given), then the error budget
+    (when the board has a spec) and the next readings."""
+    if assumed is None:
+        result = fit_board(board, readings, model_meter=model_meter)
+        return FitOutcome(result, error_budget(result), suggest_next(result))
+    result = fit_board(assumed.board, readings, model_meter=model_meter,
+                       fixed=assumed.fixed, widened=assumed.widened)
+    return FitOutcome(result, error_budget(result), suggest_next(result), assumed, source,
+                      probability)
 
 
 def _need_readings(inputs: AnalysisInputs, step: str) -> list[Reading]:
@@ -117,9 +153,12 @@ def _need_readings(inputs: AnalysisInputs, step: str) -> list[Reading]:
 
 
 def fit_step(inputs: AnalysisInputs) -> FitOutcome:
-    """The fit with its error budget and next readings."""
+    """The fit with its error budget and next readings (under ``--assume``, of the board
+    as built under that hypothesis)."""
     readings = _need_readings(inputs, "fit")
-    return run_fit(inputs.board, readings, model_meter=inputs.options.model_meter)
+    assumed, source, _ = working_hypothesis(inputs.board, inputs.options.assume)
+    return run_fit(inputs.board, readings, model_meter=inputs.options.model_meter,
+                   assumed=assumed, source=source)
 
 
 def diagnose_step(inputs: AnalysisInputs, *, on_progress: Progress = None) -> Diagnosis:
@@ -142,28 +181,68 @@ def trim_step(
     fit: FitResult | None = _UNSET,
     *,
     diagnosis: Diagnosis | None = None,
+    working: FitOutcome | None = None,
 ) -> TrimOutcome:
     """Rework proposals from ``fit`` (fitted here when not given; design mode without
     readings), with the untrusted-fit warning of
-    :func:`~reconcile.pipeline.policies.rework_warning`."""
+    :func:`~reconcile.pipeline.policies.rework_warning`.
+
+    Under a hypothesis (``--assume``, or ``diagnosis`` decisive;
+    :func:`~reconcile.pipeline.policies.working_hypothesis`) the first option is its
+    repair and the options rework the repaired board (:mod:`reconcile.pipeline.repair`);
+    ``working`` is the fit under that hypothesis when already made."""
     import numpy as np
 
     from reconcile.trim.rework import trim
 
-    if fit is _UNSET:
-        fit = None if inputs.readings is None else fit_board(
-            inputs.board, inputs.reading_list(), model_meter=inputs.options.model_meter
-        )
     opts = inputs.options
+    if opts.assume and inputs.readings is None:
+        from reconcile.errors import InputError
+
+        raise InputError("--assume needs readings (a READINGS file or --session ID): it "
+                         "says how the board was built, and design mode trims the drawn one")
+    if working is None and inputs.readings is not None:
+        if diagnosis is None and not opts.assume:
+            fit, diagnosis = _drawn_fit_and_diagnosis(inputs, fit)
+        assumed, source, p = working_hypothesis(inputs.board, opts.assume, diagnosis)
+        if assumed is not None:
+            working = run_fit(inputs.board, inputs.reading_list(), model_meter=opts.model_meter,
+                              assumed=assumed, source=source, probability=p)
+    repair = start = None
+    if working is not None and working.assumed is not None:
+        from reconcile.pipeline.repair import repair_of, repaired_posterior
+
+        fit = working.fit
+        repair = repair_of(working.assumed, working.source, working.probability)
+        start = repaired_posterior(repair, fit)
+    elif fit is _UNSET:
+        fit = None if inputs.readings is None else fit_board(
+            inputs.board, inputs.reading_list(), model_meter=opts.model_meter
+        )
     result = trim(
         inputs.board,
-        fit,
+        start if start is not None else fit,
         max_changes=opts.max_changes,
         top=opts.top,
         samples=opts.trim_samples,
         rng=np.random.default_rng(opts.seed),
     )
-    return TrimOutcome(result, rework_warning(fit, diagnosis))
+    return TrimOutcome(result, rework_warning(fit, diagnosis), repair)
+
+
+def _drawn_fit_and_diagnosis(
+    inputs: AnalysisInputs, fit: FitResult | None
+) -> tuple[FitResult, Diagnosis | None]:
+    """The fit of the board as drawn (``fit``, or made here) and, when it does not
+    explain the readings, the diagnosis a trim then follows (policies.working_hypothesis)."""
+    from reconcile.pipeline.policies import TRUSTED_VERDICT
+
+    if fit is _UNSET or fit is None:
+        fit = fit_board(inputs.board, inputs.reading_list(),
+                        model_meter=inputs.options.model_meter)
+    if fit.verdict == TRUSTED_VERDICT:
+        return fit, None
+    return fit, diagnose_step(inputs)
 
 
 def wants_trim(board: Board) -> bool:
@@ -179,9 +258,20 @@ class Analysis:
     fit: FitOutcome
     diagnosis: Diagnosis
     trim: TrimOutcome | None = None
+    hypothesis_fit: FitOutcome | None = None
+    """The fit under the diagnosis' decisive leading hypothesis, when it was worked under
+    (:func:`~reconcile.pipeline.policies.working_hypothesis`) and ``fit`` is not."""
+
+    @property
+    def working_fit(self) -> FitOutcome:
+        """The fit the error budget, the report's sections and trim follow: under the
+        working hypothesis when there is one."""
+        return self.hypothesis_fit if self.hypothesis_fit is not None else self.fit
 
     def results(self) -> dict[str, dict]:
-        """Each step's result dictionary by record kind (``fit``, ``diagnose``, ``trim``)."""
+        """Each step's result dictionary by record kind (``fit``, ``diagnose``, ``trim``);
+        ``fit`` is the fit as asked for (the fit under a diagnosis' hypothesis is in
+        ``trim``'s ``assumed`` and the report)."""
         out = {"fit": self.fit.to_dict(), "diagnose": self.diagnosis.to_dict()}
         if self.trim is not None:
             out["trim"] = self.trim.to_dict()
@@ -231,8 +321,17 @@ def analyse(
     if diagnosis is None:
         stage("weighing the fault hypotheses")
     diag = diagnosis if diagnosis is not None else diagnose_step(inputs, on_progress=on_progress)
+    hypothesis_fit = None
+    if outcome.assumed is None:
+        assumed, source, p = working_hypothesis(inputs.board, inputs.options.assume, diag)
+        if assumed is not None:
+            stage(f"fitting the board as built under {assumed.label}")
+            hypothesis_fit = run_fit(
+                inputs.board, inputs.reading_list(), model_meter=inputs.options.model_meter,
+                assumed=assumed, source=source, probability=p)
+    working = hypothesis_fit or outcome
     trimmed = trim
     if trimmed is None and wants_trim(inputs.board):
         stage("searching reworks and their yield")
-        trimmed = trim_step(inputs, outcome.fit, diagnosis=diag)
-    return Analysis(inputs, outcome, diag, trimmed)
+        trimmed = trim_step(inputs, working.fit, diagnosis=diag, working=working)
+    return Analysis(inputs, outcome, diag, trimmed, hypothesis_fit)

@@ -30,7 +30,9 @@ class AnalysisOptions:
     """The settings of the pipeline's steps (each command's options map onto these).
 
     ``seed`` seeds the trim's Monte Carlo yield, so the same inputs and options give the
-    same rework options through every front end.
+    same rework options through every front end. ``assume`` holds the ``--assume``
+    texts: the hypothesis the board is analysed under
+    (:mod:`reconcile.diagnosis.assumed`).
     """
 
     model_meter: bool = True
@@ -40,6 +42,7 @@ class AnalysisOptions:
     top: int = 10
     trim_samples: int = 10_000
     seed: int = 0
+    assume: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -174,13 +177,20 @@ class AnalysisInputs:
 
     def record(self, kind: str, result: dict) -> dict | None:
         """Record ``result`` (what ``--json`` prints) with the session the inputs came
-        from; None (nothing recorded) for inputs from files or code."""
+        from, and the hypothesis it worked under (its ``assumed`` and ``hypothesis``,
+        stored in a column of their own); None (nothing recorded) for inputs from files or code."""
         if self.origin != "session" or self.session is None:
             return None
         digest = self.digest or ""
+        meta = result.get("hypothesis")
+        assumed = None if not result.get("assumed") or not isinstance(meta, dict) else {
+            "hypothesis": meta.get("label"), "faults": result["assumed"],
+            "source": meta.get("source"), "probability": meta.get("probability")}
         if hasattr(self.store, "record_analysis"):  # an open Store
-            analysis = self.store.record_analysis(self.session, kind, result, inputs_sha256=digest)
+            analysis = self.store.record_analysis(self.session, kind, result,
+                                                  inputs_sha256=digest, assumed=assumed)
             return {"session": self.session.strip().upper(), "analysis": analysis}
         from reconcile.store.sessions import record_analysis
 
-        return record_analysis(self.session, kind, result, inputs_sha256=digest, store=self.store)
+        return record_analysis(self.session, kind, result, inputs_sha256=digest,
+                               store=self.store, assumed=assumed)

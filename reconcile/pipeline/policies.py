@@ -4,6 +4,13 @@
   the readings (its verdict is not ``consistent``), the fitted board may be wrong in a
   way no tolerance covers (a fault), and a rework chosen for it may not restore the
   spec: the trim carries a warning, whichever front end ran it.
+- Which hypothesis an analysis works under (:func:`working_hypothesis`): the one the
+  user assumed (``--assume``); else the diagnosis' leading one when it is decisive
+  (:attr:`reconcile.diagnosis.diagnose.Diagnosis.decisive`: probability at least 0.9
+  and ``testable``) and not ``none``;
+  else none (the board as drawn). Under a hypothesis the board is fitted as built, the
+  error budget and the report's sections come from that fit, and trim's first option
+  repairs it (:mod:`reconcile.pipeline.repair`); each says which hypothesis it used.
 - The series resistor of the input-resistance reading enters with the uncertainty of
   its tolerance read as a rectangular distribution
   (:func:`reconcile.data.derived_readings.series_resistor_uncertainty`, re-exported
@@ -17,10 +24,17 @@ from typing import TYPE_CHECKING
 from reconcile.data.derived_readings import series_resistor_uncertainty
 
 if TYPE_CHECKING:  # pragma: no cover
+    from reconcile.diagnosis.assumed import Assumption
     from reconcile.diagnosis.diagnose import Diagnosis
     from reconcile.inference.fitting import FitResult
+    from reconcile.model.board import Board
 
-__all__ = ["TRUSTED_VERDICT", "rework_warning", "series_resistor_uncertainty"]
+__all__ = [
+    "TRUSTED_VERDICT",
+    "rework_warning",
+    "series_resistor_uncertainty",
+    "working_hypothesis",
+]
 
 TRUSTED_VERDICT = "consistent"
 """The one fit verdict a rework proposal is trusted from without a warning."""
@@ -45,3 +59,22 @@ def rework_warning(fit: FitResult | None, diagnosis: Diagnosis | None = None) ->
         text + f"; the diagnosis puts {top.label} first (probability {top.probability:.2f}): "
         "repair that and measure again before trusting a trim"
     )
+
+
+def working_hypothesis(
+    board: Board, assume: tuple[str, ...], diagnosis: Diagnosis | None = None
+) -> tuple[Assumption | None, str, float | None]:
+    """The hypothesis to work under, where it came from (``assumed``, ``diagnosis`` or
+    ``drawn``) and its probability (a diagnosis' only)."""
+    from reconcile.diagnosis.assumed import assumption_of, parse_assumptions
+
+    if assume:
+        return parse_assumptions(board, assume), "assumed", None
+    if diagnosis is None:
+        return None, "drawn", None
+    top = diagnosis.top
+    if top.fault == "none" or not diagnosis.decisive:
+        return None, "drawn", None
+    fitted = tuple((e["ref"], float(e["value"])) for e in top.faults
+                   if e["fault"] == "wrong-value" and e["value"] is not None)
+    return assumption_of(board, top.fit.fault.parts, fitted), "diagnosis", top.probability

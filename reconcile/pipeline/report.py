@@ -31,7 +31,9 @@ class ReportData:
     ``design``, ``trim_result`` and ``lot_result`` are the result objects the
     dictionaries came from (the figures are drawn from them); ``trim`` carries the
     pipeline's warning when the fit is not trusted; ``plots`` is filled by
-    :func:`reconcile.present.report.draw_figures`.
+    :func:`reconcile.present.report.draw_figures`. ``assumed`` names the hypothesis the
+    fit, budget, next readings and trim worked under (None: the board as drawn;
+    :func:`reconcile.pipeline.policies.working_hypothesis`).
     """
 
     board: Board
@@ -43,6 +45,7 @@ class ReportData:
     next_readings: list[dict] = field(default_factory=list)
     diagnosis: dict | None = None
     trim: dict | None = None
+    assumed: dict | None = None
     lot: dict | None = None
     plots: dict[str, bytes] = field(default_factory=dict)
     hashes: dict[str, str] = field(default_factory=dict)
@@ -115,10 +118,12 @@ def collect_report(
     if analysis is None:
         analysis = analyse(inputs, on_stage=on_stage)
     data.analysis = analysis
-    data.outcome = analysis.fit
-    data.fit = analysis.fit.fit.to_dict()
-    data.budget = analysis.fit.budget.to_dict() if analysis.fit.budget is not None else None
-    data.next_readings = [s.to_dict() for s in analysis.fit.suggestions]
+    working = analysis.working_fit  # under the working hypothesis, when there is one
+    data.outcome = working
+    data.assumed = working.assumed_dict()
+    data.fit = working.fit.to_dict()
+    data.budget = working.budget.to_dict() if working.budget is not None else None
+    data.next_readings = [s.to_dict() for s in working.suggestions]
     data.diagnosis = analysis.diagnosis.to_dict()
     if analysis.trim is not None:
         data.trim_result = analysis.trim.result

@@ -52,10 +52,12 @@ def _yield_text(option: TrimOption) -> str:
     return f"[{style}]{100 * option.yield_:.1f}%[/]"
 
 
-def trim_table(result: TrimResult, *, wide: bool = False) -> Table:
-    """One row for the board as it is, then one per option, best first. Compact (the
-    default, 80 columns): short quantity labels with the spec bands in the caption, the
-    margin alone, changes written short; ``wide``: the full table."""
+def trim_table(result: TrimResult, *, wide: bool = False,
+               repair: tuple[str, ...] | None = None) -> Table:
+    """One row for the board as it is (with ``repair``, the steps of a hypothesis'
+    repair: row ``R``, the board after it), then one per option, best first. Compact
+    (the default, 80 columns): short quantity labels with the spec bands in the caption,
+    the margin alone, changes written short; ``wide``: the full table."""
     quantities = list(result.baseline.predicted)
     mode = "fitted board" if result.mode == "fitted" else "board as drawn (design mode)"
     table = Table(
@@ -90,7 +92,11 @@ def trim_table(result: TrimResult, *, wide: bool = False) -> Table:
     def why(option: TrimOption) -> str:
         return "".join(f"\n[{STYLE_WARN}]{markup(p)}[/]" for p in option.problems)
 
-    row("", result.baseline, f"[{STYLE_DIM}]as it is[/]" + why(result.baseline))
+    if repair is None:
+        row("", result.baseline, f"[{STYLE_DIM}]as it is[/]" + why(result.baseline))
+    else:
+        steps = "\n".join(markup(s) for s in repair) or "nothing to repair"
+        row("R", result.baseline, f"[bold]{steps}[/]" + why(result.baseline))
     for i, option in enumerate(result.options, start=1):
         changes = "\n".join(describe_change(c, compact=not wide) for c in option.changes)
         row(str(i), option, changes + why(option))
@@ -105,10 +111,17 @@ def trim_table(result: TrimResult, *, wide: bool = False) -> Table:
 
 
 def print_trim(result: TrimResult, console: Console | None = None, *,
-               wide: bool = False) -> None:
-    """Print the options table and a one-line verdict."""
+               wide: bool = False, repair: tuple[str, ...] | None = None,
+               hypothesis: str | None = None) -> None:
+    """Print the options table and a one-line verdict; under a hypothesis, its repair
+    (``repair``: the steps) first, the options then rework the repaired board."""
     console = console or make_console()
-    console.print(trim_table(result, wide=wide))
+    if repair is not None:
+        console.print(
+            f"[bold]Under {markup(hypothesis or '')}:[/] first restore the drawn design "
+            "(row R: the board after that repair, predicted from the fit under this "
+            "hypothesis); the numbered options rework the repaired board.")
+    console.print(trim_table(result, wide=wide, repair=repair))
     costs = ", ".join(f"{k} {v:g}" for k, v in sorted(result.costs.items()))
     console.print(
         f"[{STYLE_DIM}]margin: distance to the nearer spec limit over the target at the predicted "
@@ -117,7 +130,8 @@ def print_trim(result: TrimResult, console: Console | None = None, *,
         f"{result.samples} draws; rework cost per part: {costs}[/]"
     )
     if not result.needed:
-        console.print(f"[{STYLE_OK}]The board as it is meets spec: no rework needed.[/]")
+        board = "The repaired board" if repair is not None else "The board as it is"
+        console.print(f"[{STYLE_OK}]{board} meets spec: no rework needed.[/]")
     elif result.best is None or not result.best.meets_spec:
         console.print(f"[{STYLE_BAD}]No option within the search meets spec.[/]")
     else:

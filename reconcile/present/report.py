@@ -230,6 +230,17 @@ def _readings_section(d: ReportData) -> str:
     ) + _img(d.plots.get("readings"), "readings against the fitted board")
 
 
+def _assumed_note(d: ReportData, what: str) -> str:
+    """One line saying which hypothesis ``what`` follows ("" for the board as drawn)."""
+    a = d.assumed
+    if not a:
+        return ""
+    where = "assumed (--assume)" if a["source"] == "assumed" else (
+        f"the diagnosis' decisive leader, probability {a['probability']:.2f}")
+    return (f'<p class="assumed">Under the hypothesis <b>{_e(a["hypothesis"])}</b> ({_e(where)}): '
+            f"{_e(what)}</p>")
+
+
 def _fit_section(d: ReportData) -> str:
     f = d.fit or {}
     rows = []
@@ -264,7 +275,8 @@ def _fit_section(d: ReportData) -> str:
             ["quantity", "at", "expected reduction"], nrows
         )
     return (
-        head
+        _assumed_note(d, "the board is fitted as built under it.")
+        + head
         + _table(["parameter", "nominal", "fitted ± 1σ", "in tolerance", "informed by"], rows)
         + _img(d.plots.get("fit"), "fit")
         + (_img(d.plots["bode"], "frequency response of the fitted board")
@@ -294,7 +306,8 @@ def _budget_section(d: ReportData) -> str:
             ]
         )
     return (
-        "<p>Shapley shares over the orders of substitution (design = the drawn board under "
+        _assumed_note(d, "the error budget is of the board as built under it.")
+        + "<p>Shapley shares over the orders of substitution (design = the drawn board under "
         "the exact model against the target); each share with its standard uncertainty "
         "(GUM 7.2.6 rounding).</p>"
         + _table(
@@ -331,6 +344,20 @@ def _trim_section(d: ReportData) -> str:
     if t is None:
         return "<p>The board has no [spec]: nothing to trim towards.</p>"
     rows = []
+    repair = t.get("repair")
+    if repair:
+        b = t["baseline"]
+        y = b.get("yield")
+        rows.append([
+            "<b>" + _e("first, restore the drawn design: " + (
+                "; ".join(step["text"] for step in repair["steps"]) or "nothing to repair"))
+            + "</b>",
+            _e(", ".join(f"{k} {numbers.si(v, 'Ω' if k.endswith('resistance') else '')}"
+                         for k, v in b["predicted"].items())),
+            f"{100 * (b.get('margin') or 0):+.1f}%",
+            '<span class="ok">yes</span>' if b["meets_spec"] else '<span class="bad">no</span>',
+            "–" if y is None else f"{100 * y:.1f}%",
+        ])
     for o in t.get("options", [])[:10]:
         change = (
             "; ".join(
@@ -356,8 +383,11 @@ def _trim_section(d: ReportData) -> str:
         )
     warning = t.get("warning")
     caution = "" if not warning else f'<p class="caution">Warning: {_e(warning)}</p>'
+    note = _assumed_note(d, "the first row repairs it; the options after it rework the "
+                         "repaired board.") if repair else ""
     return (
-        caution
+        note
+        + caution
         + f"<p>Search: {_e(t.get('search'))}, {t.get('evaluated')} boards evaluated. Power off "
         "before any rework; check the new part's rating.</p>"
         + _table(["change", "predicted", "margin", "meets spec", "yield"], rows)

@@ -126,8 +126,15 @@ def brief(obj: Any) -> str:
 
 
 def _print_fit_outcome(obj, console: Console | None) -> None:
+    from reconcile.present.console import make_console
+    from reconcile.present.escape import markup
     from reconcile.present.render_fit import print_fit
 
+    assumed = obj.assumed_dict()
+    if assumed is not None:
+        (console or make_console()).print(
+            f"[bold]Fitted as built under {markup(assumed['hypothesis'])}[/] "
+            f"({assumed['source']}): the error budget and next readings follow it.")
     print_fit(obj.fit, obj.budget, obj.suggestions, console)
 
 
@@ -145,7 +152,14 @@ def print_trim_outcome(obj, console: Console | None = None, *, wide: bool = Fals
     from reconcile.present.escape import markup
     from reconcile.present.render_trim import print_trim
 
-    print_trim(obj.result, console, wide=wide)
+    repair = obj.repair
+    if repair is None:
+        print_trim(obj.result, console, wide=wide)
+    else:
+        hypothesis = f"{repair.label} ({repair.source}" + (
+            "" if repair.probability is None else f", probability {repair.probability:.2f}") + ")"
+        print_trim(obj.result, console, wide=wide,
+                   repair=tuple(s["text"] for s in repair.steps), hypothesis=hypothesis)
     if obj.warning is not None:
         (console or make_console()).print(f"warning: {markup(obj.warning)}")
 
@@ -153,7 +167,7 @@ def print_trim_outcome(obj, console: Console | None = None, *, wide: bool = Fals
 def _print_analysis(obj, console: Console | None) -> None:
     from reconcile.present.render_diagnosis import print_diagnosis
 
-    _print_fit_outcome(obj.fit, console)
+    _print_fit_outcome(obj.working_fit, console)
     print_diagnosis(obj.diagnosis, console)
     if obj.trim is not None:
         print_trim_outcome(obj.trim, console)

@@ -60,6 +60,7 @@ from reconcile.store.schema import (
     T_READINGS,
     T_SESSIONS,
     _iso,
+    analysis_columns,
     reading_columns,
     utc_now,
 )
@@ -153,11 +154,14 @@ class AnalysisRecord:
     inputs_sha256: str
     created: str
     result: dict[str, Any] | None = None
+    assumed: dict[str, Any] | None = None
+    """The hypothesis the analysis worked under (None: the board as drawn)."""
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {
             "id": self.id, "kind": self.kind, "created": self.created,
             "tool_version": self.tool_version, "inputs_sha256": self.inputs_sha256,
+            "assumed": self.assumed,
         }
         if self.result is not None:
             out["result"] = self.result
@@ -650,11 +654,13 @@ class Store(Database):
         *,
         inputs_sha256: str,
         tool_version: str = __version__,
+        assumed: dict[str, Any] | None = None,
     ) -> int:
         """Record an analysis of a session; returns its id.
 
         ``result`` is the JSON object the analysis prints; ``inputs_sha256`` is
-        :func:`inputs_sha256` of the board and readings it was given.
+        :func:`inputs_sha256` of the board and readings it was given; ``assumed`` the
+        hypothesis it worked under (None: the board as drawn).
         """
         if kind not in ANALYSIS_KINDS:
             raise InputError(f"analysis kind {kind!r} is not one of {', '.join(ANALYSIS_KINDS)}")
@@ -662,13 +668,16 @@ class Store(Database):
 
         try:
             text = json.dumps(clean(result), allow_nan=False, ensure_ascii=False)
+            hypothesis = None if assumed is None else json.dumps(
+                clean(assumed), allow_nan=False, ensure_ascii=False)
         except (TypeError, ValueError) as exc:
             raise StoreError(f"the {kind} result cannot be stored as JSON: {exc}") from exc
         with self._write() as conn:
             sid, _ended = self._session_state(conn, session_id)
             return int(conn.execute(T_ANALYSES.insert().values(
                 session_id=sid, kind=kind, result=text, tool_version=tool_version,
-                inputs_sha256=inputs_sha256, created=utc_now())).inserted_primary_key[0])
+                inputs_sha256=inputs_sha256, created=utc_now(),
+                assumed=hypothesis)).inserted_primary_key[0])
 
     def analysis(self, analysis_id: int) -> AnalysisRecord:
         """One recorded analysis, with its result."""
@@ -677,7 +686,8 @@ class Store(Database):
                              key="analysis")
         with self._read() as conn:
             row = conn.execute(
-                sa.select(T_ANALYSES).where(T_ANALYSES.c.id == int(analysis_id))).first()
+                sa.select(*analysis_columns(self._version(conn)))
+                .where(T_ANALYSES.c.id == int(analysis_id))).first()
         if row is None:
             raise InputError(f"no analysis {analysis_id} in store {self.location}", key="analysis")
         return _analysis(row, with_result=True)
@@ -698,7 +708,7 @@ class Store(Database):
             row = conn.execute(_summary_query().where(T_SESSIONS.c.id == sid)).one()
             current, n_superseded = self._rows(conn, sid)
             analyses = conn.execute(
-                sa.select(*[c for c in T_ANALYSES.c if c.name != "result"])
+                sa.select(*analysis_columns(self._version(conn), with_result=False))
                 .where(T_ANALYSES.c.session_id == sid).order_by(T_ANALYSES.c.id)).all()
         return SessionView(
             summary=_summary(row), board_sha256=row.board_sha256, board_path=row.board_path,
@@ -764,4 +774,5 @@ def _analysis(row: Any, *, with_result: bool) -> AnalysisRecord:
     return AnalysisRecord(
         id=row.id, session=row.session_id, kind=row.kind, tool_version=row.tool_version,
         inputs_sha256=row.inputs_sha256, created=row.created,
-        result=json.loads(row.result) if with_result else None)
+        result=json.loads(row.result) if with_result else None,
+        assumed=None if getattr(row, "assumed", None) is None else json.loads(row.assumed))

@@ -17,6 +17,12 @@ small-signal reading; NULL for ``[signal] frequency``). Every stored row keeps i
 values (NULL there: what it meant before); a read-only open of an older store reads
 the readings without the column (:func:`reading_columns`).
 
+Version 4 adds the nullable column ``analyses.assumed``: the hypothesis an analysis
+worked under, as JSON (``{"hypothesis", "faults": [{"ref", "fault", "value"}],
+"source", "probability"}``, what the result's ``assumed`` holds); NULL for an analysis
+of the board as drawn, and for every analysis recorded before version 4. A read-only
+open of an older store reads analyses without it (:func:`analysis_columns`).
+
 Timestamps are UTC ISO-8601 strings with milliseconds (``2025-01-31T14:05:09.123Z``).
 """
 
@@ -33,7 +39,7 @@ from sqlalchemy.engine import Connection
 from reconcile.errors import InputError
 from reconcile.model.kinds import AnalysisKind
 
-SCHEMA_VERSION = 3
+SCHEMA_VERSION = 4
 """The newest schema this code knows; ``MIGRATIONS[i]`` brings a store to version i+1."""
 
 ANALYSIS_KINDS = typing.get_args(AnalysisKind)
@@ -202,14 +208,25 @@ def _define_v3(md: sa.MetaData) -> None:
         sa.Column("frequency", sa.Float(precision=53), nullable=True))
 
 
+def _migrate_to_4(conn: Connection) -> None:
+    # A nullable column again: every analysis row and the triggers stay as they are.
+    conn.exec_driver_sql("ALTER TABLE analyses ADD COLUMN assumed TEXT")
+
+
+def _define_v4(md: sa.MetaData) -> None:
+    """What schema version 4 adds to the tables (frozen)."""
+    md.tables["analyses"].append_column(sa.Column("assumed", sa.Text, nullable=True))
+
+
 MIGRATIONS: tuple[Callable[[Connection], None], ...] = (
-    _migrate_to_1, _migrate_to_2, _migrate_to_3)
+    _migrate_to_1, _migrate_to_2, _migrate_to_3, _migrate_to_4)
 """Schema migrations in order; each runs inside the one transaction that upgrades."""
 
 _MD = sa.MetaData()
 _define_v1(_MD)  # the tables queried by this code: the newest version's
 _define_v2(_MD)
 _define_v3(_MD)
+_define_v4(_MD)
 T_VERSION, T_BOARDS, T_SESSIONS, T_EVENTS, T_READINGS, T_ANALYSES, T_IMPORTS, T_IMPORT_ROWS = (
     _MD.tables[name] for name in _OUR_TABLES
 )
@@ -221,6 +238,13 @@ def reading_columns(version: int) -> list[sa.Column]:
     if version >= 3:
         return list(T_READINGS.c)
     return [c for c in T_READINGS.c if c.name != "frequency"]
+
+
+def analysis_columns(version: int, *, with_result: bool = True) -> list[sa.Column]:
+    """The columns of ``analyses`` a store of schema ``version`` holds (``with_result``
+    False: all but the result)."""
+    return [c for c in T_ANALYSES.c
+            if (version >= 4 or c.name != "assumed") and (with_result or c.name != "result")]
 
 
 # ---------------------------------------------------------------------------- values

@@ -175,7 +175,7 @@ def end_session(
 
 def show_analysis(analysis_id: int, *, store: StoreLocation = None) -> dict[str, Any]:
     """One recorded analysis with its result: ``{"id", "kind", "created", "tool_version",
-    "inputs_sha256", "result"}``."""
+    "inputs_sha256", "assumed", "result"}``."""
     with _open(store, read_only=True) as db:
         return db.analysis(analysis_id).to_dict()
 
@@ -199,11 +199,14 @@ def record_analysis(
     *,
     inputs_sha256: str,
     store: StoreLocation = None,
+    assumed: dict[str, Any] | None = None,
 ) -> dict[str, Any]:
-    """Record an analysis result (the object its ``--json`` prints) with a session.
+    """Record an analysis result (the object its ``--json`` prints) with a session, and
+    the hypothesis it worked under (``assumed``; None: the board as drawn).
 
     Returns ``{"session", "analysis": ID}``.
     """
     with _open(store) as db:
-        analysis_id = db.record_analysis(session_id, kind, result, inputs_sha256=inputs_sha256)
+        analysis_id = db.record_analysis(session_id, kind, result, inputs_sha256=inputs_sha256,
+                                         assumed=assumed)
     return {"session": session_id.strip().upper(), "analysis": analysis_id}
