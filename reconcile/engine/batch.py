@@ -90,9 +90,13 @@ def solve_batch(
     params: Parameters,
     initial: DCState | None = None,
     *,
-    small_signal: bool = True,
+    small_signal: bool | np.ndarray = True,
 ) -> BatchSolution:
-    """Solve every sample of ``params`` on ``circuit``."""
+    """Solve every sample of ``params`` on ``circuit``.
+
+    ``small_signal``: True for the small-signal results of every sample, False for none,
+    or an index array of the samples that need them (the rest are NaN; the linear model
+    still covers every sample)."""
     batch = _Batch(circuit, params)
     state = solve_dc(circuit, params, initial, batch=batch)
     v = state.v
@@ -111,9 +115,10 @@ def solve_batch(
         # The DC tie of floating nodes is not part of the board's small-signal model.
         jac_ff[:, batch.floating_rows, batch.floating_rows] -= FLOAT_SIEMENS
     linear = ss = None
-    if small_signal and circuit.input_node is not None and circuit.output_node is not None:
+    wanted = small_signal is not False and (small_signal is True or len(small_signal) > 0)
+    if wanted and circuit.input_node is not None and circuit.output_node is not None:
         linear = LinearModel(circuit, params, jac_ff, tr["gm"])
-        ss = linear.at_signal_frequency()
+        ss = _small_signal_of(linear, small_signal)
         if not np.all(state.converged):
             bad = ~state.converged
             for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
@@ -131,6 +136,22 @@ def solve_batch(
         small_signal=ss,
         linear=linear,
     )
+
+
+def _small_signal_of(linear: LinearModel, rows: bool | np.ndarray) -> SmallSignal:
+    """Small-signal results of every sample (``rows`` True) or of the samples ``rows``,
+    NaN elsewhere."""
+    if rows is True:
+        return linear.at_signal_frequency()
+    rows = np.asarray(rows, dtype=np.intp)
+    part = linear.take(rows).at_signal_frequency()
+    n = linear.params.n_samples
+    fields = {"frequency": linear.params.frequency.copy()}
+    for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
+        full = np.full(n, np.nan)
+        full[rows] = getattr(part, name)
+        fields[name] = full
+    return SmallSignal(**fields)
 
 
 def _final_linear_system(batch: _Batch, params: Parameters, vbe_n: np.ndarray,

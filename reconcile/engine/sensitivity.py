@@ -27,6 +27,15 @@ fields: ``resistor_ohms``, ``capacitor_leak_siemens``, ``supply_volts``, ``IS``,
 ``beta``, ``VA``, ``n`` (column = the part's index) and ``temperature`` (column 0).
 Derivatives are per external unit (per ohm, per ampere of IS, per kelvin...).
 
+A single linear function of the node voltages per sample, w·v (a voltmeter's reading
+between two nodes, one per probe board), needs one row of dv/dp only: the adjoint form
+
+    d(w·v)/dp = −λᵀ·(∂F/∂p + ∂F/∂v_fixed · dv_fixed/dp) + w_fixed · dv_fixed/dp,
+    Jᵀ·λ = w_free,
+
+one transposed solve per sample whatever the number of parameters
+(:func:`dc_functional_sensitivity`).
+
 Rows are processed in chunks under the memory budget (:mod:`reconcile.engine.budget`).
 """
 
@@ -139,6 +148,70 @@ def dc_sensitivity(
     return DCSensitivity(columns=cols, node_v=out_v, supply_current=out_s, resistor_current=out_r)
 
 
+def dc_functional_sensitivity(
+    circuit: Circuit,
+    params: Parameters,
+    state: DCState,
+    weights: np.ndarray,
+    columns: tuple[tuple[str, int], ...] | None = None,
+) -> np.ndarray:
+    """d(weights·v)/dp (N, P) of every sample at ``state``, ``weights`` (N, n_nodes + 1)
+    one linear function of the node voltages per sample, by the adjoint form (module
+    docstring); rows whose solve did not converge are NaN."""
+    cols = all_columns(circuit) if columns is None else tuple(columns)
+    n, p = params.n_samples, len(cols)
+    out = np.empty((n, p))
+    rows = rows_per_chunk(_bytes_per_row(circuit, p), share=0.5)
+    for sl in chunks(n, rows):
+        sub = params.take(sl)
+        st = DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
+                     iterations=state.iterations[sl])
+        out[sl] = _functional_chunk(circuit, sub, st, np.asarray(weights[sl], float), cols)
+    return out
+
+
+def _functional_chunk(circuit: Circuit, params: Parameters, state: DCState,
+                      weights: np.ndarray, cols) -> np.ndarray:
+    v = np.array(state.v, dtype=float)
+    v[:, circuit.gnd] = 0.0
+    g = np.concatenate(
+        [1.0 / params.resistor_ohms, params.capacitor_leak_siemens, params.probe_siemens], axis=1
+    )
+    dfdp, dv_fixed = _parameter_partials(circuit, params, v, g, cols)
+    free = circuit.free
+    fixed = circuit.supply_nodes.astype(np.intp)
+    w = weights.copy()
+    if len(circuit.dc_floating):
+        w[:, circuit.dc_floating] = 0.0  # no DC voltage to speak of
+    out = np.einsum("ni,nip->np", w[:, fixed], dv_fixed[:, fixed, :])
+    if len(free):
+        j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
+        rhs = dfdp[:, free, :]
+        if len(fixed):
+            j_rows = _node_rows(circuit, params, v, g)
+            rhs = rhs + np.einsum("nij,njp->nip", j_rows[:, free][:, :, fixed],
+                                  dv_fixed[:, fixed, :])
+        with np.errstate(all="ignore"):
+            lam = _solve_each(np.swapaxes(j_free, 1, 2), w[:, free, None])[:, :, 0]
+        out -= np.einsum("ni,nip->np", lam, rhs)
+    out[~np.asarray(state.converged, dtype=bool)] = np.nan
+    return out
+
+
+def _solve_each(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Batched a⁻¹·b, sample by sample where the batch has a singular matrix (NaN)."""
+    try:
+        return np.linalg.solve(a, b)
+    except np.linalg.LinAlgError:
+        out = np.full(b.shape, np.nan)
+        for i in range(a.shape[0]):
+            try:
+                out[i] = np.linalg.solve(a[i], b[i])
+            except np.linalg.LinAlgError:
+                pass
+        return out
+
+
 def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
     v = np.array(state.v, dtype=float)
     v[:, circuit.gnd] = 0.0
@@ -209,12 +282,11 @@ def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarra
     branch = circuit.branch_nodes
     q = circuit.transistor_nodes
     j_rows = np.zeros((n, size, size))
-    inc = np.zeros((len(branch), size))
-    if len(branch):
-        rb = np.arange(len(branch))
-        inc[rb, branch[:, 0]] += 1.0
-        inc[rb, branch[:, 1]] -= 1.0
-    j_rows += np.einsum("bi,nb,bj->nij", inc, g, inc, optimize=True)
+    if len(branch):  # g·(v_a − v_b) into F_a, its negative into F_b, branch by branch
+        a, b = branch[:, 0], branch[:, 1]
+        flat = j_rows.reshape(n, size * size)
+        for rows, cols, sign in ((a, a, 1.0), (b, b, 1.0), (a, b, -1.0), (b, a, -1.0)):
+            np.add.at(flat.T, rows * size + cols, sign * g.T)
     if len(q):
         vbe, vbc = _junction_voltages(circuit, v)
         t_ = params.temperature[:, None]

@@ -23,6 +23,14 @@ temperature (see :mod:`reconcile.priors`) and is not predicted.
 For M parameter vectors the model runs one engine call of M·(1 + K) boards, K being the
 number of distinct probe positions: row 0 of each group is the board alone, row k the
 board with probe k attached.
+
+The Jacobian (:meth:`MeasurementModel.jacobian`) is analytic for every DC reading and
+every part read out of circuit (:mod:`reconcile.inference.dc_jacobian`: the engine's
+implicit-function sensitivities of the one solved group, taken to the internal
+coordinates by the chain rule), and for the calibration factors' columns. Small-signal
+rows (gain, input and output resistance, at any frequency) stay forward differences:
+one batched engine call of the board alone (no probe boards) at P_board + 1 vectors,
+warm-started from the solved point.
 """
 
 from __future__ import annotations
@@ -37,6 +45,7 @@ from reconcile.engine import BatchSolution, DCState, compile_board, nominal_para
 from reconcile.engine.batch import bytes_per_board
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.inference.calibration import calibration_map
+from reconcile.inference.dc_jacobian import analytic_rows, apply_calibration, dc_jacobian
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
@@ -117,12 +126,16 @@ class MeasurementModel:
         self.group = 1 + len(self.probes)
         self.base = nominal_parameters(self.circuit, 1)
         self._state: DCState | None = None
+        self._last: tuple[bytes, BatchSolution] | None = None
         #: distinct frequencies small-signal readings were taken at (other than [signal])
         self.frequencies = tuple(sorted({ob.frequency for ob in observations
                                          if ob.quantity in SMALL_SIGNAL
                                          and ob.frequency is not None}))
-        self._plan = [self._plan_one(ob) for ob in observations]
-        self._calibration, self._random_u = calibration_map(
+        self.plan = [self._plan_one(ob) for ob in observations]
+        #: readings with small-signal predictions (indices into the observations)
+        self._signal_plan = [k for k, (kind, _, _) in enumerate(self.plan)
+                             if kind in ("small_signal", "small_signal_at")]
+        self.calibration_index, self._random_u = calibration_map(
             self.space, [ob.reading for ob in observations],
             np.array([ob.uncertainty for ob in observations], dtype=float),
         )
@@ -180,8 +193,20 @@ class MeasurementModel:
             p = p.with_values(probe_siemens=probe)
         return p
 
+    def _signal_rows(self, m: int) -> np.ndarray:
+        """Rows of M groups whose small-signal results a prediction reads: the board
+        alone of each group, or none without small-signal readings."""
+        if not self._signal_plan:
+            return np.zeros(0, dtype=np.intp)
+        return np.arange(m) * self.group
+
     def solve(self, x: np.ndarray, *, warm: bool = True) -> BatchSolution:
-        """The engine solution for M internal vectors (M·group rows)."""
+        """The engine solution for M internal vectors (M·group rows); the last solve of
+        one vector is kept and returned again for the same vector (the fit asks for
+        the residuals, then the Jacobian, at the same point)."""
+        x = np.atleast_2d(np.asarray(x, dtype=float))
+        if x.shape[0] == 1 and self._last is not None and self._last[0] == x.tobytes():
+            return self._last[1]
         params = self.parameters(x)
         initial = None
         if warm and self._state is not None:
@@ -197,7 +222,10 @@ class MeasurementModel:
                     )
                 else:
                     initial = None
-        sol = solve_batch(self.circuit, params, initial)
+        sol = solve_batch(self.circuit, params, initial,
+                          small_signal=self._signal_rows(x.shape[0]))
+        if x.shape[0] == 1:
+            self._last = (x.tobytes(), sol)
         if x.shape[0] == 1 or self._state is None:
             self._state = DCState(
                 v=sol.state.v[: self.group].copy(),
@@ -218,10 +246,10 @@ class MeasurementModel:
         ext = self.space.external(x)
         out = np.empty((m, len(self.observations)))
         base_rows = np.arange(m) * self.group
-        at_freq = None
-        if self.frequencies and sol.linear is not None:  # (m, F): the board alone
-            at_freq = sol.linear.take(base_rows).response(np.array(self.frequencies))
-        for k, (kind, row, what) in enumerate(self._plan):
+        if self._signal_plan:
+            out[:, self._signal_plan] = self._small_signal_values(sol, base_rows,
+                                                                  self._signal_plan)
+        for k, (kind, row, what) in enumerate(self.plan):
             rows = base_rows + row
             if kind == "voltage":
                 a, b = what
@@ -232,37 +260,87 @@ class MeasurementModel:
                 out[:, k] = sol.supply_current[rows, what]
             elif kind == "resistor_current":
                 out[:, k] = sol.resistor_current[rows, what]
-            elif kind == "small_signal":
-                out[:, k] = getattr(sol.small_signal, what)[rows]
-            elif kind == "small_signal_at":
-                name, j = what
-                out[:, k] = getattr(at_freq, name)[:, j]
             elif kind == "parameter":
                 out[:, k] = ext[:, what]
-            else:
+            elif kind == "fixed":
                 name, col = what
                 out[:, k] = getattr(self.base, name)[0, col]
-        scaled = self._calibration >= 0
+        scaled = self.calibration_index >= 0
         if scaled.any():
-            out[:, scaled] *= ext[:, self._calibration[scaled]]
+            out[:, scaled] *= ext[:, self.calibration_index[scaled]]
         bad = ~sol.converged.reshape(m, self.group).all(axis=1)
         out[bad] = np.nan
         return out
 
+    def _small_signal_values(self, sol: BatchSolution, base_rows: np.ndarray,
+                             rows: list[int]) -> np.ndarray:
+        """Raw predictions (M, len(rows)) of the small-signal readings ``rows`` from
+        the boards ``base_rows`` of ``sol`` (each the board alone)."""
+        out = np.empty((len(base_rows), len(rows)))
+        at_freq = None
+        if self.frequencies and sol.linear is not None:  # (M, F): the board alone
+            at_freq = sol.linear.take(base_rows).response(np.array(self.frequencies))
+        for i, k in enumerate(rows):
+            kind, _, what = self.plan[k]
+            if kind == "small_signal":
+                out[:, i] = getattr(sol.small_signal, what)[base_rows]
+            else:
+                name, j = what
+                out[:, i] = getattr(at_freq, name)[:, j]
+        return out
+
     def jacobian(self, x: np.ndarray, *, step: float = 1e-6) -> tuple[np.ndarray, np.ndarray]:
-        """Predictions at x (R,) and their forward-difference Jacobian (R, P) in
-        internal coordinates, from one batched engine call."""
+        """Predictions at x (R,) and their Jacobian (R, P) in internal coordinates.
+
+        DC rows and parts read out of circuit are analytic, from the one engine solve of
+        the predictions (:mod:`reconcile.inference.dc_jacobian`); small-signal rows, if
+        any, are forward differences of ``step`` (:meth:`small_signal_differences`);
+        calibration columns are exact (a scaled reading is linear in its factor)."""
         x = np.asarray(x, dtype=float).ravel()
-        p = x.size
-        h = np.full(p, step)
+        sol = self.solve(x[None, :])
+        f0 = self.predict(x[None, :], solution=sol)[0]
+        jac = dc_jacobian(self, x, sol)
+        numeric = ~analytic_rows(self)
+        if numeric.any():
+            jac[numeric] = self.small_signal_differences(x, sol, step=step)[numeric]
+        apply_calibration(self, x, f0, jac)
+        bad = ~np.isfinite(f0)
+        jac[bad] = np.nan
+        return f0, jac
+
+    def _steps(self, x: np.ndarray, step: float) -> np.ndarray:
+        """Forward-difference step of each internal coordinate."""
+        h = np.full(x.size, step)
         for j, fp in enumerate(self.space.parameters):
             if fp.kind == "temperature":
                 h[j] = 1e-4
             elif fp.kind == "supply":
                 h[j] = step * max(1.0, abs(x[j]))
-        xs = np.repeat(x[None, :], p + 1, axis=0)
-        xs[1:][np.arange(p), np.arange(p)] += h
-        pred = self.predict(xs)
-        f0 = pred[0]
-        jac = (pred[1:] - f0[None, :]) / h[:, None]
-        return f0, jac.T
+        return h
+
+    def small_signal_differences(self, x: np.ndarray, solution: BatchSolution, *,
+                                 step: float = 1e-6) -> np.ndarray:
+        """Forward-difference rows (R, P) of the raw (unscaled) small-signal predictions
+        at x; other rows and the calibration columns are zero. The board alone is solved
+        at x and at x + h·e_j for every board parameter j, in one batched call (chunked
+        under the memory budget), seeded from ``solution`` (the model's solve at x)."""
+        x = np.asarray(x, dtype=float).ravel()
+        cols = np.array([j for j, fp in enumerate(self.space.parameters)
+                         if fp.kind != "calibration"], dtype=np.intp)
+        h = self._steps(x, step)[cols]
+        xs = np.repeat(x[None, :], cols.size + 1, axis=0)
+        xs[1 + np.arange(cols.size), cols] += h
+        st = solution.state
+        seed = DCState(v=st.v[:1], vj=st.vj[:1], converged=st.converged[:1],
+                       iterations=st.iterations[:1],
+                       is_t=None if st.is_t is None else st.is_t[:1])
+        rows = self._signal_plan
+        values = np.empty((xs.shape[0], len(rows)))
+        step_rows = rows_per_chunk(bytes_per_board(self.circuit), share=0.5)
+        for sl in chunks(xs.shape[0], step_rows):
+            sol = solve_batch(self.circuit, self.space.to_parameters(xs[sl], self.base), seed)
+            values[sl] = self._small_signal_values(sol, np.arange(sl.stop - sl.start), rows)
+            values[sl][~sol.converged] = np.nan
+        jac = np.zeros((len(self.observations), x.size))
+        jac[np.ix_(rows, cols)] = ((values[1:] - values[0]) / h[:, None]).T
+        return jac

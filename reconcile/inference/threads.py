@@ -5,16 +5,28 @@ posterior covariance). OpenBLAS starts one thread per core for them, and on a sm
 busy machine the threads cost more than they save: on a 2-core machine an 8-stage fit
 ran 2.9× faster on one thread (measured in this project). ``threadpoolctl`` sets the
 BLAS library's thread count for a block and puts it back afterwards, which environment
-variables set in a running process cannot do. ``RECONCILE_BLAS_THREADS=N`` gives the
+variables set in a running process cannot do. The libraries are looked up once per
+process. ``RECONCILE_BLAS_THREADS=N`` gives the
 fits N threads instead.
 """
 
 from __future__ import annotations
 
 import contextlib
+import functools
 import os
 
 ENVIRONMENT = "RECONCILE_BLAS_THREADS"
+
+
+@functools.cache
+def _controller():
+    """One ``ThreadpoolController`` per process: finding the loaded BLAS libraries takes
+    tens of milliseconds, longer than a small fit; numpy's and scipy's are loaded by the
+    first fit."""
+    from threadpoolctl import ThreadpoolController
+
+    return ThreadpoolController()
 
 
 class small_problem_threads(contextlib.ContextDecorator):  # noqa: N801 - used like a function
@@ -25,11 +37,9 @@ class small_problem_threads(contextlib.ContextDecorator):  # noqa: N801 - used l
         return type(self)()
 
     def __enter__(self):
-        from threadpoolctl import threadpool_limits
-
         text = os.environ.get(ENVIRONMENT, "").strip()
         threads = int(text) if text.isdigit() and int(text) > 0 else 1
-        self._limits = threadpool_limits(limits=threads, user_api="blas")
+        self._limits = _controller().limit(limits=threads, user_api="blas")
         return self
 
     def __exit__(self, *exc) -> bool:

@@ -1,0 +1,161 @@
+"""Analytic Jacobian of the DC readings in the fit's internal coordinates.
+
+The measurement model (:mod:`reconcile.inference.measure`) predicts DC voltages (with
+the voltmeter attached), supply currents and resistor currents from one engine solve of
+the board and one board per probe position. Their derivatives come from that same
+solve: :func:`reconcile.engine.sensitivity.dc_sensitivity` gives d(reading)/d(engine
+parameter) by the implicit function theorem for the board alone, and
+:func:`~reconcile.engine.sensitivity.dc_functional_sensitivity` the row of each voltage
+read with the meter attached from its own probe board (one adjoint solve each); the
+chain rule takes them to the internal coordinates of
+:class:`~reconcile.inference.priors.ParameterSpace`:
+
+    d(reading)/dx_j = d(reading)/d(external_j) · d(external_j)/dx_j,
+
+the slope being ``FreeParameter.external_slope`` (e^x for ln R, ln 10·10^x for
+log10 IS, 1 for a supply's volts, n or the temperature). A part read out of circuit is
+that parameter: its row is the slope. Capacitances do not move the DC solution (their
+columns are zero here), and a calibration factor does not touch the board: the rows
+returned are those of the raw, unscaled predictions, and
+:func:`apply_calibration` then scales each row of a reading predicted times its
+instrument's factor c (c·df/dx) and fills the factor's own column (f·dc/dx).
+
+Small-signal readings (gain, input and output resistance) are not covered here: their
+rows are zero, and :meth:`MeasurementModel.jacobian` fills them by forward differences.
+"""
+
+from __future__ import annotations
+
+from typing import Protocol
+
+import numpy as np
+
+from reconcile.engine import BatchSolution
+from reconcile.engine.dc import DCState
+from reconcile.engine.sensitivity import dc_functional_sensitivity, dc_sensitivity
+from reconcile.engine.circuit import Circuit, Parameters
+from reconcile.inference.priors import ParameterSpace
+
+
+class MeasurementModel(Protocol):
+    """What this module reads of :class:`reconcile.inference.measure.MeasurementModel`
+    (a protocol, so the model can import this module without a cycle)."""
+
+    circuit: Circuit
+    space: ParameterSpace
+    plan: list[tuple[str, int, object]]
+    probes: tuple[tuple[str, str], ...]
+    observations: list
+    calibration_index: np.ndarray
+
+    def parameters(self, x: np.ndarray) -> Parameters: ...
+
+#: parameter kinds whose external value is an engine DC parameter, and its field
+DC_FIELD = {"resistor": "resistor_ohms", "supply": "supply_volts", "IS": "IS",
+            "beta": "beta", "VA": "VA", "n": "n", "temperature": "temperature"}
+#: measurement-plan kinds whose rows are solved analytically here
+ANALYTIC_KINDS = frozenset({"voltage", "supply_current", "resistor_current", "parameter",
+                            "fixed"})
+#: plan kinds read from the engine's DC solution (the rest are parameters or constants)
+DC_KINDS = frozenset({"voltage", "supply_current", "resistor_current"})
+
+
+def analytic_rows(model: MeasurementModel) -> np.ndarray:
+    """Mask (R,) of the readings whose Jacobian rows are analytic."""
+    return np.array([kind in ANALYTIC_KINDS for kind, _, _ in model.plan], dtype=bool)
+
+
+def _engine_columns(model: MeasurementModel) -> tuple[list[tuple[str, int]], np.ndarray]:
+    """Engine columns of the space's DC parameters and their indices in the space."""
+    cols, owners = [], []
+    for j, fp in enumerate(model.space.parameters):
+        field = DC_FIELD.get(fp.kind)
+        if field is not None:
+            cols.append((field, 0 if fp.kind == "temperature" else fp.column))
+            owners.append(j)
+    return cols, np.array(owners, dtype=np.intp)
+
+
+def _row_derivative(model: MeasurementModel, sens, kind: str, what) -> np.ndarray:
+    """d(raw prediction)/d(engine columns) of one DC reading of the board alone."""
+    if kind == "voltage":
+        a, b = what
+        n_nodes = model.circuit.n_nodes
+        zero = np.zeros(sens.node_v.shape[2])
+        da = sens.node_v[0, a] if a < n_nodes else zero
+        db = sens.node_v[0, b] if b < n_nodes else zero
+        return da - db
+    if kind == "supply_current":
+        return sens.supply_current[0, what]
+    return sens.resistor_current[0, what]
+
+
+def _probe_derivatives(model: MeasurementModel, solution: BatchSolution, x: np.ndarray,
+                       cols: tuple[tuple[str, int], ...]) -> np.ndarray:
+    """d(V(a) − V(b))/d(engine columns) (K, C) on each probe board k, its own probe's
+    two nodes, by the adjoint form (one transposed solve per probe board)."""
+    c = model.circuit
+    k = len(model.probes)
+    weights = np.zeros((k, c.n_nodes + 1))
+    for i, (a, b) in enumerate(model.probes):
+        weights[i, c.node_index(a)] += 1.0
+        weights[i, c.node_index(b)] -= 1.0
+    weights[:, c.gnd] = 0.0
+    rows = np.arange(1, 1 + k)
+    st = solution.state
+    state = DCState(v=st.v[rows], vj=st.vj[rows], converged=st.converged[rows],
+                    iterations=st.iterations[rows])
+    params = model.parameters(x[None, :]).take(rows)
+    return dc_functional_sensitivity(c, params, state, weights, cols)
+
+
+def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution) -> np.ndarray:
+    """The Jacobian (R, P) of the raw (unscaled) predictions at internal x (P,), analytic
+    in the rows of :func:`analytic_rows` (other rows zero); ``solution`` is the model's
+    engine solution at x (one group of boards).
+
+    Readings of the board alone (currents, voltages when the meter is not modelled) take
+    their rows from the forward sensitivities of that one board; a voltage read with
+    the meter attached is the one function V(a) − V(b) of its probe board, whose row
+    comes from one adjoint solve of that board."""
+    x = np.asarray(x, dtype=float).ravel()
+    slope = np.array([fp.external_slope(float(x[j]))
+                      for j, fp in enumerate(model.space.parameters)])
+    jac = np.zeros((len(model.observations), x.size))
+    cols, owners = _engine_columns(model)
+    cols = tuple(cols)
+    plan = model.plan
+    base = [k for k, (kind, row, _) in enumerate(plan) if kind in DC_KINDS and row == 0]
+    probed = [k for k, (kind, row, _) in enumerate(plan) if kind == "voltage" and row > 0]
+    if cols and base:
+        sens = dc_sensitivity(model.circuit, model.parameters(x[None, :]).take(slice(0, 1)),
+                              _first(solution.state), cols)
+        for k in base:
+            kind, _, what = plan[k]
+            jac[k, owners] = _row_derivative(model, sens, kind, what) * slope[owners]
+    if cols and probed:
+        d_probe = _probe_derivatives(model, solution, x, cols)
+        for k in probed:
+            jac[k, owners] = d_probe[plan[k][1] - 1] * slope[owners]
+    for k, (kind, _, what) in enumerate(plan):
+        if kind == "parameter":
+            jac[k, what] = slope[what]
+    return jac
+
+
+def _first(state: DCState) -> DCState:
+    """The first sample of a solved state (the board alone in the model's group)."""
+    return DCState(v=state.v[:1], vj=state.vj[:1], converged=state.converged[:1],
+                   iterations=state.iterations[:1])
+
+
+def apply_calibration(model: MeasurementModel, x: np.ndarray, f0: np.ndarray,
+                      jac: np.ndarray) -> None:
+    """Rows of readings predicted times a calibration factor c, in place: c·df/dx, and
+    f·dc/dx = f0 (the scaled prediction, since dc/d(ln c) = c) in the factor's column."""
+    cal = model.calibration_index
+    ext = model.space.external(np.asarray(x, dtype=float)[None, :])[0]
+    for k in np.flatnonzero(cal >= 0):
+        c = cal[k]
+        jac[k] *= ext[c]
+        jac[k, c] = f0[k]
