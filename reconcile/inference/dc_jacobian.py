@@ -109,10 +109,12 @@ def _probe_derivatives(model: MeasurementModel, solution: BatchSolution, x: np.n
     return dc_functional_sensitivity(c, params, state, weights, cols)
 
 
-def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution) -> np.ndarray:
+def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution, *,
+                node_derivatives: bool = False) -> tuple[np.ndarray, np.ndarray | None]:
     """The Jacobian (R, P) of the raw (unscaled) predictions at internal x (P,), analytic
     in the rows of :func:`analytic_rows` (other rows zero); ``solution`` is the model's
-    engine solution at x (one group of boards).
+    engine solution at x (one group of boards). With ``node_derivatives``, also
+    dV/dx (n_nodes + 1, P) of every node of the board alone (gnd last, 0), else None.
 
     Readings of the board alone (currents, voltages when the meter is not modelled) take
     their rows from the forward sensitivities of that one board; a voltage read with
@@ -127,12 +129,17 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution)
     plan = model.plan
     base = [k for k, (kind, row, _) in enumerate(plan) if kind in DC_KINDS and row == 0]
     probed = [k for k, (kind, row, _) in enumerate(plan) if kind == "voltage" and row > 0]
-    if cols and base:
+    dv = None
+    if node_derivatives:
+        dv = np.zeros((model.circuit.n_nodes + 1, x.size))
+    if cols and (base or node_derivatives):
         sens = dc_sensitivity(model.circuit, model.parameters(x[None, :]).take(slice(0, 1)),
                               _first(solution.state), cols)
         for k in base:
             kind, _, what = plan[k]
             jac[k, owners] = _row_derivative(model, sens, kind, what) * slope[owners]
+        if dv is not None:
+            dv[:-1, owners] = sens.node_v[0] * slope[owners]
     if cols and probed:
         d_probe = _probe_derivatives(model, solution, x, cols)
         for k in probed:
@@ -140,7 +147,7 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution)
     for k, (kind, _, what) in enumerate(plan):
         if kind == "parameter":
             jac[k, what] = slope[what]
-    return jac
+    return jac, dv
 
 
 def _first(state: DCState) -> DCState:

@@ -4,7 +4,9 @@ The only module that imports lmfit. The objective is the weighted residual of ev
 reading, (predicted − measured)/u, stacked with one prior row per free parameter,
 (x − prior mean)/prior sd (see :mod:`reconcile.priors`). lmfit's ``least_squares``
 method (scipy's trust-region reflective, with the hard bounds native) minimises it; the
-Jacobian comes from one batched engine call per step (:meth:`MeasurementModel.jacobian`).
+Jacobian is the measurement model's (:meth:`MeasurementModel.jacobian`): analytic for the
+DC readings, from the solve the residuals already made at that point, and forward
+differences of the board alone for small-signal readings.
 ``scale_covar=False``: the uncertainties are real, so the covariance is inv(JᵀJ) of the
 whole weighted system, unscaled — the linearised posterior.
 

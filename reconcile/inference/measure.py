@@ -299,10 +299,10 @@ class MeasurementModel:
         x = np.asarray(x, dtype=float).ravel()
         sol = self.solve(x[None, :])
         f0 = self.predict(x[None, :], solution=sol)[0]
-        jac = dc_jacobian(self, x, sol)
         numeric = ~analytic_rows(self)
+        jac, dv = dc_jacobian(self, x, sol, node_derivatives=bool(numeric.any()))
         if numeric.any():
-            jac[numeric] = self.small_signal_differences(x, sol, step=step)[numeric]
+            jac[numeric] = self.small_signal_differences(x, sol, dv, step=step)[numeric]
         apply_calibration(self, x, f0, jac)
         bad = ~np.isfinite(f0)
         jac[bad] = np.nan
@@ -318,27 +318,51 @@ class MeasurementModel:
                 h[j] = step * max(1.0, abs(x[j]))
         return h
 
-    def small_signal_differences(self, x: np.ndarray, solution: BatchSolution, *,
+    def _seed(self, solution: BatchSolution, cols: np.ndarray, h: np.ndarray,
+              node_derivatives: np.ndarray | None) -> DCState:
+        """Starting points of the board alone at x and x + h·e_j (see
+        :meth:`small_signal_differences`): one shared, or one linearised per vector."""
+        st = solution.state
+        if node_derivatives is None:
+            return DCState(v=st.v[:1], vj=st.vj[:1], converged=st.converged[:1],
+                           iterations=st.iterations[:1],
+                           is_t=None if st.is_t is None else st.is_t[:1])
+        v = np.repeat(st.v[:1], cols.size + 1, axis=0)
+        v[1:] += (node_derivatives[:, cols] * h[None, :]).T
+        q, pol = self.circuit.transistor_nodes, self.circuit.polarity
+        vj = np.empty((v.shape[0], len(pol), 2))
+        if len(pol):
+            vj[:, :, 0] = pol * (v[:, q[:, 1]] - v[:, q[:, 2]])
+            vj[:, :, 1] = pol * (v[:, q[:, 1]] - v[:, q[:, 0]])
+        n = v.shape[0]
+        return DCState(v=v, vj=vj, converged=np.ones(n, dtype=bool),
+                       iterations=np.zeros(n, dtype=np.int64))
+
+    def small_signal_differences(self, x: np.ndarray, solution: BatchSolution,
+                                 node_derivatives: np.ndarray | None = None, *,
                                  step: float = 1e-6) -> np.ndarray:
         """Forward-difference rows (R, P) of the raw (unscaled) small-signal predictions
         at x; other rows and the calibration columns are zero. The board alone is solved
         at x and at x + h·e_j for every board parameter j, in one batched call (chunked
-        under the memory budget), seeded from ``solution`` (the model's solve at x)."""
+        under the memory budget), seeded from ``solution`` (the model's solve at x) or,
+        given ``node_derivatives`` (dV/dx of the board alone, n_nodes + 1 by P), each
+        from its linearised operating point V + h·dV/dx_j, so Newton starts converged
+        to first order."""
         x = np.asarray(x, dtype=float).ravel()
         cols = np.array([j for j, fp in enumerate(self.space.parameters)
                          if fp.kind != "calibration"], dtype=np.intp)
         h = self._steps(x, step)[cols]
         xs = np.repeat(x[None, :], cols.size + 1, axis=0)
         xs[1 + np.arange(cols.size), cols] += h
-        st = solution.state
-        seed = DCState(v=st.v[:1], vj=st.vj[:1], converged=st.converged[:1],
-                       iterations=st.iterations[:1],
-                       is_t=None if st.is_t is None else st.is_t[:1])
+        seed = self._seed(solution, cols, h, node_derivatives)
         rows = self._signal_plan
         values = np.empty((xs.shape[0], len(rows)))
         step_rows = rows_per_chunk(bytes_per_board(self.circuit), share=0.5)
         for sl in chunks(xs.shape[0], step_rows):
-            sol = solve_batch(self.circuit, self.space.to_parameters(xs[sl], self.base), seed)
+            part = seed if seed.v.shape[0] == 1 else DCState(
+                v=seed.v[sl], vj=seed.vj[sl], converged=seed.converged[sl],
+                iterations=seed.iterations[sl])
+            sol = solve_batch(self.circuit, self.space.to_parameters(xs[sl], self.base), part)
             values[sl] = self._small_signal_values(sol, np.arange(sl.stop - sl.start), rows)
             values[sl][~sol.converged] = np.nan
         jac = np.zeros((len(self.observations), x.size))

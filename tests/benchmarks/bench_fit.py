@@ -6,7 +6,7 @@ prints one JSON object of timings (seconds): the median of REPEATS runs of one f
 (the invented line receiver, 8 simulated readings), of its error budget and of the
 next-reading suggestion, each after imports and one warm-up run. :func:`run` returns the
 same dict for a project-wide benchmark runner. Target, reported and not asserted: a fit
-under 50 ms.
+within 20 ms.
 """
 
 from __future__ import annotations
@@ -27,7 +27,7 @@ from reconcile.analysis.next_reading import suggest_next
 from reconcile.inference.simulate import full_plan, simulate_readings
 
 BOARD = Path(__file__).resolve().parents[2] / "sample_data" / "line_receiver_cb.toml"
-FIT_TARGET_S = 0.050
+FIT_TARGET_S = 0.020
 
 
 def _median_time(fn: Any, repeats: int) -> tuple[float, Any]:
@@ -69,7 +69,7 @@ def run(repeats: int = 15) -> dict[str, Any]:
         "error_budget_s": round(budget_s, 5),
         "next_reading_s": round(next_s, 5),
         "fit_target_s": FIT_TARGET_S,
-        "fit_meets_target": fit_s < FIT_TARGET_S,
+        "fit_meets_target": fit_s <= FIT_TARGET_S,
     }
 
 
