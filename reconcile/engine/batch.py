@@ -48,6 +48,9 @@ class BatchSolution:
     kcl_residual: np.ndarray  # (N,) largest |KCL error| over free nodes, A
     small_signal: SmallSignal | None
     linear: LinearModel | None = None  # for AC responses at other frequencies (sweeps)
+    #: (N, nF, nF) the free-node Newton matrix at the solution, floating-node ties
+    #: included: :func:`reconcile.engine.dc.jacobian_at` without building it again
+    newton_matrix: np.ndarray | None = None
 
     @property
     def converged(self) -> np.ndarray:
@@ -111,6 +114,7 @@ def solve_batch(
     dv = v[:, rn[:, 0]] - v[:, rn[:, 1]] if len(rn) else np.zeros((params.n_samples, 0))
     i_r = dv / params.resistor_ohms
     kcl = np.max(np.abs(kcl_free), axis=1) if len(circuit.free) else np.zeros(params.n_samples)
+    newton_matrix = jac_ff.copy() if len(batch.floating_rows) else jac_ff
     if len(batch.floating_rows):
         # The DC tie of floating nodes is not part of the board's small-signal model.
         jac_ff[:, batch.floating_rows, batch.floating_rows] -= FLOAT_SIEMENS
@@ -135,6 +139,7 @@ def solve_batch(
         kcl_residual=kcl,
         small_signal=ss,
         linear=linear,
+        newton_matrix=newton_matrix,
     )
 
 

@@ -129,9 +129,12 @@ def dc_sensitivity(
     params: Parameters,
     state: DCState,
     columns: tuple[tuple[str, int], ...] | None = None,
+    newton_matrix: np.ndarray | None = None,
 ) -> DCSensitivity:
     """Analytic DC sensitivities of every sample of ``params`` at ``state`` (the engine's
-    solution of the same batch); ``columns`` defaults to :func:`all_columns`."""
+    solution of the same batch); ``columns`` defaults to :func:`all_columns`;
+    ``newton_matrix`` is the solution's (``BatchSolution.newton_matrix``), built here
+    when not given."""
     cols = all_columns(circuit) if columns is None else tuple(columns)
     n = params.n_samples
     p = len(cols)
@@ -144,7 +147,8 @@ def dc_sensitivity(
         sub = params.take(sl)
         st = DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
                      iterations=state.iterations[sl])
-        out_v[sl], out_s[sl], out_r[sl] = _chunk(circuit, sub, st, cols)
+        j_free = None if newton_matrix is None else newton_matrix[sl]
+        out_v[sl], out_s[sl], out_r[sl] = _chunk(circuit, sub, st, cols, j_free)
     return DCSensitivity(columns=cols, node_v=out_v, supply_current=out_s, resistor_current=out_r)
 
 
@@ -154,10 +158,12 @@ def dc_functional_sensitivity(
     state: DCState,
     weights: np.ndarray,
     columns: tuple[tuple[str, int], ...] | None = None,
+    newton_matrix: np.ndarray | None = None,
 ) -> np.ndarray:
     """d(weights·v)/dp (N, P) of every sample at ``state``, ``weights`` (N, n_nodes + 1)
     one linear function of the node voltages per sample, by the adjoint form (module
-    docstring); rows whose solve did not converge are NaN."""
+    docstring); rows whose solve did not converge are NaN. ``newton_matrix`` as for
+    :func:`dc_sensitivity`."""
     cols = all_columns(circuit) if columns is None else tuple(columns)
     n, p = params.n_samples, len(cols)
     out = np.empty((n, p))
@@ -166,12 +172,14 @@ def dc_functional_sensitivity(
         sub = params.take(sl)
         st = DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
                      iterations=state.iterations[sl])
-        out[sl] = _functional_chunk(circuit, sub, st, np.asarray(weights[sl], float), cols)
+        j_free = None if newton_matrix is None else newton_matrix[sl]
+        out[sl] = _functional_chunk(circuit, sub, st, np.asarray(weights[sl], float), cols,
+                                    j_free)
     return out
 
 
 def _functional_chunk(circuit: Circuit, params: Parameters, state: DCState,
-                      weights: np.ndarray, cols) -> np.ndarray:
+                      weights: np.ndarray, cols, j_free: np.ndarray | None) -> np.ndarray:
     v = np.array(state.v, dtype=float)
     v[:, circuit.gnd] = 0.0
     g = np.concatenate(
@@ -185,7 +193,8 @@ def _functional_chunk(circuit: Circuit, params: Parameters, state: DCState,
         w[:, circuit.dc_floating] = 0.0  # no DC voltage to speak of
     out = np.einsum("ni,nip->np", w[:, fixed], dv_fixed[:, fixed, :])
     if len(free):
-        j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
+        if j_free is None:
+            j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
         rhs = dfdp[:, free, :]
         if len(fixed):
             j_rows = _node_rows(circuit, params, v, g)
@@ -212,7 +221,8 @@ def _solve_each(a: np.ndarray, b: np.ndarray) -> np.ndarray:
         return out
 
 
-def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
+def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols,
+           j_free: np.ndarray | None = None):
     v = np.array(state.v, dtype=float)
     v[:, circuit.gnd] = 0.0
     g = np.concatenate(
@@ -220,7 +230,7 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols):
     )
     dfdp, dv_fixed = _parameter_partials(circuit, params, v, g, cols)
     j_rows = _node_rows(circuit, params, v, g)
-    dv = _node_derivatives(circuit, params, state, dfdp, dv_fixed, j_rows)
+    dv = _node_derivatives(circuit, params, state, dfdp, dv_fixed, j_rows, j_free)
     d_sup, d_res = _current_derivatives(circuit, params, v, cols, dfdp, j_rows, dv)
     bad = ~np.asarray(state.converged, dtype=bool)
     out_v = dv[:, :circuit.n_nodes, :]
@@ -307,12 +317,14 @@ def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarra
 
 
 def _node_derivatives(circuit: Circuit, params: Parameters, state: DCState, dfdp: np.ndarray,
-                      dv_fixed: np.ndarray, j_rows: np.ndarray) -> np.ndarray:
+                      dv_fixed: np.ndarray, j_rows: np.ndarray,
+                      j_free: np.ndarray | None = None) -> np.ndarray:
     """dv/dp of every node (N, size, P) by the implicit function theorem."""
     n = params.n_samples
     free = circuit.free
     fixed = np.concatenate([circuit.supply_nodes, [circuit.gnd]]).astype(np.intp)
-    j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
+    if j_free is None:
+        j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
     rhs = dfdp[:, free, :] + np.einsum("nij,njp->nip", j_rows[:, free][:, :, fixed],
                                        dv_fixed[:, fixed, :])
     dv = dv_fixed.copy()

@@ -106,7 +106,8 @@ def _probe_derivatives(model: MeasurementModel, solution: BatchSolution, x: np.n
     state = DCState(v=st.v[rows], vj=st.vj[rows], converged=st.converged[rows],
                     iterations=st.iterations[rows])
     params = model.parameters(x[None, :]).take(rows)
-    return dc_functional_sensitivity(c, params, state, weights, cols)
+    newton = None if solution.newton_matrix is None else solution.newton_matrix[rows]
+    return dc_functional_sensitivity(c, params, state, weights, cols, newton)
 
 
 def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution, *,
@@ -134,7 +135,9 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
         dv = np.zeros((model.circuit.n_nodes + 1, x.size))
     if cols and (base or node_derivatives):
         sens = dc_sensitivity(model.circuit, model.parameters(x[None, :]).take(slice(0, 1)),
-                              _first(solution.state), cols)
+                              _first(solution.state), cols,
+                              None if solution.newton_matrix is None
+                              else solution.newton_matrix[:1])
         for k in base:
             kind, _, what = plan[k]
             jac[k, owners] = _row_derivative(model, sens, kind, what) * slope[owners]

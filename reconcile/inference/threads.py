@@ -22,8 +22,10 @@ ENVIRONMENT = "RECONCILE_BLAS_THREADS"
 @functools.cache
 def _controller():
     """One ``ThreadpoolController`` per process: finding the loaded BLAS libraries takes
-    tens of milliseconds, longer than a small fit; numpy's and scipy's are loaded by the
-    first fit."""
+    tens of milliseconds, longer than a small fit. It sees only libraries loaded before
+    it, so scipy's linear algebra (the fits' least squares and SVD, which may bring a
+    BLAS of its own beside numpy's) is loaded first."""
+    import scipy.linalg  # noqa: F401 - loads scipy's BLAS before the controller looks
     from threadpoolctl import ThreadpoolController
 
     return ThreadpoolController()
