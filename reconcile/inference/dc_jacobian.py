@@ -33,7 +33,7 @@ import numpy as np
 from reconcile.engine import BatchSolution
 from reconcile.engine.dc import DCState
 from reconcile.engine.sensitivity import dc_functional_sensitivity, dc_sensitivity
-from reconcile.engine.circuit import Circuit, Parameters
+from reconcile.engine.circuit import Circuit
 from reconcile.inference.priors import ParameterSpace
 
 
@@ -47,8 +47,6 @@ class MeasurementModel(Protocol):
     probes: tuple[tuple[str, str], ...]
     observations: list
     calibration_index: np.ndarray
-
-    def parameters(self, x: np.ndarray) -> Parameters: ...
 
 #: parameter kinds whose external value is an engine DC parameter, and its field
 DC_FIELD = {"resistor": "resistor_ohms", "supply": "supply_volts", "IS": "IS",
@@ -90,7 +88,7 @@ def _row_derivative(model: MeasurementModel, sens, kind: str, what) -> np.ndarra
     return sens.resistor_current[0, what]
 
 
-def _probe_derivatives(model: MeasurementModel, solution: BatchSolution, x: np.ndarray,
+def _probe_derivatives(model: MeasurementModel, solution: BatchSolution,
                        cols: tuple[tuple[str, int], ...]) -> np.ndarray:
     """d(V(a) − V(b))/d(engine columns) (K, C) on each probe board k, its own probe's
     two nodes, by the adjoint form (one transposed solve per probe board)."""
@@ -105,7 +103,7 @@ def _probe_derivatives(model: MeasurementModel, solution: BatchSolution, x: np.n
     st = solution.state
     state = DCState(v=st.v[rows], vj=st.vj[rows], converged=st.converged[rows],
                     iterations=st.iterations[rows])
-    params = model.parameters(x[None, :]).take(rows)
+    params = solution.params.take(rows)
     newton = None if solution.newton_matrix is None else solution.newton_matrix[rows]
     return dc_functional_sensitivity(c, params, state, weights, cols, newton)
 
@@ -134,7 +132,7 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
     if node_derivatives:
         dv = np.zeros((model.circuit.n_nodes + 1, x.size))
     if cols and (base or node_derivatives):
-        sens = dc_sensitivity(model.circuit, model.parameters(x[None, :]).take(slice(0, 1)),
+        sens = dc_sensitivity(model.circuit, solution.params.take(slice(0, 1)),
                               _first(solution.state), cols,
                               None if solution.newton_matrix is None
                               else solution.newton_matrix[:1])
@@ -144,7 +142,7 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
         if dv is not None:
             dv[:-1, owners] = sens.node_v[0] * slope[owners]
     if cols and probed:
-        d_probe = _probe_derivatives(model, solution, x, cols)
+        d_probe = _probe_derivatives(model, solution, cols)
         for k in probed:
             jac[k, owners] = d_probe[plan[k][1] - 1] * slope[owners]
     for k, (kind, _, what) in enumerate(plan):
