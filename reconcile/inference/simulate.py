@@ -7,6 +7,8 @@ optionally, disturbed by Gaussian noise of each reading's standard uncertainty.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 
 from reconcile.model.board import Board
@@ -15,6 +17,11 @@ from reconcile.model.quantities import QuantityKind
 from reconcile.inference.measure import MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
 from reconcile.model.quantities import REGISTRY
+
+
+PlanEntry = tuple[str, str] | tuple[str, str, float | None]
+"""One place to read: (quantity, at), or (quantity, at, frequency in Hz) for a
+small-signal reading at its own frequency (None: the board's ``[signal] frequency``)."""
 
 
 def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str]]:
@@ -29,20 +36,22 @@ def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str
 
 def simulate_readings(
     true_board: Board,
-    plan: list[tuple[str, str]],
+    plan: Sequence[PlanEntry],
     *,
     rng: np.random.Generator | None = None,
     temperature: float | None = None,
     relative_noise: float = 1.0,
     note: str = "simulated",
 ) -> list[Reading]:
-    """Readings of ``true_board`` at the places in ``plan`` (quantity, at).
+    """Readings of ``true_board`` at the places in ``plan``: (quantity, at), or
+    (quantity, at, frequency) for a small-signal reading at its own frequency (Hz).
 
     Each reading carries its default standard uncertainty; with ``rng`` it is disturbed
     by that much Gaussian noise times ``relative_noise``. ``temperature`` (K) is the true
     junction temperature (default: the board's).
     """
-    obs = [Observation(q, at, 0.0, 1.0) for q, at in plan if q != "temperature"]
+    obs = [Observation(item[0], item[1], 0.0, 1.0, frequency=item[2] if len(item) > 2 else None)
+           for item in plan if item[0] != "temperature"]
     model = MeasurementModel(true_board, obs)
     params = model.parameters(
         np.zeros((1, 0)) if model.space.size == 0 else model.space.prior_mean[None, :]
@@ -62,5 +71,6 @@ def simulate_readings(
             value += relative_noise * u * rng.standard_normal()
             if REGISTRY[ob.quantity].non_negative:
                 value = abs(value)  # a magnitude (rms ratio, |Z|) reads as one, noise folded
-        out.append(Reading.from_si(ob.quantity, ob.at, value, u, note=note))
+        out.append(Reading.from_si(ob.quantity, ob.at, value, u, note=note,
+                                   frequency=ob.frequency))
     return out
