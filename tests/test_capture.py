@@ -97,7 +97,7 @@ def test_plan_reads_every_dc_node_then_supplies_then_small_signal():
     # through capacitors; a supply's current is what it delivers into the board.
     board = _line_receiver()
     plan = plan_readings(board, gain=True, input_resistance=True)
-    assert [p.key for p in plan] == [
+    assert [p.place for p in plan] == [
         ("voltage", "vcc"), ("voltage", "b"), ("voltage", "c"), ("voltage", "e"),
         ("voltage", "in"), ("voltage", "out"), ("current", "VCC"),
         ("gain", ""), ("input_resistance", ""),
@@ -114,7 +114,7 @@ def test_plan_leaves_out_a_signal_node_with_no_dc_path():
     board = board_from_text(text, "no-bleed.toml")
     assert "RB_IN" not in board.resistors
     assert "in" not in dc_nodes(board)
-    assert ("voltage", "in") not in [p.key for p in plan_readings(board)]
+    assert ("voltage", "in") not in [p.place for p in plan_readings(board)]
 
 
 def test_plan_refuses_small_signal_without_signal_table():
@@ -207,7 +207,7 @@ def test_stored_reading_carries_identity_and_gum_uncertainty(store):
     board = _line_receiver()
     sid = _session(store, board)
     meter = _scripted_meter(["1.0001", "1.0003", "1.0002"])
-    plan = [p for p in plan_readings(board) if p.key == ("voltage", "b")]
+    plan = [p for p in plan_readings(board) if p.place == ("voltage", "b")]
     steps: list[ProbeStep] = []
     report = Capture(board, store, sid, voltmeter=meter, plan=plan,
                      prompt=lambda s: steps.append(s) or "", settle_band_v=1e-3).run()
@@ -362,7 +362,7 @@ def test_fault_stops_with_a_clear_message_and_resume_does_not_duplicate(
     bench.fix()
     report = _capture(board, store, sid, bench).run()
     assert report.complete
-    assert [p.key for p in report.skipped_existing] == [
+    assert [p.place for p in report.skipped_existing] == [
         (s.reading.quantity, s.reading.at) for s in first]
     keys = _keys(store, sid)
     assert len(keys) == len(set(keys)) == 9
@@ -380,7 +380,7 @@ def test_resume_skips_readings_typed_into_the_session_earlier(store, typed_at):
     store.add_reading(sid, Reading("voltage", typed_at, 8.6, "V", 0.01, note="typed"))
     bench = SimulatedBench(board, np.random.default_rng(4))
     report = _capture(board, store, sid, bench, gain=False, input_resistance=False).run()
-    assert [p.key for p in report.skipped_existing] == [("voltage", "c")]
+    assert [p.place for p in report.skipped_existing] == [("voltage", "c")]
     assert ("voltage", "c") not in [(t.reading.quantity, t.reading.at) for t in report.taken]
     assert len(store.readings(sid)) == 7
 
@@ -427,7 +427,7 @@ def test_operator_can_skip_a_node_and_a_later_run_takes_it(store):
 
     report = _capture(board, store, sid, bench, scanner=False, gain=False,
                       input_resistance=False, prompt=operator).run()
-    assert [(p.key, why) for p, why in report.skipped] == [
+    assert [(p.place, why) for p, why in report.skipped] == [
         (("voltage", "c"), "skipped by the operator")]
     again = _capture(board, store, sid, bench, scanner=False, gain=False,
                      input_resistance=False).run()
@@ -441,7 +441,7 @@ def test_a_reading_with_no_instrument_is_skipped_with_the_reason(store):
     kwargs = bench.capture_kwargs(scanner=True)
     kwargs["supply"] = None
     report = Capture(board, store, sid, **kwargs).run()
-    assert [(p.key, why) for p, why in report.skipped] == [
+    assert [(p.place, why) for p, why in report.skipped] == [
         (("current", "VCC"), "no supply instrument for it")]
 
 

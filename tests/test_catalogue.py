@@ -88,7 +88,7 @@ def test_signal_node_without_dc_path_has_no_voltage_entry() -> None:
     board = board_from_text(text, "no-bleed.toml")
     want = [(q, at) for q, at, _ in LINE_RECEIVER_BY_HAND
             if (q, at) != ("voltage", "in") and at != "RB_IN"]
-    assert [e.key for e in readings_one_could_take(board)] == want
+    assert [e.place for e in readings_one_could_take(board)] == want
 
 
 def test_board_without_signal_table_has_no_small_signal_entries() -> None:
@@ -99,26 +99,54 @@ def test_board_without_signal_table_has_no_small_signal_entries() -> None:
     board = board_from_text(text, "no-signal.toml")
     want = [(q, at) for q, at, _ in LINE_RECEIVER_BY_HAND
             if REGISTRY[q].kind is not QuantityKind.SMALL_SIGNAL]
-    assert [e.key for e in readings_one_could_take(board)] == want
+    assert [e.place for e in readings_one_could_take(board)] == want
 
 
 def test_reading_key_spellings() -> None:
     # docs/formats.md §3: a voltage "a" means V(a) − V(gnd), so "a/gnd" is the same reading.
-    assert reading_key("voltage", "b/gnd") == ("voltage", "b")
-    assert reading_key("voltage", " b / gnd ") == ("voltage", "b")
-    assert reading_key("voltage", "c/e") == ("voltage", "c/e")
-    assert reading_key("current", " RC ") == ("current", "RC")
-    assert reading_key("gain", "") == ("gain", "")
+    assert reading_key("voltage", "b/gnd") == ("voltage", "b", None)
+    assert reading_key("voltage", " b / gnd ") == ("voltage", "b", None)
+    assert reading_key("voltage", "c/e") == ("voltage", "c/e", None)
+    assert reading_key("current", " RC ") == ("current", "RC", None)
+    assert reading_key("gain", "") == ("gain", "", None)
+
+
+def test_reading_key_carries_the_test_frequency() -> None:
+    # docs/formats.md §6.2 (frequency column): blank means [signal] frequency, so a blank
+    # cell and the board's own frequency are one reading; any other frequency is another.
+    assert reading_key("gain", "", None, signal_frequency=1e4) == ("gain", "", None)
+    assert reading_key("gain", "", 1e4, signal_frequency=1e4) == ("gain", "", None)
+    assert reading_key("gain", "", 50.0, signal_frequency=1e4) == ("gain", "", 50.0)
+    assert reading_key("input_resistance", "", 50, signal_frequency=1e4)[2] == 50.0
+    assert reading_key("gain", "", 50.0) == ("gain", "", 50.0)
+    assert reading_key("voltage", "b", 50.0) == ("voltage", "b", None)  # DC: no frequency
+
+
+def test_a_gain_at_another_frequency_does_not_count_as_the_gain_taken() -> None:
+    board = sample_board("line_receiver_cb")  # [signal] frequency 10 kHz
+    f0 = board.signal.frequency
+    keys = [e.key for e in readings_one_could_take(board, taken=[("gain", "", 50.0)])]
+    assert ("gain", "", None) in keys
+    keys = [e.key for e in readings_one_could_take(board, taken=[("gain", "", f0)])]
+    assert ("gain", "", None) not in keys
+    asked = readings_one_could_take(board, frequencies=[50.0, f0], taken=[("gain", "", None)])
+    at_50 = [e.key for e in asked if e.frequency == 50.0]
+    assert at_50 == [("gain", "", 50.0), ("input_resistance", "", 50.0),
+                     ("output_resistance", "", 50.0)]
+    assert ("gain", "", None) not in [e.key for e in asked]
+    assert [e.label for e in asked if e.frequency == 50.0][0].endswith(" at 50 Hz")
+    done = readings_one_could_take(board, frequencies=[50.0], taken=[("gain", "", 50)])
+    assert ("gain", "", 50.0) not in [e.key for e in done]
 
 
 def test_taken_and_bench_filters() -> None:
     board = sample_board("line_receiver_cb")
     every = readings_one_could_take(board)
     rest = readings_one_could_take(board, taken=[("voltage", "b/gnd"), ("gain", "")])
-    assert [e.key for e in rest] == [
-        e.key for e in every if e.key not in {("voltage", "b"), ("gain", "")}]
+    assert [e.place for e in rest] == [
+        e.place for e in every if e.place not in {("voltage", "b"), ("gain", "")}]
     on_dc = readings_one_could_take(board, bench=DC_BENCH)
-    assert [e.key for e in on_dc] == [("voltage", n) for n in
+    assert [e.place for e in on_dc] == [("voltage", n) for n in
                                       ("vcc", "b", "c", "e", "in", "out")] + [("current", "VCC")]
     assert all(e.possible_on(DC_BENCH) for e in on_dc)
     assert not any(e.possible_on(DC_BENCH) for e in every if e not in on_dc)
@@ -160,7 +188,7 @@ def test_every_entry_is_a_reading_the_loader_accepts_and_the_model_predicts(name
         Reading.from_si(e.quantity, e.at, abs(float(v)) or 1.0, 1.0)
         for e, v in zip(entries, predicted, strict=True))
     loaded = readings_from_text(text, f"{name}.csv", board=board)
-    assert [(r.quantity, r.at) for r in loaded] == [e.key for e in entries]
+    assert [(r.quantity, r.at) for r in loaded] == [e.place for e in entries]
 
 
 def test_every_readable_predicted_quantity_has_a_rule() -> None:
@@ -185,7 +213,8 @@ def test_self_consistency_next_reading_candidates_are_the_catalogue_not_yet_take
     cands = candidate_readings(fit)
     assert cands == [e.key for e in readings_one_could_take(board)
                      if e.key not in {reading_key(q, at) for q, at in plan}]
-    assert ("voltage", "b") not in cands
+    assert ("voltage", "b", None) not in cands
+    assert ("gain", "", None) not in cands
 
 
 def test_self_consistency_separating_candidates_are_the_catalogue_not_yet_taken() -> None:
@@ -195,7 +224,7 @@ def test_self_consistency_separating_candidates_are_the_catalogue_not_yet_taken(
     obs = observations_from(readings)
     assert separating_candidates(board, obs) == [
         e.key for e in readings_one_could_take(board)
-        if e.key not in {("voltage", "c"), ("current", "VCC")}]
+        if e.place not in {("voltage", "c"), ("current", "VCC")}]
 
 
 def _capture_cases() -> list[tuple[str, bool, bool]]:
@@ -215,10 +244,10 @@ def test_self_consistency_capture_plan_is_the_catalogue_on_the_capture_bench(
 ) -> None:
     board = sample_board(name)
     asked = {q for q, on in (("gain", gain), ("input_resistance", input_resistance)) if on}
-    want = [e.key for e in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH)
+    want = [e.place for e in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH)
             if e.kind is not QuantityKind.SMALL_SIGNAL or e.quantity in asked]
     plan = plan_readings(board, gain=gain, input_resistance=input_resistance)
-    assert [p.key for p in plan] == want
+    assert [p.place for p in plan] == want
     assert plan_dc_nodes(board) == [at for q, at in want if q == "voltage"]
 
 
@@ -227,9 +256,9 @@ def test_self_consistency_simulated_readings_plan_is_the_capture_plan(name: str)
     board = sample_board(name)
     has_signal = bool(board.signal.input and board.signal.output)
     capture = plan_readings(board, gain=has_signal, input_resistance=has_signal)
-    assert full_plan(board) == [p.key for p in capture]
+    assert full_plan(board) == [p.place for p in capture]
     assert full_plan(board, small_signal=False) == [
-        p.key for p in plan_readings(board)]
+        p.place for p in plan_readings(board)]
 
 
 def test_self_consistency_simulated_bench_primes_the_dc_bench_readings() -> None:

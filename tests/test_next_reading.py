@@ -109,8 +109,8 @@ def test_suggestions_are_readings_not_yet_taken() -> None:
     readings = truth.read(plan, rng)
     fit = fit_board(board, readings)
     cands = candidate_readings(fit)
-    assert not set(plan) & set(cands)
+    assert not {(q, at, None) for q, at in plan} & set(cands)
     suggestions = suggest_next(fit, top=len(cands))
-    assert {(s.quantity, s.at) for s in suggestions} == set(cands)
+    assert {(s.quantity, s.at, s.frequency) for s in suggestions} == set(cands)
     scores = [s.score for s in suggestions]
     assert scores == sorted(scores, reverse=True)

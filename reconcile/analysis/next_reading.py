@@ -20,7 +20,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reconcile.inference.catalogue import readings_one_could_take
+from reconcile.inference.catalogue import ReadingKey, reading_label, readings_one_could_take
 from reconcile.inference.fitting import FitResult
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
 from reconcile.data.readings import Reading, default_uncertainty
@@ -35,15 +35,17 @@ class Suggestion:
     score: float
     before: dict[str, float]
     after: dict[str, float]
+    frequency: float | None = None  # Hz; None for the board's [signal] frequency
 
     @property
     def label(self) -> str:
-        return f"{self.quantity} at {self.at}" if self.at else self.quantity
+        return reading_label(self.quantity, self.at, self.frequency)
 
     def to_dict(self) -> dict:
         return {
             "quantity": self.quantity,
             "at": self.at,
+            "frequency": self.frequency,
             "uncertainty": self.uncertainty,
             "expected_reduction": self.score,
             "stderr_before": self.before,
@@ -51,9 +53,10 @@ class Suggestion:
         }
 
 
-def candidate_readings(fit: FitResult) -> list[tuple[str, str]]:
-    """Every reading of the catalogue not yet taken in ``fit``'s readings."""
-    taken = [(r.quantity, r.at) for r in fit.readings]
+def candidate_readings(fit: FitResult) -> list[ReadingKey]:
+    """Every reading of the catalogue not yet taken in ``fit``'s readings, as
+    ``(quantity, at, frequency)`` (frequency None: the board's ``[signal] frequency``)."""
+    taken = [(r.quantity, r.at, r.frequency) for r in fit.readings]
     return [e.key for e in readings_one_could_take(fit.board, taken=taken)]
 
 
@@ -68,7 +71,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
         goal_obs = [Observation(q, "", 0.0, 1.0) for q in targets]
     else:
         goal_obs = []
-    cand_obs = [Observation(q, at, 0.0, 1.0) for q, at in cands]
+    cand_obs = [Observation(q, at, 0.0, 1.0, frequency=f) for q, at, f in cands]
     model = MeasurementModel(board, cand_obs + goal_obs, fit.space)
     pred, jac = model.jacobian(fit.x)
     jac = np.where(np.isfinite(jac), jac, 0.0)
@@ -85,7 +88,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
     gch = g @ c @ h.T  # (G, K)
     hch = np.einsum("ij,jk,ik->i", h, c, h)
     out = []
-    for k, (q, at) in enumerate(cands):
+    for k, (q, at, f) in enumerate(cands):
         proto = Reading.from_si(q, at, float(pred[k]))
         try:
             u = default_uncertainty(proto)
@@ -108,6 +111,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
                     n: float(v)
                     for n, v in zip(goal_names, _external_sd(fit, goal_obs, sd_after), strict=True)
                 },
+                f,
             )
         )
     out.sort(key=lambda s: -s.score)

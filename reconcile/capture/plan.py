@@ -29,7 +29,13 @@ from dataclasses import dataclass
 from typing import Literal
 
 from reconcile.errors import InputError
-from reconcile.inference.catalogue import GUIDED_CAPTURE_BENCH, dc_nodes, readings_one_could_take
+from reconcile.inference.catalogue import (
+    GUIDED_CAPTURE_BENCH,
+    ReadingKey,
+    dc_nodes,
+    reading_label,
+    readings_one_could_take,
+)
 from reconcile.model.board import GND, Board
 from reconcile.model.quantities import QuantityKind
 
@@ -69,25 +75,34 @@ class PlannedReading:
     prompt : str
         What the operator is told when the reading needs hands on the board (``""``
         for a supply read-back, which needs none).
+    frequency : float or None
+        The test frequency of a gain, Hz (``None``: the board's ``[signal] frequency``).
     """
 
     quantity: str
     at: str
     prompt: str = ""
+    frequency: float | None = None
 
     @property
-    def key(self) -> tuple[str, str]:
-        """``(quantity, at)``: what a resumed run matches stored readings on."""
+    def key(self) -> ReadingKey:
+        """``(quantity, at, frequency)``: what a resumed run matches stored readings on
+        (:func:`~reconcile.inference.catalogue.reading_key`)."""
+        return (self.quantity, self.at, self.frequency)
+
+    @property
+    def place(self) -> tuple[str, str]:
+        """``(quantity, at)``: where it is taken, whatever the frequency."""
         return (self.quantity, self.at)
 
     @property
     def label(self) -> str:
-        """``voltage at b``, ``current at VCC``, ``gain``."""
-        return f"{self.quantity} at {self.at}" if self.at else self.quantity
+        """``voltage at b``, ``current at VCC``, ``gain``, ``gain at 50 Hz``."""
+        return reading_label(self.quantity, self.at, self.frequency)
 
-    def to_dict(self) -> dict[str, str]:
-        """``{"quantity", "at"}``."""
-        return {"quantity": self.quantity, "at": self.at}
+    def to_dict(self) -> dict[str, str | float | None]:
+        """``{"quantity", "at", "frequency"}``."""
+        return {"quantity": self.quantity, "at": self.at, "frequency": self.frequency}
 
 
 @dataclass(frozen=True)

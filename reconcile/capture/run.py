@@ -5,7 +5,9 @@ reading it routes the meter (a scanner channel, or a prompt to the operator), re
 until the value settles (:mod:`instruments.settle`), attaches the instrument's identity
 (``*IDN?``) and a standard uncertainty, and commits the reading to the session store
 before it moves on. Readings already in the session (same quantity and place) are
-skipped, so an interrupted run resumes where it stopped by running it again.
+skipped, so an interrupted run resumes where it stopped by running it again (a gain
+taken at another test frequency is another reading:
+:func:`reconcile.inference.catalogue.reading_key`).
 
 Uncertainty of a captured reading (one standard uncertainty, SI units)::
 
@@ -44,7 +46,7 @@ from typing import TYPE_CHECKING, Any
 from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InstrumentError, ReconcileError
 from reconcile.data.readings import DEFAULT_UNCERTAINTY, Reading
-from reconcile.inference.catalogue import reading_key
+from reconcile.inference.catalogue import reading_key, taken_keys
 from reconcile.model.values import format_si
 
 from reconcile.capture.outcome import CaptureInterrupted, CaptureReport, LiveValue, TakenReading
@@ -333,15 +335,17 @@ class Capture:
                 f"the board file differs from the board snapshot of session "
                 f"{self.session_id}; capture into a session started on this board file",
                 path=self.board.source_path, key="session")
-        existing = {reading_key(s.reading.quantity, s.reading.at)
-                    for s in self.store.readings(self.session_id)}
+        existing = taken_keys(self.board, [
+            (s.reading.quantity, s.reading.at, s.reading.frequency)
+            for s in self.store.readings(self.session_id)])
         self._taken, self._skipped_existing, self._skipped = [], [], []
         current: PlannedReading | None = None
         try:
             self._identify_all()
             for planned in self.plan:
                 current = planned
-                if planned.key in existing:
+                key = reading_key(*planned.key, signal_frequency=self.board.signal.frequency)
+                if key in existing:
                     self._skipped_existing.append(planned)
                     continue
                 reason = self._unavailable(planned)
@@ -355,7 +359,7 @@ class Capture:
                     continue
                 reading_id = self.store.add_reading(
                     self.session_id, reading, source=CAPTURE_SOURCE)
-                existing.add(planned.key)
+                existing.add(key)
                 self._taken.append(TakenReading(reading_id, reading, samples))
                 self._tell(LiveValue(planned.label, reading.value, reading.unit, samples,
                                      True, stored=True, uncertainty=reading.uncertainty))

@@ -220,16 +220,18 @@ class _Story:
             nxt = diag.next_reading
             if nxt is None or diag.top.probability >= CONFIDENT:
                 break
-            label = f"{nxt.quantity} {nxt.at}".strip()
+            label = nxt.label
             self.console.print(
                 f"\nThe diagnosis asks for one more reading: [bold]{label}[/]. Taking it on "
                 "the simulated bench (for a part out of circuit: power off first)."
             )
             new = simulate_readings(
-                truth, [(nxt.quantity, nxt.at)], rng=self.rng, note="demo: suggested"
+                truth, [(nxt.quantity, nxt.at, nxt.frequency)], rng=self.rng,
+                note="demo: suggested"
             )
             store.add_readings(sid, new, source="demo")
-            taken.append({"quantity": nxt.quantity, "at": nxt.at, "value": new[0].value})
+            taken.append({"quantity": nxt.quantity, "at": nxt.at, "frequency": nxt.frequency,
+                          "value": new[0].value})
             inputs = self._inputs(store, sid)
             diag = diagnose_step(inputs)
             self.console.print(f"[bold]With {label} = {new[0].value:.5g}:[/]")

@@ -18,7 +18,7 @@ from reconcile.data.readings import Reading, default_uncertainty
 from reconcile.diagnosis.fault_fit import predict_faults
 from reconcile.diagnosis.scoring import Hypothesis
 from reconcile.errors import InputError
-from reconcile.inference.catalogue import readings_one_could_take
+from reconcile.inference.catalogue import ReadingKey, reading_label, readings_one_could_take
 from reconcile.inference.measure import Observation
 from reconcile.model.board import Board
 
@@ -43,7 +43,8 @@ class NextReading:
     is ahead but none explains the readings: the reading the best hypothesis predicts
     least well, i.e. the most informative about the board under it). ``expected`` maps
     each leading hypothesis label to the value it predicts (SI units); ``separation``
-    is in [0, 1] (see the module docstring).
+    is in [0, 1] (see the module docstring). ``frequency`` is the test frequency of a
+    small-signal reading (Hz; ``None`` for the board's ``[signal] frequency``).
     """
 
     quantity: str
@@ -53,15 +54,17 @@ class NextReading:
     separates: tuple[str, ...]
     expected: dict[str, float]
     purpose: str = "separate"
+    frequency: float | None = None
 
     @property
     def label(self) -> str:
-        return f"{self.quantity} at {self.at}" if self.at else self.quantity
+        return reading_label(self.quantity, self.at, self.frequency)
 
     def to_dict(self) -> dict:
         return {
             "quantity": self.quantity,
             "at": self.at,
+            "frequency": self.frequency,
             "uncertainty": self.uncertainty,
             "separation": self.separation,
             "separates": list(self.separates),
@@ -70,9 +73,9 @@ class NextReading:
         }
 
 
-def _candidates(board: Board, obs: list[Observation]) -> list[tuple[str, str]]:
-    """Every reading of the catalogue not yet taken."""
-    taken = [(ob.quantity, ob.at) for ob in obs]
+def _candidates(board: Board, obs: list[Observation]) -> list[ReadingKey]:
+    """Every reading of the catalogue not yet taken (frequency: None for ``[signal]``)."""
+    taken = [(ob.quantity, ob.at, ob.frequency) for ob in obs]
     return [e.key for e in readings_one_could_take(board, taken=taken)]
 
 
@@ -98,7 +101,7 @@ def separating_reading(
     cands = _candidates(board, obs)
     if len(top) < 2 or not cands:
         return None
-    cand_obs = [Observation(q, at, 0.0, 1.0) for q, at in cands]
+    cand_obs = [Observation(q, at, 0.0, 1.0, frequency=f) for q, at, f in cands]
     pred, jac = predict_faults([h.fit for h in top], cand_obs)
     k = len(top)
     var = np.empty_like(pred)
@@ -106,7 +109,7 @@ def separating_reading(
         cov = h.fit.full_covariance()
         var[i] = np.einsum("cp,pq,cq->c", jac[i], cov, jac[i])
     u = np.full_like(pred, np.nan)
-    for c, (q, at) in enumerate(cands):
+    for c, (q, at, _) in enumerate(cands):
         for i in range(k):
             ui = _reading_u(q, at, pred[i, c])
             if ui is not None:
@@ -145,7 +148,7 @@ def separating_reading(
             info = 0.5 * np.log1p(np.where(u[0] > 0, var[0] / u[0] ** 2, 0.0))
         order = np.lexsort((-spread, -np.nan_to_num(info, nan=0.0)))
     best = int(order[0])
-    q, at = cands[best]
+    q, at, f = cands[best]
     # Name the pair of hypotheses this reading tells apart best (for "confirm" and
     # "explore" that is the leader and its runner-up).
     i_sep, j_sep = 0, 1
@@ -159,6 +162,7 @@ def separating_reading(
         separates=(top[i_sep].label, top[j_sep].label),
         expected={h.label: float(pred[i, best]) for i, h in enumerate(top)},
         purpose=purpose,
+        frequency=f,
     )
 
 

@@ -34,7 +34,14 @@ Not listed: ``source_gain`` and ``gain_phase_deg`` (not accepted in a readings f
 ``temperature`` (the ambient: it sets a prior, it is not a reading of the board).
 
 "Not yet taken" compares :func:`reading_key` of both sides, so ``b/gnd`` in a readings
-file counts as the node voltage at ``b``.
+file counts as the node voltage at ``b``. The key carries a small-signal reading's test
+frequency: a gain read at 50 Hz is not the gain at ``[signal] frequency`` (a blank
+frequency, or one equal to the board's ``[signal] frequency``, is the board's).
+
+Small-signal readings at other test frequencies are listed only when asked
+(``frequencies=``): each small-signal place once more at each of them, after the
+readings at ``[signal] frequency`` (the next reading asks for a few that inform the
+capacitors; a capture's ``--frequencies`` plans its gains that way).
 
 To add a reading quantity: register it (:data:`reconcile.model.quantities.REGISTRY`),
 give it a rule here (:data:`_RULES`: where it is taken and what it needs), and its
@@ -50,6 +57,7 @@ from dataclasses import dataclass
 
 from reconcile.model.board import GND, Board
 from reconcile.model.quantities import REGISTRY, QuantityKind
+from reconcile.model.values import format_si
 
 __all__ = [
     "BenchNeed",
@@ -57,8 +65,11 @@ __all__ = [
     "DC_BENCH",
     "GUIDED_CAPTURE_BENCH",
     "dc_nodes",
+    "ReadingKey",
     "reading_key",
+    "reading_label",
     "readings_one_could_take",
+    "taken_keys",
 ]
 
 
@@ -115,16 +126,26 @@ class CatalogueEntry:
         A short human label (``voltage at node b``).
     needs : tuple of BenchNeed
         What a bench needs to take it.
+    frequency : float or None
+        The test frequency of a small-signal reading, Hz; ``None`` for the board's
+        ``[signal] frequency`` (and every other quantity).
     """
 
     quantity: str
     at: str
     label: str
     needs: tuple[BenchNeed, ...]
+    frequency: float | None = None
 
     @property
-    def key(self) -> tuple[str, str]:
-        """``(quantity, at)``, as :func:`reading_key` writes it."""
+    def key(self) -> ReadingKey:
+        """``(quantity, at, frequency)``, as :func:`reading_key` writes it (frequency
+        ``None``: the board's ``[signal] frequency``)."""
+        return (self.quantity, self.at, self.frequency)
+
+    @property
+    def place(self) -> tuple[str, str]:
+        """``(quantity, at)``: where it is taken, whatever the frequency."""
         return (self.quantity, self.at)
 
     @property
@@ -137,18 +158,41 @@ class CatalogueEntry:
         return _within(self.needs, bench)
 
     def to_dict(self) -> dict:
-        """``{"quantity", "at", "label", "needs"}``."""
-        return {"quantity": self.quantity, "at": self.at, "label": self.label,
-                "needs": [str(n) for n in self.needs]}
+        """``{"quantity", "at", "frequency", "label", "needs"}``."""
+        return {"quantity": self.quantity, "at": self.at, "frequency": self.frequency,
+                "label": self.label, "needs": [str(n) for n in self.needs]}
 
 
-def reading_key(quantity: str, at: str) -> tuple[str, str]:
-    """The catalogue's key of a reading: ``at`` stripped, ``a/gnd`` written as ``a``."""
+ReadingKey = tuple[str, str, "float | None"]
+"""``(quantity, at, frequency)``: what "already taken" compares."""
+
+
+def reading_key(quantity: str, at: str, frequency: float | None = None, *,
+                signal_frequency: float | None = None) -> ReadingKey:
+    """The catalogue's key of a reading: ``at`` stripped, ``a/gnd`` written as ``a``, and
+    the test frequency of a small-signal reading (Hz, to 12 significant digits).
+
+    The frequency is ``None`` for the board's ``[signal] frequency``: when ``frequency``
+    is None (a blank cell), when it equals ``signal_frequency``, and for every quantity
+    that is not small-signal.
+    """
     at = at.strip()
     if quantity == "voltage" and "/" in at:
         hi, lo = (part.strip() for part in at.split("/", 1))
         at = hi if lo == GND else f"{hi}/{lo}"
-    return (quantity, at)
+    spec = REGISTRY.get(quantity)
+    if frequency is None or spec is None or spec.kind is not QuantityKind.SMALL_SIGNAL:
+        return (quantity, at, None)
+    f = float(f"{float(frequency):.12g}")
+    if signal_frequency is not None and f == float(f"{float(signal_frequency):.12g}"):
+        return (quantity, at, None)
+    return (quantity, at, f)
+
+
+def reading_label(quantity: str, at: str, frequency: float | None = None) -> str:
+    """``voltage at b``, ``gain``, ``gain at 50 Hz``: a reading as a suggestion names it."""
+    label = f"{quantity} at {at}" if at else quantity
+    return label if frequency is None else f"{label} at {format_si(frequency, 'Hz', 4)}"
 
 
 def _within(needs: Iterable[BenchNeed], bench: Collection[BenchNeed]) -> bool:
@@ -238,11 +282,19 @@ def dc_nodes(board: Board) -> list[str]:
     return [node for node in board.nodes if node not in floating]
 
 
+def taken_keys(board: Board, taken: Iterable[tuple]) -> set[ReadingKey]:
+    """:func:`reading_key` of each ``(quantity, at)`` or ``(quantity, at, frequency)``,
+    against ``board``'s ``[signal] frequency``."""
+    f0 = board.signal.frequency
+    return {reading_key(*t, signal_frequency=f0) for t in taken}
+
+
 def readings_one_could_take(
     board: Board,
     *,
-    taken: Iterable[tuple[str, str]] = (),
+    taken: Iterable[tuple] = (),
     bench: Collection[BenchNeed] | None = None,
+    frequencies: Iterable[float] = (),
 ) -> tuple[CatalogueEntry, ...]:
     """Every reading one could take on ``board``, in the catalogue's order.
 
@@ -250,24 +302,45 @@ def readings_one_could_take(
     ----------
     board : Board
         The board as drawn.
-    taken : iterable of (quantity, at)
+    taken : iterable of (quantity, at) or (quantity, at, frequency)
         Readings already taken (any spelling :func:`reading_key` accepts); left out.
     bench : collection of BenchNeed, optional
         Keep only the readings a bench with these can take (default: every reading).
+    frequencies : iterable of float, optional
+        Test frequencies (Hz) other than ``[signal] frequency``: each small-signal
+        reading is listed again at each of them (one equal to ``[signal] frequency``
+        adds nothing).
 
     Returns
     -------
     tuple of CatalogueEntry
         Registry order of the quantities, then the order of the places (board node
-        order; supplies before resistors; the board's part order).
+        order; supplies before resistors; the board's part order); then the small-signal
+        readings at ``frequencies``, in their order.
     """
-    done = {reading_key(q, at) for q, at in taken}
-    out: list[CatalogueEntry] = []
+    done = taken_keys(board, taken)
+    listed: list[CatalogueEntry] = []
     for name in catalogued_quantities():
         for rule in _RULES[name]:
             if bench is not None and not _within(rule.needs, bench):
                 continue
             for at, label in rule.places(board):
-                if (name, at) not in done:
-                    out.append(CatalogueEntry(name, at, label, rule.needs))
+                listed.append(CatalogueEntry(name, at, label, rule.needs))
+    small = [e for e in listed if e.kind is QuantityKind.SMALL_SIGNAL]
+    for f in frequencies:
+        f_key = reading_key("gain", "", f, signal_frequency=board.signal.frequency)[2]
+        if f_key is not None:
+            listed += [_at_frequency(e, f_key) for e in small]
+    seen: set[ReadingKey] = set()
+    out = []
+    for e in listed:
+        if e.key not in done and e.key not in seen:
+            seen.add(e.key)
+            out.append(e)
     return tuple(out)
+
+
+def _at_frequency(entry: CatalogueEntry, frequency: float) -> CatalogueEntry:
+    return CatalogueEntry(entry.quantity, entry.at,
+                          f"{entry.label} at {format_si(frequency, 'Hz', 4)}", entry.needs,
+                          frequency)

@@ -81,6 +81,7 @@ class ReadingFit:
     predicted: float
     uncertainty: float
     normalized_residual: float
+    frequency: float | None = None  # Hz; None for the board's [signal] frequency
 
     @property
     def suspect(self) -> bool:
@@ -90,6 +91,7 @@ class ReadingFit:
         return {
             "quantity": self.quantity,
             "at": self.at,
+            "frequency": self.frequency,
             "measured": self.measured,
             "predicted": self.predicted,
             "uncertainty": self.uncertainty,
@@ -247,7 +249,8 @@ def fit_board(
     estimates = _estimates(space, x, post_sd)
     factors = {fp.key: estimates.pop(fp.key) for fp in space.parameters if fp.kind == "calibration"}
     fits = [
-        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), float(unc[k]), float(z[k]))
+        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), float(unc[k]), float(z[k]),
+                   ob.frequency)
         for k, ob in enumerate(obs)
     ]
     converged = bool(result.success) and bool(np.all(np.isfinite(pred0)))

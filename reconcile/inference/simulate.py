@@ -29,7 +29,7 @@ def full_plan(board: Board, *, small_signal: bool = True) -> list[tuple[str, str
     bench (every node voltage with a DC path, every supply current and, with
     ``[signal]``, gain and input resistance), as a capture plans them."""
     return [
-        e.key for e in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH)
+        e.place for e in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH)
         if small_signal or e.kind is not QuantityKind.SMALL_SIGNAL
     ]
 

@@ -204,12 +204,13 @@ def _board_section(d: ReportData) -> str:
 
 def _readings_section(d: ReportData) -> str:
     rows = []
-    fits = {(r["quantity"], r["at"]): r for r in (d.fit or {}).get("readings", [])}
+    fits = {(r["quantity"], r["at"], r.get("frequency")): r
+            for r in (d.fit or {}).get("readings", [])}
     for r in d.readings:
         unit = numbers.quantity_symbol(r.quantity)
         value = f"{r.value - 273.15:.2f} °C" if r.quantity == "temperature" else _num(r.value, unit)
         u = standard_uncertainty(r)
-        f = fits.get((r.quantity, r.at))
+        f = fits.get((r.quantity, r.at, r.frequency))
         z = "–" if f is None else f"{f['normalized_residual']:+.2f}"
         if f is not None and f.get("suspect"):
             z = f'<span class="bad">{z} suspect</span>'
@@ -268,11 +269,13 @@ def _fit_section(d: ReportData) -> str:
     nxt = ""
     if d.next_readings:
         nrows = [
-            [_e(s["quantity"]), _e(s["at"] or "–"), f"{100 * s['expected_reduction']:.1f}%"]
+            [_e(s["quantity"]), _e(s["at"] or "–"),
+             _e("–" if s.get("frequency") is None else numbers.si(s["frequency"], "Hz", 4)),
+             f"{100 * s['expected_reduction']:.1f}%"]
             for s in d.next_readings
         ]
         nxt = "<p>Next most useful readings:</p>" + _table(
-            ["quantity", "at", "expected reduction"], nrows
+            ["quantity", "at", "frequency", "expected reduction"], nrows
         )
     return (
         _assumed_note(d, "the board is fitted as built under it.")
