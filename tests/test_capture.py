@@ -41,6 +41,8 @@ from reconcile.capture.simulated_bench import SimulatedBench, capture_simulated_
 from reconcile.model.board import DeviceParam
 from reconcile.model.board_loader import board_from_text
 from reconcile.errors import InputError
+from reconcile.data.readings import Reading
+from cli_support import run_cli
 from reconcile.inference.fitting import fit_board
 from reconcile.store.repository import open_store
 
@@ -592,3 +594,55 @@ def test_importing_the_capture_command_loads_nothing_heavy():
     loaded = json.loads(out.stdout)
     heavy = ("pyvisa", "sqlalchemy", "lmfit", "scipy", "pandas", "matplotlib")
     assert [m for m in loaded if m.split(".")[0] in heavy] == []
+
+
+# ----------------------------------------------------------------------------- gain sweep
+def test_gain_sweep_stores_one_gain_per_frequency_self_consistency(store):
+    # Self-consistency check: each swept gain against the engine that drives the
+    # simulated bench at that frequency; blank frequency = [signal] frequency
+    # (docs/formats.md §6.2), so 10 kHz is the board's plain gain.
+    board = _line_receiver()  # [signal] frequency 10 kHz
+    sid = _session(store, board)
+    bench = SimulatedBench(board, noise=False)
+    freqs = [20.0, 100.0, 1e3, 1e4, 1e5]
+    report = _capture(board, store, sid, bench, input_resistance=False,
+                      frequencies=freqs).run()
+    gains = [t.reading for t in report.taken if t.reading.quantity == "gain"]
+    assert [g.frequency for g in gains] == [None, 20.0, 100.0, 1e3, 1e5]
+    for g in gains:
+        want = bench.small_signal(g.frequency)["gain"]
+        assert g.value == pytest.approx(want, rel=1e-9)
+    assert gains[1].value < 0.5 * gains[0].value  # 20 Hz sits below the low corner
+    assert "20 Hz sine" in gains[1].note
+    writes = bench.transports["generator"].writes
+    assert [w for w in writes if w.startswith("FREQ")] == [
+        "FREQ 10000", "FREQ 20", "FREQ 100", "FREQ 1000", "FREQ 100000"]
+    stored = [(s.reading.quantity, s.reading.frequency) for s in store.readings(sid)]
+    assert ("gain", 20.0) in stored and ("gain", None) in stored
+    # resume: every swept gain is already stored, nothing is taken twice
+    again = _capture(board, store, sid, SimulatedBench(board, noise=False),
+                     input_resistance=False, frequencies=freqs).run()
+    assert again.taken == () and len(again.skipped_existing) == len(report.taken)
+
+
+def test_a_gain_at_another_frequency_does_not_resume_the_plain_gain(store):
+    board = _line_receiver()
+    sid = _session(store, board)
+    store.add_reading(sid, Reading.from_si("gain", "", 7.5, 0.1, frequency=50.0),
+                      source="test")
+    report = _capture(board, store, sid, SimulatedBench(board, noise=False),
+                      input_resistance=False).run()
+    assert [(t.reading.quantity, t.reading.frequency) for t in report.taken
+            if t.reading.quantity == "gain"] == [("gain", None)]
+
+
+def test_cli_capture_refuses_a_bad_test_frequency(tmp_path):
+    db_path = tmp_path / "cli.sqlite"
+    board_file = SAMPLES / "line_receiver_cb.toml"
+    with open_store(db_path) as db:
+        sid = db.create_session(sample_board("line_receiver_cb"))
+    result = run_cli("capture", str(board_file), "--session", sid, "--store", str(db_path),
+                     "--simulate", str(board_file), "--frequencies", "20,-5")
+    assert result.exit_code == 2 and result.crash is None
+    assert len(result.message_lines) == 1
+    assert "--frequencies" in result.stderr and "'-5'" in result.stderr

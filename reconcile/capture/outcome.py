@@ -63,7 +63,8 @@ class TakenReading:
     def to_dict(self) -> dict[str, Any]:
         r = self.reading
         return {
-            "id": self.id, "quantity": r.quantity, "at": r.at, "value": r.value,
+            "id": self.id, "quantity": r.quantity, "at": r.at, "frequency": r.frequency,
+            "value": r.value,
             "unit": r.unit, "uncertainty": r.uncertainty, "instrument": r.instrument,
             "note": r.note, "samples": self.samples,
         }

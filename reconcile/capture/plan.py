@@ -12,7 +12,9 @@ when asked, in the catalogue's order:
 2. every supply's current (its read-back: the current it delivers into the board);
 3. optionally the small-signal gain (AC rms at the input, then at the output);
 4. optionally the input resistance by the series-resistor method
-   (:func:`reconcile.data.derived_readings.input_resistance_series_method`).
+   (:func:`reconcile.data.derived_readings.input_resistance_series_method`);
+5. optionally a gain sweep: the gain at each of a list of test frequencies
+   (``capture --frequencies``), each stored as its own reading with its frequency.
 
 Resistor currents (the circuit opened), the output resistance (a switched load) and
 parts measured out of circuit need what a capture does not do.
@@ -25,6 +27,7 @@ to know where the probe is.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Literal
 
@@ -33,6 +36,7 @@ from reconcile.inference.catalogue import (
     GUIDED_CAPTURE_BENCH,
     ReadingKey,
     dc_nodes,
+    reading_key,
     reading_label,
     readings_one_could_take,
 )
@@ -176,7 +180,8 @@ def direct_setup_step(input_node: str) -> ProbeStep:
 
 
 def plan_readings(
-    board: Board, *, gain: bool = False, input_resistance: bool = False
+    board: Board, *, gain: bool = False, input_resistance: bool = False,
+    frequencies: Sequence[float] = (),
 ) -> list[PlannedReading]:
     """The readings of a capture run, in the order they are taken.
 
@@ -188,12 +193,16 @@ def plan_readings(
         Add the small-signal gain (needs the board's ``[signal]`` table).
     input_resistance : bool
         Add the input resistance by the series-resistor method (needs ``[signal]``).
+    frequencies : sequence of float
+        Test frequencies (Hz) of a gain sweep: one gain at each, in the order given,
+        after the readings at ``[signal] frequency`` (one equal to ``[signal]
+        frequency`` is the plain gain; repeats are planned once).
 
     Returns
     -------
     list of PlannedReading
         Node voltages (board node order), supply currents, then gain and input
-        resistance when asked.
+        resistance when asked, then the gain at each of ``frequencies``.
 
     Raises
     ------
@@ -201,8 +210,11 @@ def plan_readings(
         Gain or input resistance asked for a board with no ``[signal]`` table.
     """
     signal = board.signal
-    if (gain or input_resistance) and (signal.input is None or signal.output is None):
-        what = "gain" if gain else "input resistance"
+    f0 = signal.frequency
+    sweep = [f for f in frequencies if reading_key("gain", "", f, signal_frequency=f0)[2]]
+    gain = gain or len(sweep) < len(frequencies)
+    if (gain or input_resistance or sweep) and (signal.input is None or signal.output is None):
+        what = "input resistance" if input_resistance and not gain else "gain"
         raise InputError(
             f"the {what} needs the board's [signal] table (input and output nodes)",
             path=board.source_path, key="signal",
@@ -214,9 +226,13 @@ def plan_readings(
         "AC voltmeter on each side of it",
     }
     plan = []
-    for entry in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH):
+    for entry in readings_one_could_take(board, bench=GUIDED_CAPTURE_BENCH,
+                                         frequencies=sweep):
         if entry.kind is QuantityKind.SMALL_SIGNAL:
-            if asked.get(entry.quantity):
+            if entry.frequency is not None:
+                if entry.quantity == "gain":
+                    plan.append(PlannedReading("gain", "", prompts["gain"], entry.frequency))
+            elif asked.get(entry.quantity):
                 plan.append(PlannedReading(entry.quantity, "", prompts[entry.quantity]))
         elif entry.quantity == "voltage":
             plan.append(PlannedReading("voltage", entry.at, dc_probe_step(entry.at).text))

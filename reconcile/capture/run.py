@@ -140,6 +140,9 @@ class Capture:
         For ``gain`` and ``input_resistance``.
     gain : bool
         Take the small-signal gain (V_out/V_in at the board's ``[signal]`` frequency).
+    frequencies : sequence of float
+        A gain sweep: the gain at each of these test frequencies (Hz) as well, the
+        generator set to each in turn; each stored with its frequency.
     input_resistance : bool
         Take the input resistance by the series-resistor method.
     series_resistor_ohm, series_resistor_u_ohm : float, optional
@@ -181,6 +184,7 @@ class Capture:
         ac_voltmeter: AcVoltmeter | None = None,
         generator: FunctionGenerator | None = None,
         gain: bool = False,
+        frequencies: Sequence[float] = (),
         input_resistance: bool = False,
         series_resistor_ohm: float | None = None,
         series_resistor_u_ohm: float = 0.0,
@@ -218,7 +222,8 @@ class Capture:
         self.sleep = sleep
         self.plan: tuple[PlannedReading, ...] = tuple(
             plan if plan is not None
-            else plan_readings(board, gain=gain, input_resistance=input_resistance)
+            else plan_readings(board, gain=gain, input_resistance=input_resistance,
+                               frequencies=frequencies)
         )
         self._check_ready()
         self._identities: dict[str, str] = {}
@@ -226,7 +231,7 @@ class Capture:
         self._skipped_existing: list[PlannedReading] = []
         self._skipped: list[tuple[PlannedReading, str]] = []
         self._generator_on = False
-        self._generator_ready = False
+        self._generator_hz: float | None = None  # the frequency the sine is set to
 
     # ------------------------------------------------------------ checks
     @staticmethod
@@ -476,7 +481,7 @@ class Capture:
         if planned.quantity == "current":
             return self._current(planned)
         if planned.quantity == "gain":
-            return self._gain()
+            return self._gain(planned.frequency)
         if planned.quantity == "input_resistance":
             return self._input_resistance()
         raise InputError(f"a capture cannot take {planned.label}", key="plan")
@@ -508,13 +513,14 @@ class Capture:
                        instrument=self._identities[f"power_supply {planned.at}"],
                        note=note), settled.samples
 
-    def _generator_sine(self) -> None:
+    def _generator_sine(self, frequency_hz: float | None = None) -> None:
         generator = self.generator
         if generator is None:  # checked in _check_ready
             raise InputError("no function generator", key="generator")
-        if not self._generator_ready:
-            generator.configure_sine(self.board.signal.frequency, self.signal_vrms, "Vrms")
-            self._generator_ready = True
+        f = self.board.signal.frequency if frequency_hz is None else float(frequency_hz)
+        if self._generator_hz != f:
+            generator.configure_sine(f, self.signal_vrms, "Vrms")
+            self._generator_hz = f
         if not self._generator_on:
             generator.output_on()
             self._generator_on = True
@@ -536,20 +542,23 @@ class Capture:
         return _uncertainty(self.ac_voltmeter, "ac_volts", "voltage", settled)  # type: ignore[arg-type]
 
     def _signal_text(self) -> str:
-        return (f"{format_si(self.board.signal.frequency, 'Hz', 4)} sine, generator "
+        f = self.board.signal.frequency if self._generator_hz is None else self._generator_hz
+        return (f"{format_si(f, 'Hz', 4)} sine, generator "
                 f"{format_si(self.signal_vrms, 'V', 4)} rms")
 
     def _instruments_text(self) -> str:
         return (f"AC: {self._identities.get('ac_voltmeter', '?')}; generator: "
                 f"{self._identities.get('function_generator', '?')}")
 
-    def _gain(self) -> tuple[Reading, int]:
+    def _gain(self, frequency_hz: float | None = None) -> tuple[Reading, int]:
         from reconcile.data.derived_readings import gain_from_ac
 
         signal = self.board.signal
-        self._generator_sine()
-        v_in = self._ac(signal.input or "", f"gain: V_in at node {signal.input}", "board input")
-        v_out = self._ac(signal.output or "", f"gain: V_out at node {signal.output}",
+        self._generator_sine(frequency_hz)
+        at = "" if frequency_hz is None else f" at {format_si(frequency_hz, 'Hz', 4)}"
+        v_in = self._ac(signal.input or "", f"gain{at}: V_in at node {signal.input}",
+                        "board input")
+        v_out = self._ac(signal.output or "", f"gain{at}: V_out at node {signal.output}",
                          "board output")
         u_in, _ = self._ac_u(v_in)
         u_out, _ = self._ac_u(v_out)
@@ -557,7 +566,8 @@ class Capture:
         note = (f"capture: V_in {format_si(v_in.value, 'V', 5)} rms, V_out "
                 f"{format_si(v_out.value, 'V', 5)} rms, {self._signal_text()}; uncorrelated")
         return (Reading.from_si("gain", "", derived.value, derived.uncertainty,
-                        instrument=self._instruments_text(), note=note),
+                        instrument=self._instruments_text(), note=note,
+                        frequency=frequency_hz),
                 v_in.samples + v_out.samples)
 
     def _input_resistance(self) -> tuple[Reading, int]:

@@ -122,11 +122,16 @@ class _Screen:
 
         self._stop_live()
         table = Table(title=f"Capture into session {report.session}", title_justify="left")
-        for col in ("id", "quantity", "at", "value", "uncertainty", "values read"):
+        swept = any(t.reading.frequency is not None for t in report.taken)
+        cols = ("id", "quantity", "at") + (("frequency",) if swept else ()) + (
+            "value", "uncertainty", "values read")
+        for col in cols:
             table.add_column(col, justify="right" if col in ("id", "values read") else "left")
         for t in report.taken:
             r = t.reading
-            table.add_row(str(t.id), r.quantity, r.at, _shown(r.value, r.unit, 7),
+            f = ((("" if r.frequency is None else _shown(r.frequency, "Hz", 4)),) if swept
+                 else ())
+            table.add_row(str(t.id), r.quantity, r.at, *f, _shown(r.value, r.unit, 7),
                           _shown(r.uncertainty or 0.0, r.unit, 3), str(t.samples))
         self.console.print(table)
         for p in report.skipped_existing:
@@ -159,6 +164,9 @@ _GeneratorOpt = Annotated[_FileOpt, typer.Option(
     "--generator", help="Instrument file of the function generator.")]
 _GainOpt = Annotated[bool, typer.Option(
     "--gain/--no-gain", help="Also take the small-signal gain.")]
+_FrequenciesOpt = Annotated[_TextOpt, typer.Option(
+    "--frequencies", help="A gain sweep: the gain at each of these test frequencies, "
+    "comma-separated (20,100,1k,10k,100k), each stored with its frequency.")]
 _SeriesOpt = Annotated[_TextOpt, typer.Option(
     "--series-resistor",
     help="Also take the input resistance by the series-resistor method, with this "
@@ -198,6 +206,7 @@ def capture(
     ac_meter: _AcMeterOpt = None,
     generator: _GeneratorOpt = None,
     gain: _GainOpt = False,
+    frequencies: _FrequenciesOpt = None,
     series_resistor: _SeriesOpt = None,
     series_tolerance: _SeriesTolOpt = "1%",
     signal: _SignalOpt = None,
@@ -212,8 +221,8 @@ def capture(
 ) -> None:
     """Take a session's readings from instruments: probe, settle, store each at once.
 
-    Plans every node voltage, each supply's current and (with --gain, --series-resistor)
-    the small-signal readings; prompts for each probe position unless a scanner reaches
+    Plans every node voltage, each supply's current and (with --gain, --series-resistor,
+    --frequencies) the small-signal readings; prompts for each probe position unless a scanner reaches
     it; stores every reading as soon as it settles. Run it again after an interruption:
     readings already in the session are skipped.
     """
@@ -240,7 +249,7 @@ def capture(
             _value(series_resistor, "ohms", "--series-resistor", 0.0), "--series-resistor")
     tolerance = _value(series_tolerance, "tolerance", "--series-tolerance", 0.01)
     settings = dict(
-        gain=gain, input_resistance=r_series is not None, series_resistor_ohm=r_series,
+        gain=gain, frequencies=_frequencies(frequencies), input_resistance=r_series is not None, series_resistor_ohm=r_series,
         series_resistor_u_ohm=series_resistor_uncertainty(r_series or 0.0, tolerance),
         signal_vrms=signal_vrms, settle_count=settle_count, settle_band_v=band_v,
         settle_band_a=band_a, max_samples=max_samples, sample_interval_s=interval_s,
@@ -253,6 +262,24 @@ def capture(
         _emit(report.to_dict())
     else:
         screen.summary(report)
+
+
+def _frequencies(text: str | None) -> list[float]:
+    """``--frequencies 20,100,1k``: test frequencies in Hz, each > 0 and finite."""
+    import math
+
+    from reconcile.errors import InputError
+
+    if text is None:
+        return []
+    out = []
+    for item in text.split(","):
+        f = _value(item.strip(), "hertz", "--frequencies", 0.0) if item.strip() else 0.0
+        if not (math.isfinite(f) and f > 0):
+            raise InputError(f"each test frequency must be a number of Hz > 0, got "
+                             f"{item.strip()!r}", key="--frequencies")
+        out.append(f)
+    return out
 
 
 def _bench(simulate: Path | None, seed: int, screen: _Screen, **instruments: Any):
