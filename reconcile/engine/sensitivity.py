@@ -49,6 +49,7 @@ from reconcile.engine import devices
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
 from reconcile.engine.dc import DCState, jacobian_at
+from reconcile.engine.kernel import solve_small
 
 FIELDS = ("resistor_ohms", "capacitor_leak_siemens", "supply_volts", "IS", "beta", "VA", "n",
           "temperature")
@@ -145,8 +146,7 @@ def dc_sensitivity(
     rows = rows_per_chunk(_bytes_per_row(circuit, p), share=0.5)
     for sl in chunks(n, rows):
         sub = params.take(sl)
-        st = DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
-                     iterations=state.iterations[sl])
+        st = _state_rows(state, sl)
         j_free = None if newton_matrix is None else newton_matrix[sl]
         out_v[sl], out_s[sl], out_r[sl] = _chunk(circuit, sub, st, cols, j_free)
     return DCSensitivity(columns=cols, node_v=out_v, supply_current=out_s, resistor_current=out_r)
@@ -170,8 +170,7 @@ def dc_functional_sensitivity(
     rows = rows_per_chunk(_bytes_per_row(circuit, p), share=0.5)
     for sl in chunks(n, rows):
         sub = params.take(sl)
-        st = DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
-                     iterations=state.iterations[sl])
+        st = _state_rows(state, sl)
         j_free = None if newton_matrix is None else newton_matrix[sl]
         out[sl] = _functional_chunk(circuit, sub, st, np.asarray(weights[sl], float), cols,
                                     j_free)
@@ -201,24 +200,16 @@ def _functional_chunk(circuit: Circuit, params: Parameters, state: DCState,
             rhs = rhs + np.einsum("nij,njp->nip", j_rows[:, free][:, :, fixed],
                                   dv_fixed[:, fixed, :])
         with np.errstate(all="ignore"):
-            lam = _solve_each(np.swapaxes(j_free, 1, 2), w[:, free, None])[:, :, 0]
+            lam = solve_small(np.swapaxes(j_free, 1, 2), w[:, free, None])[:, :, 0]
         out -= np.einsum("ni,nip->np", lam, rhs)
     out[~np.asarray(state.converged, dtype=bool)] = np.nan
     return out
 
 
-def _solve_each(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Batched a⁻¹·b, sample by sample where the batch has a singular matrix (NaN)."""
-    try:
-        return np.linalg.solve(a, b)
-    except np.linalg.LinAlgError:
-        out = np.full(b.shape, np.nan)
-        for i in range(a.shape[0]):
-            try:
-                out[i] = np.linalg.solve(a[i], b[i])
-            except np.linalg.LinAlgError:
-                pass
-        return out
+def _state_rows(state: DCState, sl: slice) -> DCState:
+    """The solution's rows ``sl``: one chunk of the batch."""
+    return DCState(v=state.v[sl], vj=state.vj[sl], converged=state.converged[sl],
+                   iterations=state.iterations[sl])
 
 
 def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols,
