@@ -95,7 +95,7 @@ def test_the_board_as_built_is_the_fault_diagnosis_fits_self_consistency():
 
 
 @pytest.mark.slow  # the module's diagnosis of the hidden board
-def test_the_fit_under_an_assumed_wrong_value_finds_the_hidden_part(bench):
+def test_self_consistency_the_fit_under_an_assumed_wrong_value_finds_the_hidden_part(bench):
     design, truth, readings, _ = bench
     drawn = fit_step(AnalysisInputs.from_objects(design, readings))
     assert drawn.fit.verdict == "inconsistent" and drawn.assumed is None

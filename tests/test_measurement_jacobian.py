@@ -202,7 +202,7 @@ def test_analytic_columns_match_mpmath_many_boards(block):
         _check(_model(board, _plan(board)), seed)
 
 
-def test_analytic_rows_beside_small_signal_rows():
+def test_analytic_rows_beside_small_signal_rows_and_their_self_consistency():
     """mpmath reference for the DC rows of a board with a [signal] set-up and a gain
     reading; the gain row (forward differences) against a central difference of the
     engine's own predictions (self_consistency of the difference step, 1e-4)."""
