@@ -298,8 +298,7 @@ def lot(
     from reconcile.present.progress import stage_progress
 
     with stage_progress(enabled=not json) as stage:
-        if stage is not None:
-            stage("characterising the lot")
+        stage("characterising the lot")
         result = run_lot(
             jig,
             data,
@@ -412,8 +411,7 @@ def trim(
     from reconcile.present.progress import stage_progress
 
     with stage_progress(enabled=not json) as stage:
-        if stage is not None:
-            stage("fitting the board, then searching reworks and their yield")
+        stage("fitting the board, then searching reworks and their yield")
         outcome = trim_step(inputs)
     out = outcome.to_dict()
     recorded = inputs.record("trim", out)
@@ -472,8 +470,7 @@ def report(
             from reconcile.lot.characterise import run_lot
             from reconcile.present.plots_lot import plot_lot
 
-            if stage is not None:
-                stage("characterising the lot")
+            stage("characterising the lot")
             lot_result = run_lot(lot_jig, lot_readings)
             lot_png = plot_lot(lot_result, Path(tmp) / "lot.png").read_bytes()
         data = build_report(inputs, session=meta, lot_result=lot_result, lot_plot=lot_png,

@@ -61,16 +61,21 @@ Stage = Callable[[str], None]
 """``stage(text)``: the work moves on to ``text`` (shown until the next stage)."""
 
 
+def _silent_stage(_text: str) -> None:
+    """The stage of a disabled display: nothing is drawn."""
+
+
 @contextlib.contextmanager
-def stage_progress(enabled: bool = True) -> Iterator[Stage | None]:
+def stage_progress(enabled: bool = True) -> Iterator[Stage]:
     """Yield ``stage(text)`` for work that goes through a few named steps (a report, a
-    trim, a lot): a transient spinner on stderr with the step and the time it has taken,
-    or None when disabled (``--json``) or when stderr is not a terminal."""
+    trim, a lot): a transient spinner on stderr with the step and the time it has taken.
+    When disabled (``--json``) or when stderr is not a terminal, ``stage`` draws
+    nothing, so callers call it either way."""
     from rich.progress import SpinnerColumn, TimeElapsedColumn
 
     console = make_console(stderr=True)
     if not enabled or not console.is_terminal:
-        yield None
+        yield _silent_stage
         return
     progress = Progress(SpinnerColumn(), TextColumn("{task.description}"), TimeElapsedColumn(),
                         console=console, transient=True)
