@@ -38,7 +38,7 @@ class Outcome:
 def run_cli(*args: str, input: str | None = None) -> Outcome:
     """Run ``reconcile ARGS`` in this process through ``main()``."""
     runner = CliRunner()
-    old_argv = sys.argv
+    old_argv, old_hook = sys.argv, sys.excepthook
     crash = None
     with runner.isolation(input=input) as (out, err, _both):
         sys.argv = ["reconcile", *args]
@@ -52,7 +52,7 @@ def run_cli(*args: str, input: str | None = None) -> Outcome:
             crash = traceback.format_exc()
             code = -1
         finally:
-            sys.argv = old_argv
+            sys.argv, sys.excepthook = old_argv, old_hook  # main() installs its own hook
         sys.stdout.flush()
         sys.stderr.flush()
         stdout = out.getvalue().decode("utf-8", "replace")

@@ -201,3 +201,13 @@ def test_a_control_character_in_an_echoed_option_stays_on_its_line(value, tmp_pa
                    names="--plot")
     assert "\x1b" not in err and "\r" not in err and "\u2028" not in err
     assert str(tmp_path / value).encode("unicode_escape").decode("ascii") in err
+
+
+def test_run_cli_puts_the_interpreters_excepthook_back():
+    """``main()`` installs the one-line hook for bad input; in-process runs must not
+    leave it behind for the rest of the test session."""
+    import sys
+
+    before = sys.excepthook
+    run_cli("--help")
+    assert sys.excepthook is before
