@@ -120,17 +120,22 @@ TOLERANCE_LETTERS: dict[str, float] = {
     "N": 0.30,
 }
 
-_SYMBOL = {
+UNIT_SYMBOLS = {
     "ohms": "Ω",
     "ohm": "Ω",  # the unit word the JSON and the quantity registry write
+    "\u03a9": "\u03a9",  # GREEK CAPITAL LETTER OMEGA
+    "\u2126": "\u03a9",  # OHM SIGN, shown as the letter the fonts carry
+    "deg": "°",
     "farads": "F",
     "volts": "V",
     "amps": "A",
     "watts": "W",
     "hertz": "Hz",
     "seconds": "s",
+    "siemens": "S",
     "plain": "",
 }
+"""The one table of unit words (value kinds, JSON unit words) and the symbols shown."""
 
 
 
@@ -142,7 +147,7 @@ def si_unit(kind: str) -> str:
         return "K"
     if kind == "ohms":
         return "ohm"
-    return _SYMBOL.get(kind, "")
+    return UNIT_SYMBOLS.get(kind, "")
 
 
 _NUMBER = r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?"
@@ -370,7 +375,7 @@ def format_si(value: float, unit: str = "", digits: int = 6) -> str:
         ``"<mantissa> <prefix><unit>"`` with the mantissa in [1, 1000) where a prefix
         from f to G allows; :func:`parse_value` reads it back.
     """
-    symbol = _SYMBOL.get(unit, unit)
+    symbol = UNIT_SYMBOLS.get(unit, unit)
     if not math.isfinite(value) or value == 0.0:
         text = "inf" if value == math.inf else "-inf" if value == -math.inf else f"{value:g}"
         return f"{text} {symbol}".strip()

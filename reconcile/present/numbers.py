@@ -22,7 +22,7 @@ from __future__ import annotations
 
 import math
 
-from reconcile.model.values import format_si
+from reconcile.model.values import UNIT_SYMBOLS, format_si
 
 __all__ = [
     "si",
@@ -37,22 +37,6 @@ __all__ = [
 
 _ZERO_CELSIUS_K = 273.15  # exact by the definition of the Celsius scale
 
-#: unit words (as the JSON writes them) -> the symbol shown
-_SYMBOLS = {
-    "ohm": "Ω",
-    "ohms": "Ω",
-    "\u03a9": "\u03a9",  # GREEK CAPITAL LETTER OMEGA
-    "\u2126": "\u03a9",  # OHM SIGN
-    "deg": "°",
-    "farads": "F",
-    "volts": "V",
-    "amps": "A",
-    "watts": "W",
-    "hertz": "Hz",
-    "seconds": "s",
-    "siemens": "S",
-    "plain": "",
-}
 
 #: below these magnitudes a value is zero, whatever the context (SI units)
 _ZERO_FLOOR = {
@@ -80,7 +64,7 @@ _NO_PREFIX = {"", "%", "dB", "°C", "K", "°"}
 
 def symbol(unit: str) -> str:
     """The symbol shown for ``unit`` (``"ohm"`` -> ``"Ω"``); unknown units unchanged."""
-    return _SYMBOLS.get(unit, unit)
+    return UNIT_SYMBOLS.get(unit, unit)
 
 
 def quantity_symbol(name: str) -> str:
