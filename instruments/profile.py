@@ -23,6 +23,10 @@ numbers (V, A, s), the unit in the key name where it is not obvious::
       { range = 10.0, percent_of_reading = 0.0035, percent_of_range = 0.0005, floor = 0.0 },
     ]
 
+    [accuracy.ac_volts]
+    band_hz = [20.0, 100e3]                  # the band the AC accuracy is specified for, Hz
+    ranges = [{ range = 1.0, percent_of_reading = 0.06, percent_of_range = 0.03 }]
+
     [limits]                                 # refuse set points above these (optional)
     max_voltage_v = 12.0                     # power_supply
     max_current_a = 0.1                      # power_supply
@@ -36,6 +40,9 @@ numbers (V, A, s), the unit in the key name where it is not obvious::
     101 = "b"                                # V(b) − V(reference_node)
     104 = "c/e"                              # a channel wired across two nodes: V(c) − V(e)
 
+``band_hz`` (``ac_volts`` only; optional) is the band of test frequencies the AC
+accuracy is specified for (:class:`reconcile.data.frequency_band.FrequencyBand`): a
+capture refuses a test frequency outside it; ``ranges`` may then be left out.
 A ``backend`` of the form ``file.yaml@sim`` is taken relative to the instrument file.
 Loading reports every problem found, each with the file and the key.
 """
@@ -50,6 +57,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from reconcile.data.accuracy import DEFAULT_OVER_RANGE, AccuracySpec, RangeTable
+from reconcile.data.frequency_band import BAND_KEY, FrequencyBand
 from reconcile.errors import InputError, InputErrors
 from reconcile.model.text_files import read_text
 from reconcile.model.toml_lines import parse_toml
@@ -111,6 +119,8 @@ class InstrumentProfile:
         Action -> command template overriding the default.
     accuracy : dict
         Function (``dc_volts``, ``ac_volts``, ``dc_current``) -> :class:`RangeTable`.
+    ac_band : FrequencyBand or None
+        The band the AC accuracy is specified for (``[accuracy.ac_volts] band_hz``).
     limits : dict
         :data:`LIMIT_KEYS` -> largest value a set point may take.
     channels : dict
@@ -133,6 +143,7 @@ class InstrumentProfile:
     write_termination: str = "\n"
     commands: dict[str, str] = field(default_factory=dict)
     accuracy: dict[str, RangeTable] = field(default_factory=dict)
+    ac_band: FrequencyBand | None = None
     limits: dict[str, float] = field(default_factory=dict)
     channels: dict[str, str] = field(default_factory=dict)
     reference_node: str = "gnd"
@@ -230,6 +241,8 @@ class InstrumentProfile:
             "accuracy": {k: v.to_dict() for k, v in self.accuracy.items()},
             "limits": dict(self.limits),
         }
+        if self.ac_band is not None:
+            out["accuracy"].setdefault("ac_volts", {})[BAND_KEY] = self.ac_band.to_list()
         if "scanner" in self.roles:
             out["scanner"] = {"reference_node": self.reference_node, "settle_s": self.settle_s}
             out["channels"] = dict(self.channels)
@@ -247,6 +260,7 @@ class _Loader:
     def __init__(self, path: str | None) -> None:
         self.path = path
         self.problems: list[InputError] = []
+        self.ac_band: FrequencyBand | None = None
 
     def problem(self, key: str, message: str) -> None:
         self.problems.append(InputError(message, path=self.path, key=key))
@@ -343,6 +357,7 @@ class _Loader:
             write_termination=write_termination,
             commands=commands,
             accuracy=accuracy,
+            ac_band=self.ac_band,
             limits=limits,
             channels=channels,
             reference_node=reference,
@@ -419,7 +434,12 @@ class _Loader:
             if not isinstance(body, Mapping):
                 self.problem(where, "expected a table with 'ranges'")
                 continue
-            self.unknown_keys(body, ("over_range", "ranges"), where)
+            allowed = ("over_range", "ranges") + ((BAND_KEY,) if function == "ac_volts" else ())
+            self.unknown_keys(body, allowed, where)
+            if BAND_KEY in body and function == "ac_volts":
+                self.band(body[BAND_KEY], f"{where}.{BAND_KEY}")
+                if "ranges" not in body:
+                    continue
             over = self.number(body, "over_range", where, DEFAULT_OVER_RANGE, positive=True)
             if over < 1:
                 self.problem(f"{where}.over_range", f"must be >= 1, got {over:g}")
@@ -449,6 +469,12 @@ class _Loader:
             except InputError as exc:
                 self.problem(f"{where}.ranges", exc.message)
         return out
+
+    def band(self, value: object, key: str) -> None:
+        try:
+            self.ac_band = FrequencyBand.from_value(value)
+        except InputError as exc:
+            self.problem(key, exc.message)
 
     def limits(self, table: Mapping[str, Any], roles: tuple[str, ...]) -> dict[str, float]:
         out: dict[str, float] = {}

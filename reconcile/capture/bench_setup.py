@@ -18,6 +18,9 @@ from typing import Any
 from reconcile.model.board import Board
 from reconcile.errors import InputError
 
+from reconcile.capture.meter_band import check_test_frequencies
+from reconcile.capture.plan import PlannedReading
+
 from reconcile.instruments.ac_voltmeter import AcVoltmeter
 from reconcile.instruments.dc_voltmeter import DcVoltmeter
 from reconcile.instruments.function_generator import FunctionGenerator
@@ -122,15 +125,21 @@ def open_bench(
     scanner: PathLike | None = None,
     ac_meter: PathLike | None = None,
     generator: PathLike | None = None,
+    board: Board | None = None,
+    plan: Sequence[PlannedReading] = (),
 ) -> Bench:
     """Open the instruments named by their files (through pyvisa).
 
     ``ac_meter`` defaults to the DMM when its file lists the ``ac_voltmeter`` role.
+    With ``board`` and ``plan``, the plan's test frequencies are held to the AC meter's
+    specified band before any instrument is opened
+    (:func:`~reconcile.capture.meter_band.check_test_frequencies`).
 
     Raises
     ------
     InputError
-        A file is missing, wrong, or of the wrong role.
+        A file is missing, wrong, or of the wrong role; a test frequency outside the AC
+        meter's band.
     InstrumentError
         An instrument cannot be opened (links opened before it are closed).
     """
@@ -144,6 +153,8 @@ def open_bench(
     scan_p = _load(scanner, "scanner", "--scanner")
     supply_p = {ref: _load(path, "power_supply", "--supply")
                 for ref, path in (supplies or {}).items()}
+    if board is not None:
+        check_test_frequencies(board, plan, ac_p)
     opened: dict[tuple[str, str], Any] = {}
     bench_links: list[Any] = []
 

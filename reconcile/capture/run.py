@@ -61,6 +61,7 @@ from reconcile.capture.plan import (
     plan_readings,
     series_setup_step,
 )
+from reconcile.capture.meter_band import check_test_frequencies
 from reconcile.capture.settle import Settled, SettleRule, settle
 
 if TYPE_CHECKING:
@@ -168,8 +169,9 @@ class Capture:
     Raises
     ------
     InputError
-        A missing instrument or option, a bad settle rule, or a scanner that cannot
-        reach a planned node (checked before anything is sent).
+        A missing instrument or option, a bad settle rule, a test frequency outside the
+        AC meter's specified band (:mod:`reconcile.capture.meter_band`), or a scanner
+        that cannot reach a planned node (checked before anything is sent).
     """
 
     def __init__(
@@ -271,6 +273,8 @@ class Capture:
                 if missing:
                     raise InputError(f"the {quantity.replace('_', ' ')} needs "
                                      f"{' and '.join(missing)}", key=quantity)
+        if self.ac_voltmeter is not None:
+            check_test_frequencies(self.board, self.plan, self.ac_voltmeter.profile)
         if not (math.isfinite(self.signal_vrms) and self.signal_vrms > 0):
             raise InputError(f"the signal amplitude must be > 0 V rms, got {self.signal_vrms!r}",
                              key="signal_vrms")

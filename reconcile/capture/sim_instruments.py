@@ -46,7 +46,8 @@ INJECTED_ERROR = '-222,"Data out of range"'
 _UNDEFINED_HEADER = '-113,"Undefined header"'
 
 # Built-in accuracy of the simulated instruments: invented figures of the size a 6½-digit
-# bench DMM and a good bench supply's read-back would have. The simulated noise follows
+# bench DMM and a good bench supply's read-back would have (the DMM's AC volts specified
+# from 10 Hz to 300 kHz). The simulated noise follows
 # these tables whatever instrument file the capture is given.
 _DMM_ACCURACY = {
     "dc_volts": {"over_range": 1.2, "ranges": [
@@ -55,7 +56,7 @@ _DMM_ACCURACY = {
         {"range": 10.0, "percent_of_reading": 0.0035, "percent_of_range": 0.0005},
         {"range": 100.0, "percent_of_reading": 0.0045, "percent_of_range": 0.0006},
     ]},
-    "ac_volts": {"over_range": 1.2, "ranges": [
+    "ac_volts": {"band_hz": [10.0, 300e3], "over_range": 1.2, "ranges": [
         {"range": 0.1, "percent_of_reading": 0.06, "percent_of_range": 0.03},
         {"range": 1.0, "percent_of_reading": 0.06, "percent_of_range": 0.03},
         {"range": 10.0, "percent_of_reading": 0.06, "percent_of_range": 0.03},

@@ -255,8 +255,13 @@ def capture(
         settle_band_a=band_a, max_samples=max_samples, sample_interval_s=interval_s,
     )
     screen = _Screen(json_output=json)
-    bench, prompt = _bench(simulate, seed, screen, dmm=dmm, supplies=supplies,
-                           scanner=scanner, ac_meter=ac_meter, generator=generator)
+    from reconcile.capture.plan import plan_readings
+
+    plan = plan_readings(design, gain=gain, input_resistance=r_series is not None,
+                         frequencies=settings["frequencies"])
+    bench, prompt = _bench(simulate, seed, screen, (design, plan), dmm=dmm,
+                           supplies=supplies, scanner=scanner, ac_meter=ac_meter,
+                           generator=generator)
     report = _run_capture(design, store, session, bench, prompt, screen, json, settings)
     if json:
         _emit(report.to_dict())
@@ -282,8 +287,10 @@ def _frequencies(text: str | None) -> list[float]:
     return out
 
 
-def _bench(simulate: Path | None, seed: int, screen: _Screen, **instruments: Any):
-    """The bench (instruments, or a simulated one for a hidden board) and the prompt."""
+def _bench(simulate: Path | None, seed: int, screen: _Screen, planned: tuple[Any, Any],
+           **instruments: Any):
+    """The bench (instruments, or a simulated one for a hidden board) and the prompt;
+    ``planned`` (board, plan): a real bench's AC meter band is checked before it opens."""
     from reconcile.capture.bench_setup import open_bench, simulated_bench
     from reconcile.errors import InputError
     from reconcile.model.board_loader import load_board
@@ -293,7 +300,8 @@ def _bench(simulate: Path | None, seed: int, screen: _Screen, **instruments: Any
         return bench, screen.simulated(bench.prompt)
     if instruments["dmm"] is None:
         raise InputError("capture needs --dmm FILE (or --simulate TRUE_BOARD)", key="--dmm")
-    return open_bench(**instruments), screen.ask
+    board, plan = planned
+    return open_bench(**instruments, board=board, plan=plan), screen.ask
 
 
 def _run_capture(design, store, session, bench, prompt, screen, json: bool, settings):
