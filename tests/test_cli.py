@@ -150,11 +150,22 @@ def test_diagnose_json_contract():
 
 def test_derive_gain_matches_first_order_gum():
     # G = 0.120/0.010 = 12; relative u = sqrt(1%² + 1%²) (JCGM 100:2008 eq. 10, ratio).
-    out = run("derive", "gain", "--vin", "10m", "--vout", "120m", "--json")
+    out = run("derive", "gain", "--vin", "10m", "--vout", "120m", "--u-vin", "1%",
+              "--u-vout", "1%", "--json")
     assert out.returncode == 0, out.stderr
     data = json.loads(out.stdout)
     assert data["value"] == pytest.approx(12.0)
     assert data["uncertainty"] == pytest.approx(12.0 * (2 * 0.01**2) ** 0.5, rel=1e-9)
+
+
+def test_derive_gain_defaults_add_the_ac_noise_floor():
+    # Each voltage at 1 % + 10 µV (the documented AC default): u(v_in) = 110 µV,
+    # u(v_out) = 1.21 mV; JCGM 100:2008 eq. 10 for the ratio:
+    # u(G) = sqrt((12·110e-6/0.01)² + (1.21e-3/0.01)²) = sqrt(0.132² + 0.121²).
+    out = run("derive", "gain", "--vin", "10m", "--vout", "120m", "--json")
+    assert out.returncode == 0, out.stderr
+    assert json.loads(out.stdout)["uncertainty"] == pytest.approx(
+        (0.132**2 + 0.121**2) ** 0.5, rel=1e-9)
 
 
 def test_derive_row_reads_back_as_a_reading(tmp_path):

@@ -105,3 +105,34 @@ def test_no_other_module_keeps_a_unit_for_a_quantity(name: str) -> None:
 def test_no_other_module_writes_a_default_uncertainty_rule() -> None:
     copies = [str(p.relative_to(ROOT)) for p, text in _sources() if "UncertaintyRule(" in text]
     assert not copies, f"default uncertainty rules outside model/quantities.py: {copies}"
+
+
+def test_a_typed_gains_default_is_what_derive_gain_gives_with_its_defaults() -> None:
+    # Issue: a gain row typed with no uncertainty and `derive gain` with no --u-… must
+    # agree; both are first-order propagation of two AC voltages (JCGM 100:2008 eq. 10).
+    from reconcile.data.derived_readings import gain_from_ac
+    from reconcile.data.readings import Reading, default_uncertainty
+    from reconcile.model.quantities import AC_VOLTAGE_DEFAULT, GAIN_INPUT_VRMS
+
+    for gain in (0.001, 0.5, 1.0, 9.1, 120.0):
+        v_in, v_out = GAIN_INPUT_VRMS, gain * GAIN_INPUT_VRMS
+        derived = gain_from_ac(v_in, AC_VOLTAGE_DEFAULT.standard(v_in),
+                               v_out, AC_VOLTAGE_DEFAULT.standard(v_out))
+        typed = default_uncertainty(Reading.from_si("gain", "", gain))
+        assert typed == pytest.approx(derived.uncertainty, rel=1e-12), gain
+
+
+def test_a_dead_stages_gain_keeps_the_ac_meters_noise_floor() -> None:
+    # 10 µV of noise on v_out over a 10 mV input: u(G) >= 1e-3 whatever G is, so a gain
+    # of 0.001 is not held to 1 % of itself (1e-5) and cannot dominate a fit.
+    from reconcile.data.readings import Reading, default_uncertainty
+
+    assert default_uncertainty(Reading.from_si("gain", "", 0.001)) >= 1e-3
+    assert default_uncertainty(Reading.from_si("gain", "", 0.0)) == pytest.approx(1e-3)
+
+
+def test_the_gain_default_assumes_the_capture_runs_amplitude() -> None:
+    from reconcile.capture.run import DEFAULT_SIGNAL_VRMS
+    from reconcile.model.quantities import GAIN_INPUT_VRMS
+
+    assert GAIN_INPUT_VRMS == DEFAULT_SIGNAL_VRMS

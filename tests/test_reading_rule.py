@@ -174,7 +174,8 @@ def test_a_row_derive_prints_loads_back():
     (reading,) = readings_from_text(result.stdout, path="<derive>")
     assert reading.quantity == "gain"
     # GUM 7.2.6: the value is rounded to the last digit of a two-digit uncertainty
-    assert reading.uncertainty == pytest.approx(0.16)
+    # u = hypot(G·112 µV, 1.19 mV)/10.2 mV = 0.172 (1 % + 10 µV each, JCGM 100 eq. 10)
+    assert reading.uncertainty == pytest.approx(0.17)
     assert abs(reading.value - 0.118 / 10.2e-3) <= 0.005
 
 

@@ -273,7 +273,8 @@ RECT = math.sqrt(3.0)  # JCGM 100:2008 4.3.7: limits ±a -> u = a/√3
         ("current", 0.54e-3, (0.002 * 0.54e-3 + 2 * 2e-3 / 20000) / RECT),
         ("resistance", 9930.0, (0.001 * 9930.0 + 2 * 20e3 / 20000 + 0.1) / RECT),
         ("capacitance", 1e-5, 0.02 * 1e-5 / RECT),
-        ("gain", 11.2, 0.01 * 11.2),
+        # two AC voltages at 1 % + 10 µV, v_in = 10 mV (JCGM 100:2008 eq. 10 for a ratio)
+        ("gain", 11.2, math.hypot(11.2 * 110e-6, 0.01 * 0.112 + 10e-6) / 0.01),
         ("input_resistance", 79.0, 0.02 * 79.0),
         ("output_resistance", 1500.0, 0.02 * 1500.0),
         ("temperature", 300.15, 1.0),
@@ -293,4 +294,31 @@ def test_every_quantity_has_a_documented_default() -> None:
 def test_given_uncertainty_wins_and_zero_relative_default_is_an_error() -> None:
     assert standard_uncertainty(Reading("gain", "", 11.0, "", 0.3)) == 0.3
     with pytest.raises(InputError, match="give one in the uncertainty column"):
-        default_uncertainty(Reading("gain", "", 0.0, "", None, line=7))
+        # 2 % of reading: nothing left at 0 (a gain has an absolute floor: not this case)
+        default_uncertainty(Reading("input_resistance", "", 0.0, "", None, line=7))
+
+
+def test_a_supplys_current_defaults_to_its_read_back_on_the_board(board: Board) -> None:
+    # A bench supply's current display: ±(0.2 % of reading + 0.1 mA), rectangular
+    # (common practice; JCGM 100:2008 4.3.7 for the √3). Far coarser than a DMM's
+    # ±(0.2 % + 2 counts) on the 2 mA range, which a resistor's current keeps.
+    supply = next(iter(board.supplies))
+    resistor = next(iter(board.resistors))
+    at_supply = Reading("current", supply, 0.54e-3, "A", None)
+    at_resistor = Reading("current", resistor, 0.54e-3, "A", None)
+    readback = (0.002 * 0.54e-3 + 0.1e-3) / RECT
+    dmm = (0.002 * 0.54e-3 + 2 * 2e-3 / 20000) / RECT
+    assert default_uncertainty(at_supply, board) == pytest.approx(readback, rel=1e-12)
+    assert standard_uncertainty(at_supply, board) == pytest.approx(readback, rel=1e-12)
+    assert default_uncertainty(at_resistor, board) == pytest.approx(dmm, rel=1e-12)
+    assert default_uncertainty(at_supply) == pytest.approx(dmm, rel=1e-12)  # no board
+    given = dataclasses.replace(at_supply, uncertainty=1e-6)
+    assert standard_uncertainty(given, board) == 1e-6
+
+
+def test_the_fit_weighs_a_supply_current_as_its_read_back(board: Board) -> None:
+    from reconcile.inference.measure import observations_from
+
+    supply = next(iter(board.supplies))
+    (ob,) = observations_from([Reading("current", supply, 0.54e-3, "A", None)], board)
+    assert ob.uncertainty == pytest.approx((0.002 * 0.54e-3 + 0.1e-3) / RECT, rel=1e-12)

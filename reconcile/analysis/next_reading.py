@@ -91,7 +91,7 @@ def suggest_next(fit: FitResult, *, top: int = 3) -> list[Suggestion]:
     for k, (q, at, f) in enumerate(cands):
         proto = Reading.from_si(q, at, float(pred[k]))
         try:
-            u = default_uncertainty(proto)
+            u = default_uncertainty(proto, board)
         except InputError:  # a zero reading with a purely relative default
             u = 1e-3
         dvar = gch[:, k] ** 2 / (hch[k] + u**2)

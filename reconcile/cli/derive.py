@@ -22,10 +22,12 @@ derive_app = typer.Typer(
     rich_markup_mode=None,
 )
 
-AC_DEFAULT = "1%"
-"""Default standard uncertainty of a typed AC voltage reading: 1 % of reading (common
-practice for a bench AC meter or an oscilloscope's rms measurement)."""
+AC_DEFAULT = "default"
+"""An AC voltage typed with no ``--u-…``: the registry's AC voltage default
+(:data:`reconcile.model.quantities.AC_VOLTAGE_DEFAULT`, 1 % of reading + 10 µV), the
+same the readings file's gain default is worked out from."""
 
+_U_HELP = "a value, a %, or default (1 % + 10 µV)."
 JsonOpt = Annotated[bool, typer.Option("--json", help="Print exactly one JSON object on stdout.")]
 
 
@@ -40,10 +42,15 @@ def _volts(text: str, option: str) -> float:
 
 
 def _u(text: str, value: float, kind: str, option: str) -> float:
-    """A standard uncertainty: ``1%`` of the value, or an absolute value string."""
+    """A standard uncertainty: the AC voltage default, ``1%`` of the value, or an
+    absolute value string."""
     from reconcile.errors import InputError
     from reconcile.model.values import parse_tolerance, parse_value
 
+    if text.strip() == AC_DEFAULT:
+        from reconcile.model.quantities import AC_VOLTAGE_DEFAULT
+
+        return AC_VOLTAGE_DEFAULT.standard(value)
     try:
         if text.strip().endswith(("%", "ppm")):
             return abs(value) * parse_tolerance(text)
@@ -90,9 +97,9 @@ def _emit(quantity: str, value: float, u: float, unit: str, note: str, json: boo
 def derive_gain(
     vin: Annotated[str, typer.Option(help="AC voltage at the input node, rms (e.g. 10.2m).")],
     vout: Annotated[str, typer.Option(help="AC voltage at the output node, rms.")],
-    u_vin: Annotated[str, typer.Option(help="Its standard uncertainty (value or %).")] = AC_DEFAULT,
+    u_vin: Annotated[str, typer.Option(help="Its standard uncertainty: " + _U_HELP)] = AC_DEFAULT,
     u_vout: Annotated[
-        str, typer.Option(help="Its standard uncertainty (value or %).")
+        str, typer.Option(help="Its standard uncertainty: " + _U_HELP)
     ] = AC_DEFAULT,
     correlation: Annotated[
         float, typer.Option(help="Correlation of the two readings' errors.")
@@ -126,10 +133,10 @@ def derive_input_resistance(
         "--series-tolerance",
         help="Its tolerance, e.g. 1% or F (read as rectangular).")] = "1%",
     u_v1: Annotated[
-        str, typer.Option(help="Standard uncertainty of V1 (value or %).")
+        str, typer.Option(help="Standard uncertainty of V1: " + _U_HELP)
     ] = AC_DEFAULT,
     u_v2: Annotated[
-        str, typer.Option(help="Standard uncertainty of V2 (value or %).")
+        str, typer.Option(help="Standard uncertainty of V2: " + _U_HELP)
     ] = AC_DEFAULT,
     correlation: Annotated[float, typer.Option(help="Correlation of the V1 and V2 errors.")] = 0.0,
     json: JsonOpt = False,

@@ -45,7 +45,12 @@ from reconcile.model.board import GND, Board
 from reconcile.errors import InputError, InputErrors
 from reconcile.model import decibels
 from reconcile.model.text_files import read_text
-from reconcile.model.quantities import COUNTS_FULL_SCALE, REGISTRY, UncertaintyRule
+from reconcile.model.quantities import (
+    COUNTS_FULL_SCALE,
+    REGISTRY,
+    SUPPLY_READBACK_DEFAULT,
+    UncertaintyRule,
+)
 from reconcile.model.values import KINDS, ZERO_CELSIUS_K, parse_value
 
 __all__ = [
@@ -145,8 +150,12 @@ DEFAULT_UNCERTAINTY: dict[str, UncertaintyRule] = {
 }
 
 
-def default_uncertainty(reading: Reading) -> float:
+def default_uncertainty(reading: Reading, board: Board | None = None) -> float:
     """The default standard uncertainty of a reading, SI units (K for temperature).
+
+    With ``board``, a ``current`` at one of its supplies is the supply's own read-back
+    (:data:`reconcile.model.quantities.SUPPLY_READBACK_DEFAULT`); without it, or at a
+    resistor, the DMM's.
 
     The defaults are the registry's (:mod:`reconcile.model.quantities`, listed in the
     README's readings table): a 4½-digit bench DMM (20 000 counts, auto-ranging) for
@@ -165,6 +174,8 @@ def default_uncertainty(reading: Reading) -> float:
         the file must give an uncertainty for it.
     """
     rule = REGISTRY[reading.quantity].default_uncertainty
+    if reading.quantity == "current" and board is not None and reading.at in board.supplies:
+        rule = SUPPLY_READBACK_DEFAULT
     if rule is None:
         raise InputError(
             f"{reading.quantity} has no default uncertainty: give one in the uncertainty "
@@ -180,8 +191,9 @@ def default_uncertainty(reading: Reading) -> float:
     return u
 
 
-def standard_uncertainty(reading: Reading) -> float:
-    """The reading's uncertainty as given, else :func:`default_uncertainty`.
+def standard_uncertainty(reading: Reading, board: Board | None = None) -> float:
+    """The reading's uncertainty as given, else :func:`default_uncertainty` (on
+    ``board``, if given, which tells a supply's read-back from an ammeter's reading).
 
     Every analysis takes a reading's uncertainty here, so a reading made in code is held
     to the rule of :mod:`reconcile.data.validation` too.
@@ -194,7 +206,7 @@ def standard_uncertainty(reading: Reading) -> float:
     check_reading(reading)
     if reading.uncertainty is not None:
         return reading.uncertainty
-    return default_uncertainty(reading)
+    return default_uncertainty(reading, board)
 
 
 # ----------------------------------------------------------------------- parsing

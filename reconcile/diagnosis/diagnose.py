@@ -273,7 +273,7 @@ def diagnose(
     ):
         raise InputError(f"max faults must be 1 or 2, got {max_faults!r}", key="--max-faults")
     weights = fault_weights(prior_weights)
-    obs = observations_from(readings)
+    obs = observations_from(readings, board)
     if not obs:
         raise InputError("diagnose needs at least one reading the board model predicts")
     ambient, ambient_u = ambient_from(readings)

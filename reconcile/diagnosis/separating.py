@@ -79,11 +79,11 @@ def _candidates(board: Board, obs: list[Observation]) -> list[ReadingKey]:
     return [e.key for e in readings_one_could_take(board, taken=taken)]
 
 
-def _reading_u(quantity: str, at: str, value: float) -> float | None:
+def _reading_u(board: Board, quantity: str, at: str, value: float) -> float | None:
     if not math.isfinite(value):
         return None
     try:
-        return default_uncertainty(Reading.from_si(quantity, at, float(value)))
+        return default_uncertainty(Reading.from_si(quantity, at, float(value)), board)
     except InputError:
         return None
 
@@ -111,7 +111,7 @@ def separating_reading(
     u = np.full_like(pred, np.nan)
     for c, (q, at, _) in enumerate(cands):
         for i in range(k):
-            ui = _reading_u(q, at, pred[i, c])
+            ui = _reading_u(board, q, at, pred[i, c])
             if ui is not None:
                 u[i, c] = ui
         known = u[:, c][np.isfinite(u[:, c])]

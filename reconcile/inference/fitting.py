@@ -217,7 +217,7 @@ def fit_board(
     """
     from reconcile.inference.chi_square import upper_tail
 
-    obs = observations_from(readings)
+    obs = observations_from(readings, board)
     if space is None:
         ambient, ambient_u = ambient_from(readings)
         space = build_space(

@@ -75,13 +75,14 @@ class Observation:
     frequency: float | None = None  # small-signal: Hz; None for [signal] frequency
 
 
-def observations_from(readings: list[Reading]) -> list[Observation]:
-    """Readings the model predicts (temperature readings excluded)."""
+def observations_from(readings: list[Reading], board: Board | None = None) -> list[Observation]:
+    """Readings the model predicts (temperature readings excluded); ``board`` tells a
+    supply's current read-back from an ammeter's for the default uncertainties."""
     out = []
     for r in readings:
         if r.quantity not in PREDICTED:
             continue
-        out.append(Observation(r.quantity, r.at, r.value, standard_uncertainty(r), r,
+        out.append(Observation(r.quantity, r.at, r.value, standard_uncertainty(r, board), r,
                                r.frequency))
     return out
 

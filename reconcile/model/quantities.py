@@ -100,6 +100,62 @@ class UncertaintyRule:
 
 _RECT = math.sqrt(3.0)
 
+AC_VOLTAGE_DEFAULT = UncertaintyRule(
+    0.01, absolute=10e-6,
+    basis="AC voltage, rms: 1 % of reading + a 10 µV noise floor, standard uncertainty",
+)
+"""An AC voltage read by hand with no uncertainty given (``derive``, and the two
+voltages of the gain default): 1 % of reading plus a 10 µV noise floor, as one standard
+uncertainty (common practice for a bench AC meter or an oscilloscope's rms measurement
+on its lowest ranges)."""
+
+SUPPLY_READBACK_DEFAULT = UncertaintyRule(
+    0.002, absolute=0.1e-3, divisor=_RECT,
+    basis="bench supply current read-back ±(0.2 % of reading + 0.1 mA), rectangular",
+)
+"""A ``current`` at a supply ref typed with no uncertainty: the supply's own current
+read-back, ±(0.2 % of reading + 0.1 mA) taken as rectangular (common practice for a
+bench supply's display with 0.1 mA resolution). A current read with an ammeter in the
+supply's lead is as good as that ammeter: give its uncertainty, or it is taken at this
+read-back default."""
+
+GAIN_INPUT_VRMS = 0.01
+"""The input amplitude, V rms, the gain default assumes: the capture run's generator
+amplitude (:data:`reconcile.capture.run.DEFAULT_SIGNAL_VRMS`; a test holds them equal)."""
+
+
+@dataclass(frozen=True)
+class RatioRule(UncertaintyRule):
+    """The default of a gain v_out/v_in typed with no uncertainty: the two AC voltages
+    it was worked out from, each at :data:`AC_VOLTAGE_DEFAULT`, v_in at
+    :data:`GAIN_INPUT_VRMS`, uncorrelated, propagated to first order (JCGM 100:2008
+    eq. 10), exactly as ``derive gain`` does with its defaults::
+
+        u(G)² = (G·u(v_in)/v_in)² + (u(G·v_in)/v_in)²
+
+    The voltages' noise floor gives the gain an absolute floor (10 µV / 10 mV = 1e-3),
+    so a dead stage's gain of 0.001 is not held to 1e-5. ``relative`` is the
+    proportional part both voltages carry (√2 × 1 %), the instrument's share
+    :mod:`reconcile.inference.calibration` models as a calibration factor.
+    """
+
+    voltage: UncertaintyRule = AC_VOLTAGE_DEFAULT
+    input_vrms: float = GAIN_INPUT_VRMS
+
+    def limits(self, value: float) -> float:
+        """The standard uncertainty (this rule's divisor is 1)."""
+        v_in = self.input_vrms
+        u_in = self.voltage.standard(v_in)
+        u_out = self.voltage.standard(abs(value) * v_in)
+        return math.hypot(abs(value) * u_in / v_in, u_out / v_in) * self.divisor
+
+
+_GAIN_DEFAULT = RatioRule(
+    math.sqrt(2.0) * AC_VOLTAGE_DEFAULT.relative,
+    basis="from two AC voltages at 1 % + 10 µV each, v_in 10 mV rms: "
+    "√((G·u(v_in))² + u(v_out)²)/v_in, standard uncertainty",
+)
+
 
 # --------------------------------------------------------------------- quantities
 @dataclass(frozen=True)
@@ -219,7 +275,7 @@ REGISTRY: Mapping[str, Quantity] = _register(
     ),
     Quantity(
         "gain", "", "plain", QuantityKind.SMALL_SIGNAL,
-        UncertaintyRule(0.01, basis="1 % of reading, standard uncertainty"),
+        _GAIN_DEFAULT,
         "gain |v_out / v_in|", "gain", non_negative=True, spec_target=True,
         value_range=(0.0, 1e6), min_uncertainty=1e-9, decibels=True,
     ),

@@ -209,7 +209,7 @@ def _readings_section(d: ReportData) -> str:
     for r in d.readings:
         unit = numbers.quantity_symbol(r.quantity)
         value = f"{r.value - 273.15:.2f} °C" if r.quantity == "temperature" else _num(r.value, unit)
-        u = standard_uncertainty(r)
+        u = standard_uncertainty(r, d.board)
         f = fits.get((r.quantity, r.at, r.frequency))
         z = "–" if f is None else f"{f['normalized_residual']:+.2f}"
         if f is not None and f.get("suspect"):
