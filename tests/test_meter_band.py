@@ -18,9 +18,12 @@ from fit_support import sample_board
 from reconcile.capture.bench_setup import open_bench
 from reconcile.capture.run import Capture
 from reconcile.capture.simulated_bench import SimulatedBench
+from reconcile.data.readings import Reading
 from reconcile.data.frequency_band import FrequencyBand
 from reconcile.errors import InputError
 from reconcile.instruments.profile import InstrumentProfile, load_profile
+from reconcile.model.board_loader import load_board
+from reconcile.pipeline.inputs import AnalysisInputs
 from reconcile.store.repository import open_store
 
 HERE = Path(__file__).resolve().parent
@@ -127,3 +130,66 @@ def test_cli_capture_refuses_a_frequency_outside_the_band_in_one_line(tmp_path):
     assert "10 Hz to 300 kHz" in result.message_lines[0] and result.stdout == ""
     with open_store(db_path) as db:
         assert db.readings(sid) == []
+
+
+# ----------------------------------------------------------------------------- typed readings
+def _board_with_instruments(tmp_path: Path, listed: str) -> Path:
+    text = (SAMPLES / "line_receiver_cb.toml").read_text(encoding="utf-8")
+    text = text.replace('[bench]\nvoltmeter_ohms = "10M"\n',
+                        f'[bench]\nvoltmeter_ohms = "10M"\ninstruments = [{listed}]\n')
+    path = tmp_path / "board.toml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def _readings(tmp_path: Path, rows: str) -> Path:
+    path = tmp_path / "readings.csv"
+    path.write_text("quantity,at,value,unit,uncertainty,instrument,note,frequency\n"
+                    "voltage,b,1.2458,V,,DMM-A,,\nvoltage,e,0.6394,V,,DMM-A,,\n" + rows,
+                    encoding="utf-8")
+    return path
+
+
+def test_a_typed_reading_outside_its_meters_band_is_kept_and_flagged(tmp_path):
+    (tmp_path / "meters").mkdir()
+    (tmp_path / "meters" / "bench-dmm.toml").write_text(DMM.read_text(encoding="utf-8"),
+                                                        encoding="utf-8")
+    board = _board_with_instruments(tmp_path, '"meters/bench-dmm.toml"')
+    readings = _readings(tmp_path, "gain,,9.3,,0.1,Bench-DMM,,1k\n"       # inside: silent
+                                   "gain,,5.1,,0.1,bench-dmm,,100k\n"       # line 5: outside
+                                   "gain,,9.9,,0.1,scope CH1/CH2,,100k\n"   # not a listed meter
+                                   "gain,,8.7,,0.1,bench DMM (invented Nullbench DM-65),,\n")
+    inputs = AnalysisInputs.from_files(board, readings)
+    (flagged,) = inputs.warnings
+    assert f"{readings}:5: gain at 100 kHz" in flagged
+    assert "20 Hz to 20 kHz" in flagged and "bench-dmm.toml" in flagged
+    assert len(inputs.readings) == 6  # every reading kept
+    # the board's [signal] frequency (10 kHz) is inside; a narrower band would flag it
+    narrow = tmp_path / "meters" / "narrow.toml"
+    narrow.write_text('[instrument]\nname = "old meter"\nrole = "ac_voltmeter"\n'
+                      'resource = "SIM::X"\n[accuracy.ac_volts]\nband_hz = [20.0, 5e3]\n',
+                      encoding="utf-8")
+    board = _board_with_instruments(tmp_path, '"meters/narrow.toml"')
+    readings = _readings(tmp_path, "input_resistance,,86,ohm,2,OLD METER,,\n")
+    (flag,) = AnalysisInputs.from_files(board, readings).warnings
+    assert "input_resistance at 10 kHz names instrument 'OLD METER'" in flag
+    assert "20 Hz to 5 kHz" in flag
+
+
+def test_a_stored_sessions_typed_readings_are_flagged_too(tmp_path, store):
+    board = _board_with_instruments(tmp_path, f'"{DMM.as_posix()}"')
+    sid = store.create_session(load_board(board))
+    store.add_reading(sid, Reading.from_si("gain", "", 4.0, 0.1, instrument="bench-dmm",
+                                           frequency=50e3), source="test")
+    (flag,) = AnalysisInputs.from_session(sid, store=store).warnings
+    assert flag.startswith(f"session {sid}: gain at 50 kHz") and "20 Hz to 20 kHz" in flag
+
+
+def test_bench_instruments_must_be_paths_and_a_missing_one_is_said(tmp_path):
+    with pytest.raises(InputError, match="bench.instruments is a list of instrument file"):
+        load_board(_board_with_instruments(tmp_path, "3"))
+    board = _board_with_instruments(tmp_path, '"nowhere.toml"')
+    (said,) = AnalysisInputs.from_files(board, _readings(tmp_path, "")).warnings
+    assert "nowhere.toml not found" in said and "[bench.instruments]" in said
+    assert load_board(board).bench.instruments == (str(tmp_path / "nowhere.toml"),)
+    assert AnalysisInputs.from_files(board).warnings == ()  # design mode: nothing to check

@@ -142,12 +142,15 @@ class Bench:
 
     ``voltmeter_ohms`` is the DC voltmeter's input resistance; ``probe_ohms`` and
     ``probe_farads`` the probe (or AC meter input) on the signal's input and output
-    nodes during small-signal readings (``inf`` and 0: no probe).
+    nodes during small-signal readings (``inf`` and 0: no probe). ``instruments`` are
+    the instrument files of the bench's meters, which a reading's ``instrument`` cell
+    may name (paths, relative ones resolved against the board file's folder).
     """
 
     voltmeter_ohms: float = 10e6
     probe_ohms: float = float("inf")
     probe_farads: float = 0.0
+    instruments: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)

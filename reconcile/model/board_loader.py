@@ -342,7 +342,7 @@ def _build(data: dict[str, Any], check: _Checker, path: str, text: str) -> Board
     supply_nodes = _check_supplies(check, topology, bool(data.get("supplies")))
     signal = _signal(data, check, topology, supply_nodes)
     _check_dc_paths(check, topology, signal)
-    bench = _bench(data, check)
+    bench = _bench(data, check, path)
     spec = _spec(data, check)
     if not check.errors:
         _warn_connections(check, topology, signal)
@@ -843,14 +843,16 @@ def _warn_implausible(
                  f"{param} of device {name}", unit)
 
 
-def _bench(data: dict[str, Any], check: _Checker) -> Bench:
+def _bench(data: dict[str, Any], check: _Checker, path: str) -> Bench:
     if "bench" not in data:
         return Bench()
     table = check.table(("bench",), data["bench"], "with voltmeter_ohms = ...")
     if table is None:
         return Bench()
-    check.keys(("bench",), table, ("voltmeter_ohms", "probe"), "[bench]")
-    fields: dict[str, float] = {}
+    check.keys(("bench",), table, ("voltmeter_ohms", "probe", "instruments"), "[bench]")
+    fields: dict[str, Any] = {}
+    if "instruments" in table:
+        fields["instruments"] = _instrument_files(check, table["instruments"], path)
     if "voltmeter_ohms" in table:
         number = check.positive(
             ("bench", "voltmeter_ohms"), table["voltmeter_ohms"], "ohms", "voltmeter_ohms",
@@ -861,6 +863,21 @@ def _bench(data: dict[str, Any], check: _Checker) -> Bench:
     if "probe" in table:
         fields.update(_probe(check, table["probe"]))
     return Bench(**fields)
+
+
+def _instrument_files(check: _Checker, raw: Any, path: str) -> tuple[str, ...]:
+    """``instruments = ["dmm.toml", ...]`` (docs/formats.md §6.5): relative paths are
+    taken against the board file's folder (a board not read from a file: as written)."""
+    key = ("bench", "instruments")
+    items = [raw] if isinstance(raw, str) else raw
+    if not isinstance(items, list) or not all(
+            isinstance(i, str) and i.strip() and i.isprintable() for i in items):
+        check.error(key, 'bench.instruments is a list of instrument file paths, like '
+                         '["instruments/bench-dmm.toml"]')
+        return ()
+    folder = os.path.dirname(os.path.abspath(path)) if os.path.isfile(path) else ""
+    return tuple(os.path.normpath(os.path.join(folder, i.strip())) if folder else i.strip()
+                 for i in items)
 
 
 def _probe(check: _Checker, raw: Any) -> dict[str, float]:

@@ -5,6 +5,9 @@ board and readings here, from files or from a stored session, and the pipeline
 (:mod:`reconcile.pipeline.analyses`) runs on the result. Where the inputs came from
 decides where a result is recorded: a session's results go back into its store, with a
 digest of exactly what was analysed (:func:`reconcile.data.digest.inputs_sha256`).
+Small-signal readings naming a meter of ``[bench] instruments`` at a frequency outside
+its specified band are flagged here, whichever way they came in
+(:mod:`reconcile.pipeline.meter_bands`).
 """
 
 from __future__ import annotations
@@ -18,6 +21,7 @@ from typing import Any, Literal
 from reconcile.data.readings import Reading
 from reconcile.errors import InputError
 from reconcile.model.board import Board
+from reconcile.pipeline.meter_bands import flag_readings_outside_bands
 
 Origin = Literal["files", "session", "objects"]
 """Where the inputs came from: files on disk, a stored session, or objects made in code."""
@@ -52,6 +56,9 @@ class AnalysisInputs:
     Build one with :meth:`from_files`, :meth:`from_session`, :meth:`from_objects` or
     (the command line's one call) :meth:`gather`. ``store`` is a store location (path
     or URL, None for the default) or an open :class:`reconcile.store.Store`.
+    ``notices`` are the readings loader's notes; ``warnings`` the readings flagged
+    against their meters' bands (:mod:`reconcile.pipeline.meter_bands`), also noted as
+    input warnings for the command line.
     """
 
     board: Board
@@ -64,6 +71,7 @@ class AnalysisInputs:
     store: Any = field(default=None, repr=False, compare=False)
     digest: str | None = None
     notices: tuple[str, ...] = ()
+    warnings: tuple[str, ...] = ()
 
     # ------------------------------------------------------------ building
     @classmethod
@@ -79,6 +87,7 @@ class AnalysisInputs:
             readings=None if readings is None else tuple(readings),
             options=options or AnalysisOptions(),
             origin="objects",
+            warnings=tuple(flag_readings_outside_bands(board, readings)),
         )
 
     @classmethod
@@ -106,6 +115,8 @@ class AnalysisInputs:
             board_path=str(board_path),
             readings_path=None if readings_path is None else str(readings_path),
             notices=tuple(notices),
+            warnings=tuple(flag_readings_outside_bands(
+                board, readings, None if readings_path is None else str(readings_path))),
         )
 
     @classmethod
@@ -140,6 +151,7 @@ class AnalysisInputs:
             session=session,
             store=store,
             digest=inputs_sha256(board, readings),
+            warnings=tuple(flag_readings_outside_bands(board, readings, f"session {session}")),
         )
 
     @classmethod
