@@ -17,7 +17,11 @@ import numpy as np
 import pytest
 from fit_support import SAMPLE_DATA, draw_truth, sample_board
 
-from reconcile.analysis.next_reading import candidate_readings
+from reconcile.analysis.next_reading import (
+    candidate_readings,
+    fitted_response,
+    low_band_frequencies,
+)
 from reconcile.capture.plan import dc_nodes as plan_dc_nodes
 from reconcile.capture.plan import plan_readings
 from reconcile.capture.simulated_bench import SimulatedBench
@@ -210,11 +214,15 @@ def test_self_consistency_next_reading_candidates_are_the_catalogue_not_yet_take
     plan = [("voltage", "b/gnd") if p == ("voltage", "b") else p for p in plan]
     readings = truth.read(plan, rng)
     fit = fit_board(board, readings)
-    cands = candidate_readings(fit)
+    cands = candidate_readings(fit, frequencies=())
     assert cands == [e.key for e in readings_one_could_take(board)
                      if e.key not in {reading_key(q, at) for q, at in plan}]
     assert ("voltage", "b", None) not in cands
     assert ("gain", "", None) not in cands
+    # by default, the gain at each low-band test frequency as well (and only the gain)
+    lows = low_band_frequencies(fitted_response(fit))
+    assert len(lows) >= 2
+    assert candidate_readings(fit) == cands + [("gain", "", f) for f in lows]
 
 
 def test_self_consistency_separating_candidates_are_the_catalogue_not_yet_taken() -> None:

@@ -21,7 +21,12 @@ from fit_support import draw_truth, quantity_gradient, quantity_stderr, sample_b
 
 from reconcile.model.board import Board
 from reconcile.inference.fitting import fit_board
-from reconcile.analysis.next_reading import candidate_readings, suggest_next
+from reconcile.analysis.next_reading import (
+    candidate_readings,
+    fitted_response,
+    low_band_frequencies,
+    suggest_next,
+)
 from reconcile.inference.simulate import full_plan
 
 MIN_PREDICTED_SHRINK = 0.03
@@ -57,7 +62,7 @@ def test_predicted_shrink_matches_refit_self_consistency(case: str) -> None:
     readings = truth.read(plan_of(board), rng)
     fit = fit_board(board, readings)
     top = suggest_next(fit, top=1)[0]
-    new = truth.read([(top.quantity, top.at)], rng)
+    new = truth.read([(top.quantity, top.at, top.frequency)], rng)
     refit = fit_board(board, readings + new)
     checked = 0
     for q, before in top.before.items():
@@ -114,3 +119,70 @@ def test_suggestions_are_readings_not_yet_taken() -> None:
     assert {(s.quantity, s.at, s.frequency) for s in suggestions} == set(cands)
     scores = [s.score for s in suggestions]
     assert scores == sorted(scores, reverse=True)
+
+
+# ----------------------------------------------------------------------------- low band
+def _with_low_corner_spec(name: str, max_hz: str) -> Board:
+    from pathlib import Path
+
+    from reconcile.model.board_loader import board_from_text
+
+    path = Path(__file__).resolve().parent.parent / "sample_data" / f"{name}.toml"
+    text = path.read_text(encoding="utf-8").replace(
+        "[spec]\n", f'[spec]\nlow_corner = {{ max = "{max_hz}" }}\n')
+    return board_from_text(text, f"{name} with a low_corner spec")
+
+
+def _corner_gradient_by_refinding_self_consistency(fit, step: float = 1e-5) -> np.ndarray:
+    """∂f_L/∂x by forward differences of the engine's root-found low corner, every
+    internal coordinate stepped in one batched solve."""
+    from reconcile.engine import compile_board, solve_batch
+    from reconcile.engine.sweep import find_corners
+    from reconcile.inference.priors import ParameterSpace
+
+    circuit = compile_board(fit.board)
+    space = ParameterSpace(circuit, fit.space.parameters)
+    xs = np.vstack([fit.x, fit.x + step * np.eye(fit.x.size)])
+    low = find_corners(solve_batch(circuit, space.to_parameters(xs)).linear).low_corner
+    return (low[1:] - low[0]) / step
+
+
+@pytest.mark.parametrize("name,max_hz,seed", [("preamp_ce", "10", 6),
+                                              ("line_receiver_cb", "60", 7)])
+def test_low_band_gain_is_proposed_for_a_specd_corner_self_consistency(name, max_hz, seed):
+    # The board's capacitors are all "from prior" after the DC readings and the gain at
+    # [signal] frequency; with the low corner in the spec, a gain near the corner is
+    # among the readings proposed, and the corner's gradient the ranking uses (implicit
+    # function theorem on the engine's gain rows) agrees with re-finding the corner.
+    from reconcile.analysis.corner_gradients import (
+        CornerGoal,
+        corner_gradients,
+        corner_observations,
+    )
+    from reconcile.inference.measure import MeasurementModel
+
+    board = _with_low_corner_spec(name, max_hz)
+    rng = np.random.default_rng(seed)
+    truth = draw_truth(board, rng)
+    fit = fit_board(board, truth.read(full_plan(board), rng))
+    assert {fit.parameters[c].informed_by for c in board.capacitors} == {"prior"}
+    response = fitted_response(fit)
+    lows = low_band_frequencies(response)
+    assert lows[0] == pytest.approx(response.low_corner, rel=0.05)
+    assert lows[1] == pytest.approx(response.low_corner / 10, rel=0.05)
+    top = suggest_next(fit, top=3)
+    low_gains = [s for s in top if s.quantity == "gain" and s.frequency in lows]
+    assert low_gains, [s.label for s in top]
+    assert low_gains[0].after["low_corner"] < 0.7 * low_gains[0].before["low_corner"]
+    goals = [CornerGoal("low_corner", response.low_corner)]
+    model = MeasurementModel(board, corner_observations(goals, response.midband_frequency),
+                             fit.space)
+    pred, jac = model.jacobian(fit.x)
+    g = corner_gradients(goals, pred, jac)[0]
+    ref = _corner_gradient_by_refinding_self_consistency(fit)
+    sd_c = np.sqrt(np.diag(fit.covariance))  # compare as shifts of one posterior sd
+    np.testing.assert_allclose(g * sd_c, ref * sd_c, atol=2e-3 * np.max(np.abs(ref * sd_c)))
+
+
+def test_no_low_band_without_a_low_corner() -> None:
+    assert low_band_frequencies(None) == []
