@@ -85,3 +85,50 @@ def test_fit_ignoring_meter_is_biased_and_chi_square_rejects_it(loaded) -> None:
     z = _z(fit, truth.internal(fit.space))
     assert fit.p_value < 1e-3 and fit.verdict == "inconsistent", f"p = {fit.p_value:.3g}"
     assert abs(z["Q1.beta"]) > 5.0, z
+
+
+# ------------------------------------------------------------------ ammeter burden
+def _series_pair(bench: str = "") -> str:
+    from boards import resistor, supply
+
+    return (supply("VCC", "vcc", 10) + resistor("R1", "vcc", "a", "1k")
+            + resistor("R2", "a", "gnd", "9k") + bench)
+
+
+def _predicted(board_text: str, readings) -> np.ndarray:
+    from reconcile.inference.measure import MeasurementModel, observations_from
+
+    board = board_from_text(board_text, path="pair.toml")
+    model = MeasurementModel(board, observations_from(readings, board))
+    return model.predict(model.space.prior_mean[None])[0]
+
+
+def test_a_current_through_a_resistor_carries_the_ammeters_burden():
+    # Ohm's law for resistors in series (any circuit text): the ammeter's burden r in
+    # series with R2 gives I = V/(R1 + R2 + r); the supply's read-back of the same board
+    # has no ammeter in it, and neither does a voltage read elsewhere.
+    from reconcile.data.readings import Reading
+
+    readings = [Reading.from_si("current", "R2", 1e-3), Reading.from_si("current", "VCC", 1e-3)]
+    i_r2, i_supply = _predicted(_series_pair(table("bench", ammeter_ohms="50")), readings)
+    assert i_r2 == pytest.approx(10.0 / (1e3 + 9e3 + 50.0), rel=1e-12)
+    assert i_supply == pytest.approx(10.0 / 10e3, rel=1e-12)
+    ideal, _ = _predicted(_series_pair(table("bench", ammeter_ohms="0")), readings)
+    assert ideal == pytest.approx(1e-3, rel=1e-12)
+
+
+def test_the_documented_default_burden_applies_when_the_file_is_silent():
+    from reconcile.data.readings import Reading
+    from reconcile.model.board import DEFAULT_AMMETER_OHMS
+
+    (i_r2,) = _predicted(_series_pair(), [Reading.from_si("current", "R2", 1e-3)])
+    assert i_r2 == pytest.approx(10.0 / (10e3 + DEFAULT_AMMETER_OHMS), rel=1e-12)
+
+
+@pytest.mark.parametrize("value", ["-1", "inf", "ten"])
+def test_a_bad_burden_is_one_error_naming_the_key(value):
+    from reconcile.errors import InputErrors
+
+    with pytest.raises(InputErrors) as err:
+        board_from_text(_series_pair(table("bench", ammeter_ohms=value)), path="pair.toml")
+    assert "ammeter_ohms" in str(err.value) and "pair.toml" in str(err.value)

@@ -15,7 +15,8 @@ about 1e-24, rounding about 1e-22), to 1e-6 of the largest derivative of that re
 The readings cover voltages with the meter attached (one node, a node pair, a repeat),
 a supply current, a resistor current, a part read out of circuit and calibration factors
 shared by repeated readings of one instrument, on DC-only boards and on a board with a
-small-signal set-up.
+small-signal set-up. A resistor's current is read with the ammeter's burden
+(``bench.ammeter_ohms``) in series with that resistor, on a board of its own.
 """
 
 from __future__ import annotations
@@ -96,6 +97,12 @@ class Reference:
         for a, b in model.probes:
             self.boards.append(MpProbeBoard(circuit, base,
                                             (circuit.node_index(a), circuit.node_index(b), g)))
+        #: board row -> (resistor column, ammeter burden): the ammeter in series with it
+        self.burden = {}
+        for ref in model.ammeters:
+            self.burden[len(self.boards)] = (circuit.resistor_refs.index(ref),
+                                             mp.mpf(model.board.bench.ammeter_ohms))
+            self.boards.append(MpProbeBoard(circuit, base))
         self.inverses: list = [None] * len(self.boards)
         self._cache: tuple | None = None
 
@@ -122,9 +129,14 @@ class Reference:
             return vals, self._cache[1]
         out = []
         for i, mpb in enumerate(self.boards):
-            v, f, inverse = mpb.solve(vals, self.v0[i], self.inverses[i])
+            own = vals
+            if i in self.burden:
+                col, ohms = self.burden[i]
+                own = {k: list(v) for k, v in vals.items()}
+                own["resistor_ohms"][col] += ohms
+            v, f, inverse = mpb.solve(own, self.v0[i], self.inverses[i])
             self.inverses[i] = inverse
-            out.append((v, f))
+            out.append((v, f, own))
         self._cache = (key, out)
         return vals, out
 
@@ -134,7 +146,7 @@ class Reference:
         vals, solved = self._solutions(ext)
         out = []
         for k, (kind, row, what) in enumerate(model.plan):
-            v, f = solved[row]
+            v, f, vals = solved[row]
             if kind == "voltage":
                 out.append(v[what[0]] - v[what[1]])
             elif kind == "supply_current":

@@ -2,12 +2,13 @@
 
 The measurement model (:mod:`reconcile.inference.measure`) predicts DC voltages (with
 the voltmeter attached), supply currents and resistor currents from one engine solve of
-the board and one board per probe position. Their derivatives come from that same
-solve: :func:`reconcile.engine.sensitivity.dc_sensitivity` gives d(reading)/d(engine
+the board, one board per probe position and one per resistor read through an
+ammeter. Their derivatives come from that same solve: :func:`reconcile.engine.sensitivity.dc_sensitivity` gives d(reading)/d(engine
 parameter) by the implicit function theorem for the board alone, and
 :func:`~reconcile.engine.sensitivity.dc_functional_sensitivity` the row of each voltage
 read with the meter attached from its own probe board (one adjoint solve each); the
-chain rule takes them to the internal coordinates of
+rows of a current read through an ammeter come from the forward sensitivities of that
+ammeter's board; the chain rule takes them to the internal coordinates of
 :class:`~reconcile.inference.priors.ParameterSpace`:
 
     d(reading)/dx_j = d(reading)/d(external_j) · d(external_j)/dx_j,
@@ -128,6 +129,8 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
     plan = model.plan
     base = [k for k, (kind, row, _) in enumerate(plan) if kind in DC_KINDS and row == 0]
     probed = [k for k, (kind, row, _) in enumerate(plan) if kind == "voltage" and row > 0]
+    metered = [k for k, (kind, row, _) in enumerate(plan)
+               if kind == "resistor_current" and row > 0]
     dv = None
     if node_derivatives:
         dv = np.zeros((model.circuit.n_nodes + 1, x.size))
@@ -145,10 +148,29 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
         d_probe = _probe_derivatives(model, solution, cols)
         for k in probed:
             jac[k, owners] = d_probe[plan[k][1] - 1] * slope[owners]
+    if cols and metered:
+        _ammeter_rows(model, solution, cols, metered, owners, slope, jac)
     for k, (kind, _, what) in enumerate(plan):
         if kind == "parameter":
             jac[k, what] = slope[what]
     return jac, dv
+
+
+def _ammeter_rows(model: MeasurementModel, solution: BatchSolution, cols, metered: list[int],
+                  owners: np.ndarray, slope: np.ndarray, jac: np.ndarray) -> None:
+    """Rows of the currents read through an ammeter, in place: the forward sensitivities
+    of each ammeter's own board (its resistor carrying the burden in series, whose
+    column is then the resistor's own: d(R + r)/dR = 1)."""
+    rows = np.array(sorted({model.plan[k][1] for k in metered}), dtype=np.intp)
+    st = solution.state
+    state = DCState(v=st.v[rows], vj=st.vj[rows], converged=st.converged[rows],
+                    iterations=st.iterations[rows])
+    newton = None if solution.newton_matrix is None else solution.newton_matrix[rows]
+    sens = dc_sensitivity(model.circuit, solution.params.take(rows), state, cols, newton)
+    for k in metered:
+        _, row, what = model.plan[k]
+        i = int(np.searchsorted(rows, row))
+        jac[k, owners] = sens.resistor_current[i, what] * slope[owners]
 
 
 def _first(state: DCState) -> DCState:

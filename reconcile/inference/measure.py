@@ -5,8 +5,10 @@ Every reading is predicted the way it was taken:
 * a DC ``voltage`` with the voltmeter (``bench.voltmeter_ohms``) attached across the two
   nodes it was read between — a separate solve per distinct probe position, all in the
   same batched engine call;
-* a ``current`` from the board with no meter attached (a supply's read-back, or an
-  ammeter in series with a resistor whose burden voltage is neglected);
+* a ``current`` at a supply from the board with no meter attached (the supply's own
+  read-back); a ``current`` through a resistor with the ammeter in series, its burden
+  ``bench.ammeter_ohms`` added to that resistor on a board of its own (one per resistor
+  read);
 * ``gain``, ``input_resistance`` and ``output_resistance`` with the [signal] set-up:
   the generator's source resistance and the load, as the contract defines them, each at
   its own ``frequency`` (blank: ``[signal] frequency``); the distinct frequencies of a
@@ -20,9 +22,10 @@ predicted times that factor (:mod:`reconcile.inference.calibration`).
 A ``temperature`` reading is the ambient; it sets the prior of the junction
 temperature (see :mod:`reconcile.priors`) and is not predicted.
 
-For M parameter vectors the model runs one engine call of M·(1 + K) boards, K being the
-number of distinct probe positions: row 0 of each group is the board alone, row k the
-board with probe k attached.
+For M parameter vectors the model runs one engine call of M·(1 + K + A) boards, K being
+the number of distinct probe positions and A the resistors whose current is read: row 0
+of each group is the board alone, row k the board with probe k attached, row K + a the
+board with the ammeter in series with resistor a.
 
 The Jacobian (:meth:`MeasurementModel.jacobian`) is analytic for every DC reading and
 every part read out of circuit (:mod:`reconcile.inference.dc_jacobian`: the engine's
@@ -119,12 +122,17 @@ class MeasurementModel:
                 if pair not in probes:
                     probes.append(pair)
         self.probes = tuple(probes)
+        #: resistors whose current is read through an ammeter with a burden
+        self.ammeters = tuple(dict.fromkeys(
+            ob.at for ob in observations
+            if ob.quantity == "current" and ob.at in board.resistors and model_meter
+            and board.bench.ammeter_ohms > 0.0))
         self.circuit = compile_board(board, self.probes)
         self.space = space if space is not None else build_space(self.circuit)
         if self.space.circuit is not self.circuit:
             # Rebuild the space on this circuit (same parameters, probes added).
             self.space = ParameterSpace(self.circuit, self.space.parameters)
-        self.group = 1 + len(self.probes)
+        self.group = 1 + len(self.probes) + len(self.ammeters)
         self.base = nominal_parameters(self.circuit, 1)
         self._state: DCState | None = None
         self._last: tuple[bytes, BatchSolution] | None = None
@@ -152,7 +160,9 @@ class MeasurementModel:
         if q == "current":
             if ob.at in c.supply_refs:
                 return ("supply_current", 0, c.supply_refs.index(ob.at))
-            return ("resistor_current", 0, c.resistor_refs.index(ob.at))
+            row = (1 + len(self.probes) + self.ammeters.index(ob.at)
+                   if ob.at in self.ammeters else 0)
+            return ("resistor_current", row, c.resistor_refs.index(ob.at))
         if q in SMALL_SIGNAL:
             if ob.frequency is not None:
                 return ("small_signal_at", 0, (q, self.frequencies.index(ob.frequency)))
@@ -189,9 +199,17 @@ class MeasurementModel:
         if self.probes:
             g = 1.0 / self.board.bench.voltmeter_ohms
             probe = np.zeros((x.shape[0] * self.group, len(self.probes)))
-            rows = np.arange(x.shape[0])[:, None] * self.group + np.arange(1, self.group)[None, :]
+            k = len(self.probes)
+            rows = np.arange(x.shape[0])[:, None] * self.group + np.arange(1, 1 + k)[None, :]
             probe[rows, np.arange(len(self.probes))[None, :]] = g
             p = p.with_values(probe_siemens=probe)
+        if self.ammeters:
+            ohms = p.resistor_ohms.copy()
+            first = 1 + len(self.probes)
+            for a, ref in enumerate(self.ammeters):
+                rows = np.arange(x.shape[0]) * self.group + first + a
+                ohms[rows, self.circuit.resistor_refs.index(ref)] += self.board.bench.ammeter_ohms
+            p = p.with_values(resistor_ohms=ohms)
         return p
 
     def _signal_rows(self, m: int) -> np.ndarray:

@@ -136,11 +136,20 @@ class Signal:
     frequency: float = 1e3
 
 
+DEFAULT_AMMETER_OHMS = 10.0
+"""The series burden of the ammeter a resistor's current is read with, ohms, when the
+board file does not say: a bench DMM on its milliampere ranges puts a few ohms to tens of
+ohms in series (its burden voltage at full scale over the range; common practice). Give
+your meter's own figure as ``[bench] ammeter_ohms``."""
+
+
 @dataclass(frozen=True)
 class Bench:
     """How the bench reads the board.
 
-    ``voltmeter_ohms`` is the DC voltmeter's input resistance; ``probe_ohms`` and
+    ``voltmeter_ohms`` is the DC voltmeter's input resistance; ``ammeter_ohms`` the
+    series burden of the meter a ``current`` through a resistor is read with
+    (:data:`DEFAULT_AMMETER_OHMS`; 0: an ideal ammeter); ``probe_ohms`` and
     ``probe_farads`` the probe (or AC meter input) on the signal's input and output
     nodes during small-signal readings (``inf`` and 0: no probe). ``instruments`` are
     the instrument files of the bench's meters, which a reading's ``instrument`` cell
@@ -148,6 +157,7 @@ class Bench:
     """
 
     voltmeter_ohms: float = 10e6
+    ammeter_ohms: float = DEFAULT_AMMETER_OHMS
     probe_ohms: float = float("inf")
     probe_farads: float = 0.0
     instruments: tuple[str, ...] = ()

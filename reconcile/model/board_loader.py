@@ -849,7 +849,8 @@ def _bench(data: dict[str, Any], check: _Checker, path: str) -> Bench:
     table = check.table(("bench",), data["bench"], "with voltmeter_ohms = ...")
     if table is None:
         return Bench()
-    check.keys(("bench",), table, ("voltmeter_ohms", "probe", "instruments"), "[bench]")
+    check.keys(("bench",), table, ("voltmeter_ohms", "ammeter_ohms", "probe", "instruments"),
+               "[bench]")
     fields: dict[str, Any] = {}
     if "instruments" in table:
         fields["instruments"] = _instrument_files(check, table["instruments"], path)
@@ -860,6 +861,14 @@ def _bench(data: dict[str, Any], check: _Checker, path: str) -> Bench:
         )
         if number is not None:
             fields["voltmeter_ohms"] = number
+    if "ammeter_ohms" in table:
+        number = check.value(("bench", "ammeter_ohms"), table["ammeter_ohms"], "ohms")
+        if number is not None and not 0.0 <= number < math.inf:
+            check.error(("bench", "ammeter_ohms"),
+                        f"ammeter_ohms must be 0 (an ideal ammeter) or a finite burden in "
+                        f"ohms, found {table['ammeter_ohms']!r}")
+        elif number is not None:
+            fields["ammeter_ohms"] = number
     if "probe" in table:
         fields.update(_probe(check, table["probe"]))
     return Bench(**fields)
