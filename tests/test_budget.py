@@ -84,3 +84,34 @@ def test_small_problems_run_blas_on_one_thread_and_restore_it(monkeypatch):
         assert blas_threads() == before
         monkeypatch.setenv("RECONCILE_BLAS_THREADS", "2")
         assert inner() == before  # two threads asked for, as outside
+
+
+def test_scipy_blas_is_held_only_when_asked_and_numpy_work_does_not_import_it():
+    # threadpoolctl (a reference library) reports every loaded BLAS library's threads;
+    # a fresh interpreter shows what the numpy-only path imports
+    import json
+    import os
+    import subprocess
+    import sys
+
+    script = (
+        "import json, sys\n"
+        "from threadpoolctl import threadpool_info, threadpool_limits\n"
+        "from reconcile.inference.threads import small_problem_threads\n"
+        "def blas(): return sorted(i['num_threads'] for i in threadpool_info() "
+        "if i['user_api'] == 'blas')\n"
+        "with threadpool_limits(limits=2, user_api='blas'):\n"
+        "    with small_problem_threads():\n"
+        "        print('scipy.linalg' in sys.modules)\n"
+        "    with small_problem_threads(scipy=True):\n"
+        "        print(json.dumps(blas()))\n"
+    )
+    env = {k: v for k, v in os.environ.items() if k != "RECONCILE_BLAS_THREADS"}
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True,
+                          check=True, env=env)
+    without_scipy, held = done.stdout.split("\n")[:2]
+    assert without_scipy == "False"
+    counts = json.loads(held)
+    if not counts:
+        pytest.skip("no BLAS library that threadpoolctl can see")
+    assert set(counts) == {1}

@@ -48,23 +48,40 @@ def _value(text: str | None, kind: str, option: str, default: float) -> float:
 class _Screen:
     """Prints a capture run: a live line per reading, a line per stored reading.
 
-    On a terminal the value updates in place until it settles (rich Live); elsewhere
-    (a pipe, a log file) only the stored readings are printed. With ``--json``
-    everything goes to stderr, so stdout holds the one JSON object.
+    On a terminal the value updates in place until it settles (rich Live, on stderr, with
+    the run's progress: which of the plan's readings it is on); elsewhere (a pipe, a log
+    file) only the stored readings are printed. With ``--json`` everything goes to
+    stderr, so stdout holds the one JSON object, and the progress is left out.
     """
 
     def __init__(self, *, json_output: bool) -> None:
         from reconcile.present.console import make_console
 
         self.console = make_console(stderr=json_output, highlight=False, soft_wrap=True)
+        self.status = make_console(stderr=True, highlight=False, soft_wrap=True)
+        self.counting = not json_output
+        self.steps: dict[str, int] = {}
+        self.step = 0
         self.live: Any = None
+
+    def follow(self, plan: tuple[Any, ...]) -> None:
+        """Count progress through ``plan`` (its readings' labels, in order)."""
+        self.steps = {p.label: i for i, p in enumerate(plan, start=1)}
 
     def _stop_live(self) -> None:
         if self.live is not None:
             self.live.stop()
             self.live = None
 
+    def _where(self, label: str) -> str:
+        """``reading 3 of 12 · `` for the plan's reading ``label`` belongs to."""
+        self.step = self.steps.get(label.split(": ")[0], self.step)
+        if not (self.counting and self.steps and self.step):
+            return ""
+        return f"reading {self.step} of {len(self.steps)} · "
+
     def show(self, event: LiveValue) -> None:
+        where = self._where(event.label)
         if event.stored:
             self._stop_live()
             u = (
@@ -75,16 +92,16 @@ class _Screen:
                 f"[green]stored[/] {event.label}: {_shown(event.value, event.unit, 7)}{u}"
             )
             return
-        if not self.console.is_terminal:
+        if not self.status.is_terminal:
             return
         from rich.live import Live
         from rich.text import Text
 
         state = "settled" if event.settled else "settling"
-        text = Text(f"  {event.label}: {_shown(event.value, event.unit, 7)}  "
+        text = Text(f"  {where}{event.label}: {_shown(event.value, event.unit, 7)}  "
                     f"(value {event.sample}, {state})")
         if self.live is None:
-            self.live = Live(text, console=self.console, auto_refresh=False, transient=True)
+            self.live = Live(text, console=self.status, auto_refresh=False, transient=True)
             self.live.start()
         self.live.update(text, refresh=True)
 
@@ -318,6 +335,7 @@ def _run_capture(design, store, session, bench, prompt, screen, json: bool, sett
                 scanner=bench.scanner, ac_voltmeter=bench.ac_voltmeter,
                 generator=bench.generator, prompt=prompt, show=screen.show, **settings,
             )
+            screen.follow(run.plan)
             try:
                 return run.run()
             except CaptureInterrupted as stop:

@@ -187,7 +187,7 @@ class FitResult:
         }
 
 
-@small_problem_threads()
+@small_problem_threads(scipy=True)
 def fit_board(
     board: Board,
     readings: list[Reading],

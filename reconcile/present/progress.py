@@ -1,12 +1,20 @@
-"""A progress bar for long batched work, on stderr (never with ``--json``)."""
+"""A progress bar for long batched work, on stderr (never with ``--json``).
+
+rich's progress module is imported only when a display is drawn: a ``--json`` run does
+not pay for it.
+"""
 
 from __future__ import annotations
 
 import contextlib
 from collections.abc import Callable, Iterator
 
+from typing import TYPE_CHECKING
+
 from reconcile.present.console import make_console
-from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+if TYPE_CHECKING:
+    from rich.progress import Progress
 
 SHOW_FROM_ROWS = 50_000
 """Work of fewer rows finishes in about a second or two: no bar for it."""
@@ -14,6 +22,8 @@ SHOW_FROM_ROWS = 50_000
 
 def _bar(*extra) -> Progress:
     """The one transient bar on stderr: description, bar, done of total, ``extra``."""
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
     return Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), *extra,
                     console=make_console(stderr=True), transient=True)
 
@@ -27,6 +37,8 @@ def chunk_progress(
     if not enabled or total < SHOW_FROM_ROWS:
         yield None
         return
+    from rich.progress import TimeRemainingColumn
+
     progress = _bar(TimeRemainingColumn())
     with progress:
         task = progress.add_task(description, total=total)
@@ -71,12 +83,15 @@ def stage_progress(enabled: bool = True) -> Iterator[Stage]:
     trim, a lot): a transient spinner on stderr with the step and the time it has taken.
     When disabled (``--json``) or when stderr is not a terminal, ``stage`` draws
     nothing, so callers call it either way."""
-    from rich.progress import SpinnerColumn, TimeElapsedColumn
-
-    console = make_console(stderr=True)
-    if not enabled or not console.is_terminal:
+    if not enabled:
         yield _silent_stage
         return
+    console = make_console(stderr=True)
+    if not console.is_terminal:
+        yield _silent_stage
+        return
+    from rich.progress import Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
+
     progress = Progress(SpinnerColumn(), TextColumn("{task.description}"), TimeElapsedColumn(),
                         console=console, transient=True)
     with progress:

@@ -33,8 +33,9 @@ listed option with a subset of its parts and actions is of at least its tier and
 
 The yield of each listed option (and of the board as it is) is a Monte Carlo fraction
 over ``samples`` draws of the posterior and of the new parts' tolerances (uniform within
-±tolerance), all options in one engine call; see :mod:`reconcile.trim_yield`. It is
-reported, not used for the ranking.
+±tolerance), every option on the same draws, in engine calls of at most
+:data:`reconcile.engine.budget.THROUGHPUT_ROWS` boards; see :mod:`reconcile.trim.yields`.
+It is reported, not used for the ranking.
 
 Capacitors are not changed: the spec quantities of the boards this tool is aimed at are
 set by resistors and the bias point, with coupling and bypass capacitors chosen large.

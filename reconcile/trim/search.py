@@ -39,12 +39,10 @@ from reconcile.model.board import Board
 from reconcile.model.kinds import TrimMode
 from reconcile.engine import BatchSolution, Circuit, DCState, Parameters, solve_batch
 from reconcile.engine.batch import bytes_per_board
-from reconcile.engine.budget import chunks, rows_per_chunk
+from reconcile.engine.budget import THROUGHPUT_ROWS, chunks, rows_per_chunk
 from reconcile.inference.priors import ParameterSpace
 from reconcile.trim.candidates import PARALLEL, Singles
 
-CHUNK_BOARDS = 65_536
-"""Boards per engine call when a candidate set is larger (bounds memory, not speed)."""
 
 FD_STEP_OF_PRIOR_SD = 0.01
 """Finite-difference step for the sensitivities, as a fraction of each prior sd."""
@@ -181,8 +179,9 @@ def _probe_boards(space: ParameterSpace, x: np.ndarray, base_params: Parameters,
 
 def boards_per_call(circuit: Circuit) -> int:
     """Boards per engine call within half the memory budget, at most
-    :data:`CHUNK_BOARDS`."""
-    return rows_per_chunk(bytes_per_board(circuit), share=0.5, at_most=CHUNK_BOARDS)
+    :data:`reconcile.engine.budget.THROUGHPUT_ROWS` (the engine's fastest call size,
+    which also keeps a large candidate set's working memory to a few tens of MiB)."""
+    return rows_per_chunk(bytes_per_board(circuit), share=0.5, at_most=THROUGHPUT_ROWS)
 
 
 def _watched(sol: BatchSolution, board: Board, circuit: Circuit) -> np.ndarray:
@@ -376,8 +375,8 @@ def evaluate(
     single_v: np.ndarray | None = None,
     keep_v: bool = False,
 ) -> Scores:
-    """Solve every candidate exactly and score it (chunks of :data:`CHUNK_BOARDS` or
-    fewer, within the memory budget).
+    """Solve every candidate exactly and score it (chunks of :func:`boards_per_call`
+    boards).
 
     ``single_v`` (node voltages of every single change) seeds Newton at the first-order
     superposition of the changes' effects; otherwise it starts from the built board.

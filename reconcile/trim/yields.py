@@ -23,7 +23,7 @@ import numpy as np
 
 from reconcile.engine import DCState, Parameters, solve_batch
 from reconcile.engine.batch import bytes_per_board
-from reconcile.engine.budget import chunks, rows_per_chunk
+from reconcile.engine.budget import THROUGHPUT_ROWS, chunks, rows_per_chunk
 from reconcile.trim.candidates import Singles
 from reconcile.trim.search import (
     Context,
@@ -89,7 +89,10 @@ def yields(
         option_v = np.repeat(ctx.base.state.v, n_opt, axis=0)
     n_r = len(ctx.circuit.resistor_refs)
     per_option = samples * (bytes_per_board(ctx.circuit) + 64 * (n_r + combos.shape[1]))
-    group = rows_per_chunk(per_option, share=0.5)
+    # Options are grouped only to fill engine calls (a few samples each): a group of about
+    # two calls' worth of boards runs as fast as a larger one and holds far less.
+    fill = max(1, -(-2 * THROUGHPUT_ROWS // max(samples, 1)))
+    group = rows_per_chunk(per_option, share=0.5, at_most=fill)
     out: list[YieldEstimate] = []
     for sl in chunks(n_opt, group):
         out += _yields_of(ctx, singles, combos[sl], samples, x_draws, rng, option_v[sl])
