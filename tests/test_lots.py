@@ -136,7 +136,7 @@ def test_jig_batched_fit_agrees_with_fit_board_loop_self_consistency(jig, jig_lo
             assert value == pytest.approx(est.value, rel=1e-6)
             stderr = slope * math.sqrt(batched.covariance[i, j, j])
             assert stderr == pytest.approx(est.stderr, rel=1e-3)
-        assert batched.chi_square[i] == pytest.approx(one.chi_square, rel=1e-4, abs=1e-6)
+        assert batched.chi_square[i] == pytest.approx(one.objective, rel=1e-4, abs=1e-6)
 
 
 def test_jig_sample_files_find_the_odd_device():

@@ -1,24 +1,26 @@
 """Back-solve the built board from its readings: a maximum a posteriori fit.
 
-The only module that imports lmfit. The objective is the weighted residual of every
-reading, (predicted − measured)/u, stacked with one prior row per free parameter,
-(x − prior mean)/prior sd (see :mod:`reconcile.priors`). lmfit's ``least_squares``
-method (scipy's trust-region reflective, with the hard bounds native) minimises it; the
-Jacobian is the measurement model's (:meth:`MeasurementModel.jacobian`): analytic for the
-DC readings, from the solve the residuals already made at that point, and forward
-differences of the board alone for small-signal readings.
-``scale_covar=False``: the uncertainties are real, so the covariance is inv(JᵀJ) of the
-whole weighted system, unscaled — the linearised posterior.
+The objective (:mod:`reconcile.inference.lmfit_problem`) is the weighted residual of
+every reading, (predicted − measured)/u, stacked with one prior row per free parameter,
+(x − prior mean)/prior sd (see :mod:`reconcile.inference.priors`), over lmfit
+Parameters named from the keys (``Q1.IS`` → ``Q1_IS``; the mapping is
+``FitResult.names``). lmfit's ``least_squares`` method (scipy's trust-region reflective,
+with the hard bounds native) minimises it, with the measurement model's Jacobian
+(:meth:`MeasurementModel.jacobian`: analytic for DC readings, forward differences of the
+board alone for small-signal ones) as ``Dfun``. ``scale_covar=False``: the uncertainties
+are real, so lmfit's own covariance, inv(JᵀJ) of the whole weighted system at the
+solution, unscaled, is the linearised posterior. Only where lmfit gives none (a singular
+JᵀJ) is it recomputed here, by pseudo-inverse, and ``FitResult.covariance_source`` says
+so. The ``MinimizerResult`` is kept on the result (``FitResult.minimizer_result``).
 
-Consistency: under the model, the total objective χ² (readings and prior rows) follows a
-χ² distribution with as many degrees of freedom as there are readings (each prior row
-is balanced by its parameter). The verdict uses that distribution's upper tail.
+Consistency (:mod:`reconcile.inference.readings_verdict`): the verdict uses the
+readings' χ² alone, on the readings less the parameters they inform (the effective
+number of parameters); the prior penalty is reported beside it.
 """
 
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -27,15 +29,19 @@ from reconcile.model.board import Board
 from reconcile.model.kinds import Verdict
 from reconcile.engine import compile_board
 from reconcile.inference.calibration import calibration_parameters
+from reconcile.inference.lmfit_problem import NAN_PENALTY, LmfitProblem
 from reconcile.inference.measure import MeasurementModel, ambient_from, observations_from
+from reconcile.inference.parameter_names import ParameterNames
 from reconcile.inference.priors import ParameterSpace, build_space
+from reconcile.inference.readings_verdict import ReadingsChiSquare, readings_chi_square
 from reconcile.data.readings import Reading
 from reconcile.inference.threads import small_problem_threads
 
 SUSPECT_SIGMA = 3.0
 P_CONSISTENT = 0.01
 P_INCONSISTENT = 0.001
-NAN_PENALTY = 1e4
+
+__all__ = ["NAN_PENALTY", "Estimate", "FitResult", "ReadingFit", "fit_board"]
 
 
 @dataclass(frozen=True)
@@ -110,13 +116,23 @@ class FitResult:
     covariance: np.ndarray  # internal coordinates
     parameters: dict[str, Estimate]
     readings: list[ReadingFit]
-    chi_square: float
-    dof: int
+    chi_square: float  # the readings' χ² (the verdict's)
+    dof: float  # readings − effective parameters
     p_value: float
     success: bool
     evaluations: int
     message: str
     calibration: dict[str, Estimate] = field(default_factory=dict)
+    prior_penalty: float = 0.0  # Σ ((x − prior mean)/prior sd)², beside the verdict
+    prior_p_value: float = 1.0  # the penalty's χ² upper tail on the effective parameters
+    effective_parameters: float = 0.0  # the parameters the readings inform, tr(H)
+    covariance_source: str = "lmfit"  # or "recomputed" where lmfit gave none
+    names: ParameterNames | None = field(default=None, repr=False, compare=False)
+    """Parameter key ↔ lmfit name (``names.name_of["Q1.IS"] == "Q1_IS"``)."""
+    minimizer_result: object | None = field(default=None, repr=False, compare=False)
+    """lmfit's ``MinimizerResult`` (its ``params`` in internal coordinates, named by
+    :attr:`names`), for notebooks."""
+    problem: LmfitProblem | None = field(default=None, repr=False, compare=False)
 
     def __repr__(self) -> str:
         from reconcile.present.show import brief
@@ -132,6 +148,21 @@ class FitResult:
     @property
     def space(self) -> ParameterSpace:
         return self.model.space
+
+    @property
+    def objective(self) -> float:
+        """The whole MAP objective at the fit: the readings' χ² plus the prior penalty."""
+        return self.chi_square + self.prior_penalty
+
+    @property
+    def parts_plausible(self) -> bool:
+        """Whether the fitted values sit within their priors as far as chance allows
+        (``prior_p_value`` at least ``P_INCONSISTENT``); reported beside the verdict."""
+        return bool(self.prior_p_value >= P_INCONSISTENT)
+
+    @property
+    def readings_count(self) -> int:
+        return len(self.readings)
 
     @property
     def verdict(self) -> Verdict:
@@ -180,6 +211,12 @@ class FitResult:
             "dof": self.dof,
             "p_value": self.p_value,
             "verdict": self.verdict,
+            "readings_count": self.readings_count,
+            "effective_parameters": self.effective_parameters,
+            "prior_penalty": self.prior_penalty,
+            "prior_p_value": self.prior_p_value,
+            "parts_plausible": self.parts_plausible,
+            "covariance_source": self.covariance_source,
             "suspects": [f"{r.quantity}@{r.at}" if r.at else r.quantity for r in self.suspects],
             "correlations": {"keys": keys, "matrix": corr.tolist(), "strong": strong},
             "predicted": self.predicted_solution().to_dict(),
@@ -215,8 +252,6 @@ def fit_board(
     space
         A prepared parameter space (diagnosis passes modified priors).
     """
-    from reconcile.inference.chi_square import upper_tail
-
     obs = observations_from(readings, board)
     if space is None:
         ambient, ambient_u = ambient_from(readings)
@@ -231,44 +266,37 @@ def fit_board(
             for fp in space.parameters))
     model = MeasurementModel(board, obs, space, model_meter=model_meter)
     space = model.space
-    meas = model.measured
-    unc = model.uncertainty
-    mu, sd = space.prior_mean, space.prior_sd
     lo, hi = space.lower, space.upper
-    x0 = np.clip(mu if start is None else np.asarray(start, float), lo + 1e-12, hi - 1e-12)
+    x0 = space.prior_mean if start is None else np.asarray(start, float)
+    x0 = np.clip(x0, lo + 1e-12, hi - 1e-12)
 
-    x, result, evaluations = _minimise(model, x0)
-    pred0, cov = _posterior(model, x)
-    post_sd = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    z = (pred0 - meas) / unc
-    chi_data = float(np.nansum(z**2))
-    chi_prior = float(np.sum(((x - mu) / sd) ** 2))
-    chi2 = chi_data + chi_prior
-    dof = len(obs)
-    p_value = upper_tail(chi2, dof) if dof > 0 else 1.0
-    estimates = _estimates(space, x, post_sd)
+    problem = LmfitProblem(model)
+    result = _minimise(problem, x0)
+    x = problem.vector(result.params)
+    cov, source = _covariance(problem, result, x)
+    pred0 = problem.prediction_at(x)
+    z = (pred0 - model.measured) / model.uncertainty
+    stats = readings_chi_square(z, x, space.prior_mean, space.prior_sd, cov)
+    estimates = _estimates(space, x, np.sqrt(np.clip(np.diag(cov), 0.0, None)))
     factors = {fp.key: estimates.pop(fp.key) for fp in space.parameters if fp.kind == "calibration"}
     fits = [
-        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]), float(unc[k]), float(z[k]),
-                   ob.frequency)
+        ReadingFit(ob.quantity, ob.at, ob.measured, float(pred0[k]),
+                   float(model.uncertainty[k]), float(z[k]), ob.frequency)
         for k, ob in enumerate(obs)
     ]
     converged = bool(result.success) and bool(np.all(np.isfinite(pred0)))
     return FitResult(
-        board=board,
-        model=model,
-        x=x,
-        covariance=cov,
-        parameters=estimates,
-        readings=fits,
-        chi_square=chi2,
-        dof=dof,
-        p_value=p_value if math.isfinite(p_value) else 0.0,
-        success=converged,
-        evaluations=evaluations,
-        message=str(result.message),
-        calibration=factors,
+        board=board, model=model, x=x, covariance=cov, parameters=estimates, readings=fits,
+        **_verdict_fields(stats), success=converged, evaluations=problem.evaluations,
+        message=str(result.message), calibration=factors, covariance_source=source,
+        names=problem.names, minimizer_result=result, problem=problem,
     )
+
+
+def _verdict_fields(stats: ReadingsChiSquare) -> dict:
+    return {"chi_square": stats.chi_square, "dof": stats.dof, "p_value": stats.p_value,
+            "prior_penalty": stats.prior_penalty, "prior_p_value": stats.prior_p_value,
+            "effective_parameters": stats.effective_parameters}
 
 
 def _calibration_dict(e: Estimate) -> dict:
@@ -281,57 +309,26 @@ def _calibration_dict(e: Estimate) -> dict:
     }
 
 
-def _minimise(model: MeasurementModel, x0: np.ndarray):
-    """The MAP point by lmfit's least_squares from ``x0``: (x, lmfit result, model
-    evaluations)."""
-    import lmfit
-
-    space = model.space
-    meas, unc = model.measured, model.uncertainty
-    mu, sd = space.prior_mean, space.prior_sd
-    lo, hi = space.lower, space.upper
-    params = lmfit.Parameters()
-    names = [f"p{j}" for j in range(space.size)]
-    for j, name in enumerate(names):
-        params.add(name, value=float(x0[j]), min=float(lo[j]), max=float(hi[j]))
-
-    def vector(p) -> np.ndarray:
-        return np.array([p[n].value for n in names])
-
-    counter = {"n": 0}
-
-    def residual(p) -> np.ndarray:
-        x = vector(p)
-        counter["n"] += 1
-        pred = model.predict(x[None, :])[0]
-        r = (pred - meas) / unc
-        r = np.where(np.isfinite(r), r, NAN_PENALTY)
-        return np.concatenate([r, (x - mu) / sd])
-
-    def jacobian(p) -> np.ndarray:
-        x = vector(p)
-        counter["n"] += space.size + 1
-        _, jac = model.jacobian(x)
-        jac = np.where(np.isfinite(jac), jac, 0.0) / unc[:, None]
-        return np.concatenate([jac, np.diag(1.0 / sd)], axis=0)
-
-    minimizer = lmfit.Minimizer(residual, params, scale_covar=False)
-    result = minimizer.minimize(
-        method="least_squares", jac=jacobian, x_scale="jac", ftol=1e-10, xtol=1e-10, gtol=1e-10
+def _minimise(problem: LmfitProblem, x0: np.ndarray):
+    """The MAP point by lmfit's least_squares from ``x0``: lmfit's ``MinimizerResult``."""
+    return problem.minimizer.minimize(
+        method="least_squares", params=problem.parameters(x0), x_scale="jac",
+        ftol=1e-10, xtol=1e-10, gtol=1e-10,
     )
-    return vector(result.params), result, counter["n"]
 
 
-def _posterior(model: MeasurementModel, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Predicted readings at ``x`` and the linearised posterior covariance there."""
-    unc, sd = model.uncertainty, model.space.prior_sd
-    pred0, jac = model.jacobian(x)
-    j_w = np.concatenate([np.where(np.isfinite(jac), jac, 0.0) / unc[:, None], np.diag(1.0 / sd)])
-    try:
-        cov = np.linalg.inv(j_w.T @ j_w)
-    except np.linalg.LinAlgError:
-        cov = np.linalg.pinv(j_w.T @ j_w)
-    return pred0, cov
+def _covariance(problem: LmfitProblem, result, x: np.ndarray) -> tuple[np.ndarray, str]:
+    """lmfit's covariance (``scale_covar=False``) and ``"lmfit"``; where lmfit gives
+    none (JᵀJ singular), the pseudo-inverse of JᵀJ at ``x`` and ``"recomputed"``, also
+    written to the Parameters' ``stderr`` (which a profile needs)."""
+    if result.covar is not None and np.all(np.isfinite(result.covar)):
+        return np.array(result.covar, dtype=float), "lmfit"
+    j_w = problem.weighted_jacobian(x)
+    cov = np.linalg.pinv(j_w.T @ j_w)
+    for j, name in enumerate(problem.names.names):
+        result.params[name].stderr = float(np.sqrt(max(cov[j, j], 0.0)))
+    result.covar = cov
+    return cov, "recomputed"
 
 
 def _estimates(space: ParameterSpace, x: np.ndarray, post_sd: np.ndarray) -> dict[str, Estimate]:

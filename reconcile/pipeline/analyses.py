@@ -233,14 +233,14 @@ def trim_step(
 def _drawn_fit_and_diagnosis(
     inputs: AnalysisInputs, fit: FitResult | None
 ) -> tuple[FitResult, Diagnosis | None]:
-    """The fit of the board as drawn (``fit``, or made here) and, when it does not
-    explain the readings, the diagnosis a trim then follows (policies.working_hypothesis)."""
-    from reconcile.pipeline.policies import TRUSTED_VERDICT
+    """The fit of the board as drawn (``fit``, or made here) and, when it is not trusted
+    (policies.fit_trusted), the diagnosis a trim then follows (policies.working_hypothesis)."""
+    from reconcile.pipeline.policies import fit_trusted
 
     if fit is _UNSET or fit is None:
         fit = fit_board(inputs.board, inputs.reading_list(),
                         model_meter=inputs.options.model_meter)
-    if fit.verdict == TRUSTED_VERDICT:
+    if fit_trusted(fit):
         return fit, None
     return fit, diagnose_step(inputs)
 

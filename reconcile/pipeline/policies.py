@@ -1,9 +1,12 @@
 """The pipeline's rules about what a result can be trusted for, in one place.
 
 - A rework proposal is worked out from the fitted board. When the fit does not explain
-  the readings (its verdict is not ``consistent``), the fitted board may be wrong in a
-  way no tolerance covers (a fault), and a rework chosen for it may not restore the
-  spec: the trim carries a warning, whichever front end ran it.
+  the readings (its verdict is not ``consistent``), or explains them only with parts
+  far outside their tolerances (``FitResult.parts_plausible`` false: the prior penalty's
+  own check, kept apart from the verdict), the fitted board may be wrong in a way no
+  tolerance covers (a fault), and a rework chosen for it may not restore the spec: the
+  trim carries a warning, whichever front end ran it, and a trim that was given no
+  diagnosis runs one (:func:`fit_trusted`).
 - Which hypothesis an analysis works under (:func:`working_hypothesis`): the one the
   user assumed (``--assume``); else the diagnosis' leading one when it is decisive
   (:attr:`reconcile.diagnosis.diagnose.Diagnosis.decisive`: probability at least 0.9
@@ -31,6 +34,7 @@ if TYPE_CHECKING:  # pragma: no cover
 
 __all__ = [
     "TRUSTED_VERDICT",
+    "fit_trusted",
     "rework_warning",
     "series_resistor_uncertainty",
     "working_hypothesis",
@@ -40,16 +44,28 @@ TRUSTED_VERDICT = "consistent"
 """The one fit verdict a rework proposal is trusted from without a warning."""
 
 
+def fit_trusted(fit: FitResult) -> bool:
+    """A rework may start from ``fit`` without a diagnosis: its verdict is consistent
+    and its parts sit within their tolerances as far as chance allows."""
+    return fit.verdict == TRUSTED_VERDICT and fit.parts_plausible
+
+
 def rework_warning(fit: FitResult | None, diagnosis: Diagnosis | None = None) -> str | None:
     """Why a trim from ``fit`` should not be trusted yet, or None when it can be.
 
-    Design mode (no fit) and a consistent fit need no warning. Otherwise the warning
-    names the fit's verdict and, when a diagnosis of the same readings is at hand, its
-    leading explanation.
+    Design mode (no fit) and a trusted fit (:func:`fit_trusted`) need no warning.
+    Otherwise the warning names the fit's verdict (or the parts far outside their
+    tolerances) and, when a diagnosis of the same readings is at hand, its leading
+    explanation.
     """
-    if fit is None or fit.verdict == TRUSTED_VERDICT:
+    if fit is None or fit_trusted(fit):
         return None
-    text = f"the fit's verdict is {fit.verdict}: the board may have a fault"
+    if fit.verdict == TRUSTED_VERDICT:
+        text = (f"the fit explains the readings only with parts far outside their tolerances "
+                f"(prior penalty {fit.prior_penalty:.3g}, p = {fit.prior_p_value:.2g}): "
+                "the board may have a fault")
+    else:
+        text = f"the fit's verdict is {fit.verdict}: the board may have a fault"
     if diagnosis is None:
         return text + "; run diagnose before trusting a trim"
     top = diagnosis.top

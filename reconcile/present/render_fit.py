@@ -103,9 +103,21 @@ def verdict_line(fit: FitResult) -> str:
         "not-converged": "the fit did not converge",
     }[fit.verdict]
     return (
-        f"χ² = {fit.chi_square:.2f} for {fit.dof} degrees of freedom, p = {fit.p_value:.3g}: "
-        f"[{style}]{text}[/]"
+        f"readings' χ² = {fit.chi_square:.2f} on {numbers.plain(fit.dof, 3)} degrees of "
+        f"freedom ({fit.readings_count} readings less "
+        f"{numbers.plain(fit.effective_parameters, 3)} informed parameters), "
+        f"p = {fit.p_value:.3g}: [{style}]{text}[/]\n" + prior_line(fit)
     )
+
+
+def prior_line(fit: FitResult) -> str:
+    """The prior penalty, beside the verdict and not in it."""
+    parts = ("the fitted values sit within their tolerances as far as chance allows"
+             if fit.parts_plausible else
+             f"[{BAD}]parts far outside their tolerances (a fault? see diagnose)[/]")
+    return (f"prior penalty {numbers.plain(fit.prior_penalty, 3)} on "
+            f"{numbers.plain(fit.effective_parameters, 3)} parameters, "
+            f"p = {fit.prior_p_value:.3g}: {parts} (not in the verdict)")
 
 
 def budget_table(budget: ErrorBudget) -> Table:

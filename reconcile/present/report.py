@@ -263,8 +263,11 @@ def _fit_section(d: ReportData) -> str:
     verdict = f.get("verdict", "")
     cls = "ok" if verdict == "consistent" else "bad"
     head = (
-        f'<p class="verdict">χ² = {f.get("chi_square", 0):.2f} for {f.get("dof", 0)} degrees of '
-        f'freedom, p = {f.get("p_value", 0):.3g}: <span class="{cls}">{_e(verdict)}</span></p>'
+        f'<p class="verdict">readings\' χ² = {f.get("chi_square", 0):.2f} for '
+        f'{_e(numbers.plain(f.get("dof", 0), 3))} degrees of freedom, '
+        f'p = {f.get("p_value", 0):.3g}: <span class="{cls}">{_e(verdict)}</span>; '
+        f'prior penalty {_e(numbers.plain(f.get("prior_penalty", 0), 3))} (not in the '
+        f'verdict)</p>'
     )
     nxt = ""
     if d.next_readings:

@@ -58,7 +58,8 @@ def _brief_sweep(obj) -> str:
 
 def _brief_fit(obj) -> str:
     return (
-        f"FitResult({obj.verdict}, χ² {numbers.plain(obj.chi_square, 3)} on {obj.dof} dof, "
+        f"FitResult({obj.verdict}, χ² {numbers.plain(obj.chi_square, 3)} on "
+        f"{numbers.plain(obj.dof, 3)} dof, "
         f"{len(obj.parameters)} parameters)"
     )
 
@@ -67,7 +68,7 @@ def _brief_fit_outcome(obj) -> str:
     budget = "" if obj.budget is None else ", error budget"
     return (
         f"FitOutcome({obj.fit.verdict}, χ² {numbers.plain(obj.fit.chi_square, 3)} on "
-        f"{obj.fit.dof} dof{budget}, {len(obj.suggestions)} next readings)"
+        f"{numbers.plain(obj.fit.dof, 3)} dof{budget}, {len(obj.suggestions)} next readings)"
     )
 
 
