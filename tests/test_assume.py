@@ -23,7 +23,7 @@ from store_support import BOARD_TOML, pg_database
 
 from reconcile.cli.demo import sample_data_dir
 from reconcile.data.readings import readings_to_csv
-from reconcile.diagnosis.assumed import parse_assumptions
+from reconcile.diagnosis.assumed import KNOWN_TOLERANCE, parse_assumptions
 from reconcile.diagnosis.faults import as_built, single_faults
 from reconcile.engine import compile_board, solve_batch
 from reconcile.engine.circuit import nominal_parameters
@@ -32,6 +32,7 @@ from reconcile.inference.simulate import full_plan, simulate_readings
 from reconcile.model.board_loader import board_from_text, load_board
 from reconcile.pipeline.analyses import analyse, diagnose_step, fit_step
 from reconcile.pipeline.inputs import AnalysisInputs, AnalysisOptions
+from reconcile.pipeline.repair import repair_of
 from reconcile.pipeline.report import collect_report
 from reconcile.store import connection as store_connection
 from reconcile.store.repository import open_store
@@ -54,7 +55,9 @@ def bench():
     ("RE1", "expected REF:FAULT"),
     ("XX:open", "the board has no part 'XX'"),
     ("RE1:missing", "RE1 can be open, short, wrong-value, not 'missing'"),
-    ("Q1=5", "only a resistor's value can be given"),
+    ("Q1=5", "only a resistor's or a capacitor's value can be given"),
+    ("C_E1=47", "far outside what a discrete board uses"),
+    ("RE1=0.001", "far outside what a discrete board uses"),
     ("RE1=abc", "cannot read 'abc'"),
     ("RE1=-3", "above zero"),
 ])
@@ -68,6 +71,20 @@ def test_bad_assume_text_is_one_line_naming_the_option(tmp_path, text, says):
         assert out.exit_code == 2 and out.crash is None, out.stderr
         [line] = out.message_lines
         assert "--assume" in line and says in line
+
+
+def test_a_capacitor_read_out_of_circuit_is_assumed_at_its_value_and_repaired():
+    # C_E1 drawn 220 µF, read out of circuit at 4.7 µF (a wrong reel): the board as built
+    # carries 4.7 µF at the reading's ±1 %, and the repair replaces it with the drawn part
+    design = load_board(DESIGN)
+    assumed = parse_assumptions(design, ["C_E1=4.7u"])
+    assert assumed.board.capacitors["C_E1"].farads == pytest.approx(4.7e-6)
+    assert assumed.board.capacitors["C_E1"].tolerance == KNOWN_TOLERANCE
+    assert assumed.to_list() == [{"ref": "C_E1", "fault": "wrong-value", "value": 4.7e-6}]
+    assert assumed.label == "C_E1=4.7µF"
+    (step,) = repair_of(assumed, "assumed").steps
+    assert (step["ref"], step["action"], step["value"]) == ("C_E1", "replace", 220e-6)
+    assert repair_of(parse_assumptions(design, ["C_E1=222u"]), "assumed").steps == ()
 
 
 def test_a_part_named_twice_is_refused():

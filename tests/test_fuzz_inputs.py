@@ -218,7 +218,10 @@ _OPTION_VALUES = st.one_of(
     _NUMBERS, _TEXT.filter(lambda s: "\x00" not in s),
     st.sampled_from(["-5", "0", "-1", "100000000", str(2**63), str(-2**63 - 1),
                      "x.xyz", "plot.png", "plot", "/nonexistent/dir/p.png", "a,b",
-                     "100,50", "S-0000", "[/]"]),
+                     "100,50", "S-0000", "[/]",
+                     # --assume texts, good and bad, on the line receiver's parts
+                     "C_B:missing", "RE:open", "Q1:reversed", "RC:wrong-value", "RE=1k",
+                     "C_IN=47u", "C_IN=47", "RE=", "=1k", "R9:open", "RE:reversed"]),
 )
 
 # command -> (arguments it needs, options that multiply its work and the most they may be

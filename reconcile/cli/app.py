@@ -182,8 +182,8 @@ AssumeOpt = Annotated[
     typer.Option(
         "--assume", metavar="REF:FAULT|REF=VALUE",
         help="Analyse the board as built under this fault (repeatable): CE:missing, "
-        "RC:open, RE:short, Q1:reversed, RE1:wrong-value, or RE1=270 for a part read out "
-        "of circuit.")]
+        "RC:open, RE:short, Q1:reversed, RE1:wrong-value, or RE1=270, CE=4.7u for a part "
+        "read out of circuit.")]
 BoardOptArg = Annotated[
     Optional[Path],  # noqa: UP045
     typer.Argument(help="Board file (TOML); not needed with --session.", show_default=False),

@@ -4,9 +4,9 @@ Each ``--assume`` text names one fault the way diagnosis names it:
 
 - ``REF:FAULT``: ``open``, ``short`` or (resistors) ``wrong-value``, ``missing`` or
   ``open`` (capacitors, the same hypothesis), ``reversed`` (transistors);
-- ``REF=VALUE``: a resistor known from an out-of-circuit reading to have this value
-  (a wrong value when it differs from the drawn one), e.g. ``RE1=270``, ``R2=56k``.
-  Its prior is the reading's, :data:`KNOWN_TOLERANCE`.
+- ``REF=VALUE``: a resistor or capacitor known from an out-of-circuit reading to have
+  this value (a wrong value when it differs from the drawn one), e.g. ``RE1=270``,
+  ``R2=56k``, ``CE=47u``. Its prior is the reading's, :data:`KNOWN_TOLERANCE`.
 
 The faults are the very :class:`~reconcile.diagnosis.faults.Fault` objects diagnosis fits
 (:func:`~reconcile.diagnosis.faults.single_faults`), applied to the board by
@@ -54,10 +54,12 @@ class Assumption:
 
     @property
     def label(self) -> str:
-        """``CE missing + RE1=270``."""
+        """``CE missing + RE1=270`` (ohms as a plain number; farads with their prefix and
+        unit, ``CE=47µF``)."""
         known = dict(self.known)
         return " + ".join(
-            f"{f.ref}={known[f.ref]:g}" if f.ref in known else f.label for f in self.faults
+            _known_label(self.drawn, f.ref, known[f.ref]) if f.ref in known else f.label
+            for f in self.faults
         )
 
     @property
@@ -68,6 +70,14 @@ class Assumption:
         """``[{"ref", "fault", "value"}]`` as a diagnosis' hypothesis names its faults."""
         values = dict(self.centres) | dict(self.known)
         return [{"ref": f.ref, "fault": f.kind, "value": values.get(f.ref)} for f in self.faults]
+
+
+def _known_label(board: Board, ref: str, value: float) -> str:
+    if ref in board.resistors:
+        return f"{ref}={value:g}"
+    from reconcile.model.values import format_si
+
+    return f"{ref}={format_si(value, 'F', 3).replace(' ', '')}"
 
 
 def parse_assumptions(board: Board, texts: Sequence[str]) -> Assumption | None:
@@ -118,7 +128,20 @@ def _one(board: Board, catalogue: dict, text: str) -> tuple[Fault, float | None]
         if not (math.isfinite(value) and value > 0):
             raise InputError(f"{OPTION} {stripped!r}: the value must be a finite number above "
                              "zero")
-        return catalogue[(ref, "wrong-value")], value
+        from reconcile.model.board_loader import PLAUSIBLE
+        from reconcile.model.values import format_si
+
+        low, high = PLAUSIBLE[kind]
+        if not low <= value <= high:  # "47" for a capacitor is 47 F: a unit left out
+            unit = "ohm" if kind == "ohms" else "F"
+            raise InputError(
+                f"{OPTION} {stripped!r}: {format_si(value, unit, 3)} is far outside what a "
+                f"discrete board uses ({format_si(low, unit)} to {format_si(high, unit)}); "
+                "give the unit's prefix, e.g. 47u")
+        # a capacitor has no wrong-value hypothesis of its own in diagnosis (its value
+        # is fitted within tolerance): a known value is that hypothesis, set, not fitted
+        fault = catalogue.get((ref, "wrong-value")) or Fault(ref, "wrong-value", board)
+        return fault, value
     ref, sep, kind_text = (s.strip() for s in stripped.partition(":"))
     if not sep or not ref or not kind_text:
         raise InputError(
@@ -142,7 +165,10 @@ def _check_ref(board: Board, ref: str, text: str) -> None:
 def _value_kind(board: Board, ref: str, text: str) -> str:
     if ref in board.resistors:
         return "ohms"
-    raise InputError(f"{OPTION} {text!r}: only a resistor's value can be given (REF=VALUE)")
+    if ref in board.capacitors:
+        return "farads"
+    raise InputError(f"{OPTION} {text!r}: only a resistor's or a capacitor's value can be "
+                     "given (REF=VALUE)")
 
 
 def _assumption(
@@ -163,8 +189,13 @@ def _assumption(
         fixed.extend(f.fixed)
         widened.extend(f.widened)
     for ref, value in known:
-        built = built.replace_part(
-            dataclasses.replace(built.resistors[ref], ohms=value, tolerance=KNOWN_TOLERANCE))
+        if ref in built.resistors:
+            part = dataclasses.replace(built.resistors[ref], ohms=value,
+                                       tolerance=KNOWN_TOLERANCE)
+        else:
+            part = dataclasses.replace(built.capacitors[ref], farads=value,
+                                       tolerance=KNOWN_TOLERANCE)
+        built = built.replace_part(part)
     for ref, value in centres:
         built = built.with_resistor_ohms(ref, value)
     return Assumption(board, faults, known, built, tuple(fixed), tuple(widened), centres)

@@ -786,7 +786,7 @@ def _warn_connections(check: _Checker, topology: list, signal: Signal) -> None:
 
 
 # (low, high) of what a discrete small-signal board uses, in SI units (common practice)
-_PLAUSIBLE = {
+PLAUSIBLE = {
     "ohms": (0.1, 100e6),
     "farads": (1e-12, 0.1),
     "volts": (0.1, 100.0),
@@ -803,7 +803,7 @@ def _warn_implausible(
     """Values that parse but lie far outside what a discrete board uses."""
 
     def warn(key: Key, raw: Any, value: float, kind: str, noun: str, unit: str) -> None:
-        low, high = _PLAUSIBLE[kind]
+        low, high = PLAUSIBLE[kind]
         if low <= abs(value) <= high:
             return
         hint = ""

@@ -102,7 +102,7 @@ def repair_of(assumption: Assumption, source: str, probability: float | None = N
             continue
         part = drawn.resistors.get(f.ref) or drawn.capacitors[f.ref]
         value, unit = (part.ohms, "ohm") if f.ref in drawn.resistors else (part.farads, "F")
-        if f.ref in known and _within(known[f.ref], part):
+        if f.ref in known and abs(known[f.ref] / value - 1.0) <= part.tolerance:
             continue
         if f.kind in ("open", "missing"):
             action, verb = "fit", f"fit {f.ref} ({format_si(value, unit, 3)} as drawn)"
@@ -110,10 +110,6 @@ def repair_of(assumption: Assumption, source: str, probability: float | None = N
             action, verb = "replace", f"replace {f.ref} with the drawn {format_si(value, unit, 3)}"
         steps.append({"ref": f.ref, "action": action, "value": value, "text": verb})
     return Repair(assumption, source, probability, tuple(steps))
-
-
-def _within(value: float, part) -> bool:
-    return abs(value / part.ohms - 1.0) <= part.tolerance
 
 
 def repaired_posterior(repair: Repair, fit: FitResult) -> Posterior:
