@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from reconcile.diagnosis.fault_fit import FaultFit
 from reconcile.diagnosis.faults import OPEN_OHMS
+from reconcile.diagnosis.in_circuit import ohms_between, readings_differ
 from reconcile.model.board import GND, Board
 from reconcile.model.values import format_si
 
@@ -32,11 +33,9 @@ def check(board, ft: FaultFit, none_fit: FaultFit, value, near, series, slip) ->
                 f"about {_ohm(r.ohms)} if the part is good; check its solder joints too"
             )
         if f.kind == "short":
-            return (
-                f"with power off, measure across {ref} in circuit ({a} to {b}): expect about "
-                f"0 ohm if this is the fault (a good {_ohm(r.ohms)} part cannot read more "
-                f"than {_ohm(r.ohms)} in circuit); look for a solder bridge"
-            )
+            return _short_check(board, ref, a, b,
+                                f"a good {_ohm(r.ohms)} part in parallel with the network "
+                                f"around it")
         text = (
             f"with power off, measure {ref} out of circuit: expect about {_ohm(value)} if "
             f"this is the fault (drawn {_ohm(r.ohms)}; nearest {series} value {_ohm(near)}"
@@ -55,23 +54,38 @@ def check(board, ft: FaultFit, none_fit: FaultFit, value, near, series, slip) ->
                 f"measure its capacitance out of circuit: expect about 0 F (open or missing) "
                 f"if this is the fault, about {format_si(c.farads, 'F', 3)} if it is good"
             )
-        return (
-            f"with power off, measure resistance across {ref} in circuit ({a} to {b}): expect "
-            f"about 0 ohm if this is the fault (a good capacitor charges up and reads open); "
-            f"look for a solder bridge"
-        )
+        return _short_check(board, ref, a, b, "a good capacitor charges and reads open, "
+                            "leaving the network around it")
     q = board.transistors[ref]
     node, v_h, v_0 = _telling_node(ft, none_fit, (q.e, q.c, q.b), board)
     text = (
         f"check {ref}'s orientation against its footprint (collector and emitter swapped: "
         f"pin order, flat side or tab)"
     )
-    if node is not None:
+    if node is not None and readings_differ("voltage", v_h, v_0):
         text += (
             f"; with power on, measure V({node}): expect about {v_h:.3g} V if this is the "
             f"fault, {v_0:.3g} V if it is placed as drawn"
         )
     return text
+
+
+def _short_check(board: Board, ref: str, a: str, b: str, good: str) -> str:
+    """A shorted part's check: across it in circuit when the network around it reads
+    apart from 0 Ω, else out of circuit (both outcomes would read the same)."""
+    good_reads = ohms_between(board, a, b)
+    if readings_differ("resistance", 0.0, good_reads):
+        shown = "open" if good_reads == float("inf") else f"about {_ohm(good_reads)}"
+        return (
+            f"with power off and the supply disconnected, measure across {ref} in circuit "
+            f"({a} to {b}, a low-power ohms range): expect about 0 ohm if this is the "
+            f"fault, {shown} if it is good ({good}); look for a solder bridge"
+        )
+    return (
+        f"with power off, lift one leg of {ref} and measure across it out of circuit (in "
+        f"circuit the network around it reads about {_ohm(good_reads)}, as a short would): "
+        f"expect about 0 ohm if this is the fault; look for a solder bridge"
+    )
 
 
 def _telling_node(ft: FaultFit, none_fit: FaultFit, nodes, board: Board):
