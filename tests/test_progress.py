@@ -24,21 +24,27 @@ BOARD = SAMPLES / "line_receiver_cb.toml"
 READINGS = SAMPLES / "line_receiver_built.csv"
 
 
-def test_the_pipeline_announces_each_step_in_order():
-    inputs = AnalysisInputs.from_files(BOARD, READINGS,
-                                       options=AnalysisOptions(trim_samples=200))
+@pytest.fixture(scope="module")
+def announced():
+    """One whole analysis (a small trim: single changes, a short yield) and the stages
+    it announced, shared by the checks below."""
+    inputs = AnalysisInputs.from_files(
+        BOARD, READINGS, options=AnalysisOptions(trim_samples=200, max_changes=1, top=3))
     stages: list[str] = []
     analysis = analyse(inputs, on_stage=stages.append)
+    return inputs, analysis, stages
+
+
+def test_the_pipeline_announces_each_step_in_order(announced):
+    _, analysis, stages = announced
     expected = ["fitting the board to its readings", "weighing the fault hypotheses"]
     if analysis.trim is not None:
         expected.append("searching reworks and their yield")
     assert stages == expected
 
 
-def test_a_step_passed_in_is_not_announced():
-    inputs = AnalysisInputs.from_files(BOARD, READINGS,
-                                       options=AnalysisOptions(trim_samples=200))
-    first = analyse(inputs)
+def test_a_step_passed_in_is_not_announced(announced):
+    inputs, first, _ = announced
     stages: list[str] = []
     analyse(inputs, fit=first.fit, diagnosis=first.diagnosis, trim=first.trim,
             on_stage=stages.append)
