@@ -286,7 +286,7 @@ def diagnose(
     kw = {} if max_iterations is None else {"max_iterations": max_iterations}
     none_fit = fit_faults(faults[:1], obs, space, **kw)[0]
     seeds = [none_fit.x, space.prior_mean]
-    rest = fit_faults(faults[1:], obs, space, seeds=seeds, reference_chi2=none_fit.chi_square, **kw)
+    rest = fit_faults(faults[1:], obs, space, seeds=seeds, **kw)
     fits = [none_fit, *rest]
     u = np.array([ob.uncertainty for ob in obs])
     hyps = score_hypotheses(board, fits, none_fit, weights, len(obs), u)

@@ -9,19 +9,14 @@ board and gets a group of its own.
 
 The objective is the one :func:`reconcile.fitting.fit_board` minimises, per hypothesis:
 the weighted residual of every reading, (predicted − measured)/u, stacked with one
-prior row (x − prior mean)/prior sd per parameter the hypothesis leaves free. The
-minimiser is Levenberg–Marquardt with Marquardt's diagonal scaling, Nielsen's damping
-update and the step projected onto the hard bounds (Marquardt 1963; Madsen, Nielsen &
-Tingleff, "Methods for non-linear least squares problems", 2004, §3.2; from memory).
-The Jacobian is a forward difference in internal coordinates with the steps
-:meth:`reconcile.measure.MeasurementModel.jacobian` uses; a hypothesis whose step was
-rejected keeps its Jacobian, so each iteration costs one engine call for the trial
-points and one for the Jacobians of the accepted ones. Each hypothesis keeps the DC
-operating point of its last accepted point as the engine's warm start.
-
-A hypothesis has converged when the Newton decrement gᵀA⁻¹g (the χ² a full
-Gauss–Newton step would still gain) is below :data:`DECREMENT_TOL`, when an accepted
-step gains almost nothing, or when no step is accepted however strongly damped.
+prior row (x − prior mean)/prior sd per parameter the hypothesis leaves free. It is
+minimised by the project's one batched Levenberg–Marquardt core,
+:func:`reconcile.inference.optimiser.minimise` (its step, damping, bounds and
+convergence test are stated there), every start of every hypothesis of the group a row
+of one batch. The Jacobian is a forward difference in internal coordinates with the
+one step rule, :func:`reconcile.inference.optimiser.difference_steps`; each
+hypothesis keeps the DC operating point of its last evaluated point as the engine's
+warm start.
 
 Starts: each hypothesis starts from the best of a few seeds (the ``none`` fit, the
 prior mean) by its initial objective. A wrong value (a widened prior) starts in
@@ -29,9 +24,10 @@ addition at every decade of its ±3-decade range, since its objective can have a
 minimum per decade and which one is lowest shows only once the other parameters have
 followed; after :data:`PRUNE_AFTER` iterations only the best :data:`KEEP_STARTS` go on.
 
-Hopeless hypotheses (χ² more than :data:`ABANDON_MARGIN` above the best any hypothesis
-has reached, after :data:`ABANDON_AFTER` iterations) are stopped: their odds are below
-exp(−5000) whatever their minimum.
+No hypothesis is dropped: each is minimised until the core's convergence test holds
+or :data:`MAX_ITERATIONS` run out. A fit stopped short (``status`` ``iteration-limit``
+or ``stalled``, ``converged`` false) has an objective that is an upper bound of its
+minimum, and is scored with it as such (:mod:`reconcile.diagnosis.scoring`).
 """
 
 from __future__ import annotations
@@ -47,29 +43,14 @@ from reconcile.engine.budget import chunks
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
+from reconcile.inference.optimiser import CONVERGED, difference_steps, minimise
 from reconcile.inference.priors import ParameterSpace
 from reconcile.inference.threads import small_problem_threads
 
 __all__ = ["FaultFit", "fit_faults", "predict_faults"]
 
 MAX_ITERATIONS = 100
-LAMBDA_START = 1e-3
-LAMBDA_DOWN = 3.0
-LAMBDA_MAX = 1e10
-COST_ABS_TOL = 1e-5
-COST_REL_TOL = 1e-9
-DECREMENT_TOL = 1e-3
-"""A hypothesis is at its minimum when a full Gauss–Newton step would lower its χ² by
-less than this (the Newton decrement; far below what moves a probability)."""
-APPROXIMATE_DECREMENT = 1.0
-"""A fit stopped by its iteration limit still counts, as ``approximate``, when a full
-Gauss–Newton step would lower its χ² by less than this: its χ² is then within about
-that much of its minimum, a pessimistic score by a factor of at most exp(0.5)."""
-ABANDON_AFTER = 12
-ABANDON_MARGIN = 1e4
-"""After ABANDON_AFTER iterations a hypothesis whose χ² is still more than ABANDON_MARGIN
-above the best χ² reached by any hypothesis is stopped: its posterior odds against the
-best are below exp(−5000) whatever its minimum, so refining it changes nothing."""
+"""Levenberg–Marquardt iterations per hypothesis at most."""
 GRID_HALF_DECADES = np.arange(-6, 7) * (0.5 * np.log(10.0))
 """ln-offsets scanned for a widened parameter: ±3 decades in half decades."""
 DECADE_STARTS = np.arange(-3, 4) * np.log(10.0)
@@ -77,8 +58,6 @@ DECADE_STARTS = np.arange(-3, 4) * np.log(10.0)
 PRUNE_AFTER = 6
 KEEP_STARTS = 2
 """After PRUNE_AFTER iterations only the KEEP_STARTS best starts of a hypothesis go on."""
-DERIVATIVE_STEP = 1e-6
-TEMPERATURE_STEP_K = 1e-4
 #: the small-signal quantities the measurement model predicts (from the registry)
 SMALL_SIGNAL_KEYS = SMALL_SIGNAL
 
@@ -91,8 +70,8 @@ class FaultFit:
     coordinates); ``free`` marks the parameters the hypothesis fits, and
     ``covariance`` (free × free) is the linearised posterior inv(JᵀJ) of the whole
     weighted system, as in :func:`reconcile.fitting.fit_board`. ``converged`` is True
-    for ``status`` ``converged`` and ``approximate`` (see :data:`APPROXIMATE_DECREMENT`);
-    otherwise ``chi_square`` is an upper bound of the hypothesis's minimum.
+    when the optimiser's convergence test held (``status`` ``converged``); otherwise
+    ``chi_square`` is an upper bound of the hypothesis's minimum.
     ``small_signal``, ``regions`` and ``node_volts`` describe the fitted board alone (no
     meter attached).
     """
@@ -109,7 +88,7 @@ class FaultFit:
     chi_square: float
     converged: bool
     iterations: int
-    status: str  # converged | approximate | abandoned | iteration-limit | no-operating-point
+    status: str  # converged | stalled | iteration-limit | no-operating-point
     small_signal: dict[str, float]
     regions: dict[str, str]
     node_volts: dict[str, float]
@@ -164,12 +143,7 @@ class _Group:
         self.lower, self.upper = self.space.lower, self.space.upper
         self.measured = self.model.measured
         self.uncertainty = self.model.uncertainty
-        self.steps = np.full(p, DERIVATIVE_STEP)
-        for j, fp in enumerate(self.space.parameters):
-            if fp.kind == "temperature":
-                self.steps[j] = TEMPERATURE_STEP_K
-            elif fp.kind == "supply":
-                self.steps[j] = DERIVATIVE_STEP * max(1.0, abs(fp.prior_mean))
+        self.kinds = [fp.kind for fp in self.space.parameters]
         obs_index = {(ob.quantity, ob.at): k for k, ob in enumerate(observations)}
         self.reading_fix = [
             [(obs_index[(q, at)], v) for q, at, v in f.part_readings if (q, at) in obs_index]
@@ -277,10 +251,11 @@ class _Group:
         if m > per_call:
             return np.concatenate([self.jacobian(x[sl], f0[sl], owner[sl])
                                    for sl in chunks(m, per_call)])
+        steps = difference_steps(self.kinds, x)  # (M, P)
         xs = np.repeat(x, p, axis=0)
-        xs[np.arange(m * p), np.tile(np.arange(p), m)] += np.tile(self.steps, m)
+        xs[np.arange(m * p), np.tile(np.arange(p), m)] += steps.ravel()
         pred, _ = self.evaluate(xs, np.repeat(owner, p), small_signal=self._needs_small_signal)
-        jac = (pred.reshape(m, p, -1) - f0[:, None, :]) / self.steps[None, :, None]
+        jac = (pred.reshape(m, p, -1) - f0[:, None, :]) / steps[:, :, None]
         jac = np.where(np.isfinite(jac), jac, 0.0)
         jac = np.where(self.free[owner][:, None, :], jac.transpose(0, 2, 1), 0.0)
         return jac
@@ -339,168 +314,46 @@ def _seed_starts(
     return np.array(starts), np.array(start_owner)
 
 
-@dataclass
-class _LMState:
-    """The batched Levenberg–Marquardt state, one row per start (updated in place)."""
+def _prune_starts(start_owner: np.ndarray):
+    """``after_iteration`` for :func:`reconcile.inference.optimiser.minimise`: once
+    :data:`PRUNE_AFTER` iterations are done, only the :data:`KEEP_STARTS` best starts of
+    each hypothesis go on (every hypothesis keeps its best start: none is dropped)."""
+    pruned = np.zeros(len(start_owner), dtype=bool)
+    done = [False]
 
-    x: np.ndarray
-    f: np.ndarray
-    cost: np.ndarray
-    jac: np.ndarray
-    lam: np.ndarray
-    nu: np.ndarray
-    active: np.ndarray
-    converged: np.ndarray
-    abandoned: np.ndarray
-    iterations: np.ndarray
-    last_decrement: np.ndarray
+    def after(state, active):
+        if done[0] or state.iterations.max() < PRUNE_AFTER:
+            return None
+        done[0] = True
+        for o in np.unique(start_owner):
+            rows = np.nonzero(start_owner == o)[0]
+            if len(rows) > KEEP_STARTS:
+                pruned[rows[np.argsort(state.cost[rows])[KEEP_STARTS:]]] = True
+        return np.flatnonzero(pruned & active)
 
-
-def _lm_start(group: _Group, x0: np.ndarray) -> _LMState:
-    h = x0.shape[0]
-    owner = np.arange(h)
-    x = np.clip(x0, group.lower, group.upper)
-    f, _ = group.evaluate(x, owner, record=True)
-    return _LMState(
-        x=x, f=f, cost=group.cost(x, f, owner), jac=group.jacobian(x, f, owner),
-        lam=np.full(h, LAMBDA_START), nu=np.full(h, 2.0), active=np.ones(h, dtype=bool),
-        converged=np.zeros(h, dtype=bool), abandoned=np.zeros(h, dtype=bool),
-        iterations=np.zeros(h, dtype=np.int64), last_decrement=np.full(h, np.inf),
-    )
+    return after, pruned
 
 
-def _normal_equations(group: _Group, st: _LMState, idx: np.ndarray):
-    """Gauss–Newton matrix, gradient and damped matrix of rows ``idx`` (priors included;
-    fixed parameters take no step)."""
-    p = st.x.shape[1]
-    eye = np.eye(p)
-    free = group.free[idx]
-    jw = st.jac[idx] / group.uncertainty[None, :, None]
-    r = group.weighted(st.f[idx])
-    inv_var = np.where(free, 1.0 / group.sd[idx] ** 2, 0.0)
-    a = np.einsum("mri,mrj->mij", jw, jw) + inv_var[:, :, None] * eye
-    grad = np.einsum("mri,mr->mi", jw, r) + inv_var * (st.x[idx] - group.mu[idx])
-    diag = np.einsum("mii->mi", a)
-    damp = a + (st.lam[idx][:, None] * np.where(free, diag, 0.0))[:, :, None] * eye
-    damp = damp + np.where(free, 0.0, 1.0)[:, :, None] * eye  # fixed: δ = 0
-    grad = np.where(free, grad, 0.0)
-    return free, a, grad, damp
+def _minimise(group: _Group, x0: np.ndarray, max_iterations: int, start_owner: np.ndarray):
+    """Every start of every hypothesis minimised together by the one batched core
+    (:func:`reconcile.inference.optimiser.minimise`): the weighted readings stacked with
+    the prior rows of the free parameters. Returns the :class:`Minimum` (``aux`` holds
+    the predictions) and which starts were pruned."""
+    inv_sd = np.where(group.free, 1.0 / group.sd, 0.0)
 
+    def residuals(x, rows):
+        pred, _ = group.evaluate(x, rows, record=True)
+        prior = (x - group.mu[rows]) * inv_sd[rows]
+        return np.concatenate([group.weighted(pred), prior], axis=1), pred
 
-def _newton_decrement(group: _Group, x: np.ndarray, free, a, grad) -> np.ndarray:
-    """gᵀA⁻¹g: the χ² a full Gauss–Newton step would still gain. A parameter held at a
-    bound by its gradient takes no part in it."""
-    eye = np.eye(x.shape[1])
-    span = group.upper - group.lower
-    pinned = ((x - group.lower <= 1e-9 * span) & (grad > 0)) | (
-        (group.upper - x <= 1e-9 * span) & (grad < 0)
-    )
-    moving = free & ~pinned
-    g_m = np.where(moving, grad, 0.0)
-    undamped = np.where(moving[:, :, None] & moving[:, None, :], a, 0.0)
-    undamped = undamped + np.where(moving, 0.0, 1.0)[:, :, None] * eye
-    try:
-        newton = np.linalg.solve(undamped, g_m[..., None])[..., 0]
-        return np.einsum("mi,mi->m", g_m, newton)
-    except np.linalg.LinAlgError:
-        return np.full(len(x), np.inf)
+    def jacobian(x, rows, pred):
+        jw = group.jacobian(x, pred, rows) / group.uncertainty[None, :, None]
+        return np.concatenate([jw, inv_sd[rows][:, None, :] * np.eye(x.shape[1])], axis=1)
 
-
-def _lm_step(group: _Group, st: _LMState, idx: np.ndarray, a, grad, damp):
-    """One damped step of rows ``idx``: accept or reject, update the damping; returns
-    (accepted, gain small enough to stop)."""
-    try:
-        step = -np.linalg.solve(damp, grad[..., None])[..., 0]
-    except np.linalg.LinAlgError:
-        step = -np.einsum("mij,mj->mi", np.linalg.pinv(damp), grad)
-    trial = np.clip(st.x[idx] + step, group.lower, group.upper)
-    step = trial - st.x[idx]
-    predicted = -(2.0 * np.einsum("mi,mi->m", grad, step)
-                  + np.einsum("mi,mij,mj->m", step, a, step))
-    ft, _ = group.evaluate(trial, idx, record=True)
-    ct = group.cost(trial, ft, idx)
-    st.iterations[idx] += 1
-    ok = np.isfinite(ct) & (ct < st.cost[idx])
-    gain = np.where(ok, st.cost[idx] - ct, 0.0)
-    # Damping update of Nielsen (1999), as in Madsen, Nielsen & Tingleff, "Methods
-    # for non-linear least squares problems" (2004), eq. 3.16 (from memory).
-    with np.errstate(divide="ignore", invalid="ignore"):
-        rho = np.where(predicted > 0, gain / predicted, 0.0)
-    acc = idx[ok]
-    st.x[acc], st.f[acc], st.cost[acc] = trial[ok], ft[ok], ct[ok]
-    shrink = np.maximum(1.0 / LAMBDA_DOWN, 1.0 - (2.0 * rho[ok] - 1.0) ** 3)
-    st.lam[acc] = np.maximum(st.lam[acc] * shrink, 1e-12)
-    st.nu[acc] = 2.0
-    rej = idx[~ok]
-    st.lam[rej] *= st.nu[rej]
-    st.nu[rej] *= 2.0
-    small = ok & (gain <= COST_ABS_TOL + COST_REL_TOL * ct)
-    stuck = ~ok & (st.lam[idx] > LAMBDA_MAX)
-    done = idx[small | stuck]
-    st.converged[done] = True
-    st.active[done] = False
-    return ok, small
-
-
-def _prune_starts(st: _LMState, start_owner: np.ndarray) -> None:
-    """Keep the :data:`KEEP_STARTS` best starts of each hypothesis; abandon the rest."""
-    for o in np.unique(start_owner):
-        rows = np.nonzero(start_owner == o)[0]
-        if len(rows) > KEEP_STARTS:
-            drop = rows[np.argsort(st.cost[rows])[KEEP_STARTS:]]
-            st.abandoned[drop] = True
-            st.active[drop] = False
-            st.converged[drop] = False
-
-
-def _abandon_hopeless(st: _LMState, reference: float) -> None:
-    best = min(reference, float(np.min(st.cost)))
-    hopeless = st.active & (st.cost > best + ABANDON_MARGIN) & (st.iterations >= ABANDON_AFTER)
-    st.abandoned |= hopeless
-    st.active &= ~hopeless
-
-
-def _lm(
-    group: _Group,
-    x0: np.ndarray,
-    max_iterations: int,
-    reference: float = np.inf,
-    start_owner: np.ndarray | None = None,
-):
-    """Batched Levenberg–Marquardt; returns x, predictions, Jacobians, costs, converged
-    and abandoned flags and iteration counts (one per hypothesis). ``reference`` is the
-    best χ² known from outside the group (the ``none`` fit); ``start_owner`` says which
-    rows are starts of the same hypothesis (pruned to :data:`KEEP_STARTS`, the others
-    reported as abandoned)."""
-    h = x0.shape[0]
-    start_owner = np.arange(h) if start_owner is None else start_owner
-    pruned = False
-    st = _lm_start(group, x0)
-    for _ in range(max_iterations):
-        idx = np.nonzero(st.active)[0]
-        if not len(idx):
-            break
-        free, a, grad, damp = _normal_equations(group, st, idx)
-        decrement = _newton_decrement(group, st.x[idx], free, a, grad)
-        st.last_decrement[idx] = decrement
-        at_min = decrement <= DECREMENT_TOL
-        st.converged[idx[at_min]] = True
-        st.active[idx[at_min]] = False
-        keep = ~at_min
-        idx, grad, damp, a = idx[keep], grad[keep], damp[keep], a[keep]
-        if not len(idx):
-            break
-        ok, small = _lm_step(group, st, idx, a, grad, damp)
-        if not pruned and st.iterations[idx].max() >= PRUNE_AFTER:
-            pruned = True
-            _prune_starts(st, start_owner)
-        if st.iterations[idx].max() >= ABANDON_AFTER:
-            _abandon_hopeless(st, reference)
-        refresh = idx[ok & ~small & st.active[idx]]
-        if len(refresh):
-            st.jac[refresh] = group.jacobian(st.x[refresh], st.f[refresh], refresh)
-    return (st.x, st.f, st.jac, st.cost, st.converged, st.abandoned, st.iterations,
-            st.last_decrement)
+    after, pruned = _prune_starts(start_owner)
+    found = minimise(residuals, jacobian, x0, group.lower, group.upper, free=group.free,
+                     max_iterations=max_iterations, after_iteration=after)
+    return found, pruned
 
 
 @small_problem_threads()
@@ -511,7 +364,6 @@ def fit_faults(
     *,
     seeds: list[np.ndarray] | None = None,
     max_iterations: int = MAX_ITERATIONS,
-    reference_chi2: float = np.inf,
     own_seeds: list[list[np.ndarray]] | None = None,
 ) -> list[FaultFit]:
     """Fit every hypothesis in ``faults`` to the observations.
@@ -529,9 +381,6 @@ def fit_faults(
         Internal starting vectors over the whole space (default: the prior mean).
     max_iterations
         Levenberg–Marquardt iterations per hypothesis.
-    reference_chi2
-        The best χ² known beforehand (the ``none`` fit's), against which hopeless
-        hypotheses are abandoned (:data:`ABANDON_MARGIN`).
     own_seeds
         Extra starting vectors per hypothesis (in the order of ``faults``), tried
         besides ``seeds`` (a pair starts from its two single faults' fits too).
@@ -551,15 +400,15 @@ def fit_faults(
         mine = [own_seeds[i] for i in members] if own_seeds else None
         x0, start_owner = _seed_starts(base, [np.asarray(s, dtype=float) for s in seeds], mine)
         group = base.expanded(start_owner)
-        x, f, jac, cost, converged, abandoned, iterations, decrement = _lm(
-            group, x0, max_iterations, reference_chi2, start_owner
-        )
+        found, pruned = _minimise(group, x0, max_iterations, start_owner)
+        x, jac, iterations = found.x, found.jacobian, found.iterations
         owner = np.arange(len(start_owner))
         pred, sol_all = group.evaluate(x, owner, small_signal=True)
         finite = np.all(np.isfinite(pred), axis=1)
         cost = group.cost(x, pred, owner)
-        # Of a hypothesis's starts keep the best usable end point.
-        usable = np.where(finite & ~abandoned, cost, np.inf)
+        # Of a hypothesis's starts keep the best usable end point (a pruned start only
+        # when it is all there is).
+        usable = np.where(finite & ~pruned, cost, np.inf)
         picked = []
         for m in range(len(members)):
             rows = np.nonzero(start_owner == m)[0]
@@ -579,16 +428,7 @@ def fit_faults(
                     sols[int(k)] = (sol, j)
         for m, i in enumerate(members):
             k = picked[m]
-            if not finite[k]:
-                status = "no-operating-point"
-            elif converged[k]:
-                status = "converged"
-            elif abandoned[k]:
-                status = "abandoned"
-            elif decrement[k] <= APPROXIMATE_DECREMENT:
-                status = "approximate"
-            else:
-                status = "iteration-limit"
+            status = "no-operating-point" if not finite[k] else str(found.status[k])
             sol, j = sols[k]
             out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
                              int(iterations[k]), sol, j)
@@ -600,8 +440,8 @@ def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
     """Hypothesis row ``k`` as a :class:`FaultFit`; ``sol`` is the engine solution in
     which it is the ``j``-th parameter vector."""
     free = group.free[k]
-    jw = jac[:, free] / group.uncertainty[:, None]
-    a = jw.T @ jw + np.diag(1.0 / group.sd[k, free] ** 2)
+    jw = jac[:, free]  # weighted readings and prior rows
+    a = jw.T @ jw
     try:
         cov = np.linalg.inv(a)
     except np.linalg.LinAlgError:
@@ -632,7 +472,7 @@ def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
         predicted=pred.copy(),
         normalized_residual=(pred - group.measured) / group.uncertainty,
         chi_square=float(cost),
-        converged=status in ("converged", "approximate"),
+        converged=status == CONVERGED,
         iterations=iterations,
         status=status,
         small_signal=ss,

@@ -19,22 +19,19 @@ a systematic error common to the lot (it shifts every beta alike) and is not in 
 per-device standard errors.
 
 The fit is maximum a posteriori, the same objective as :func:`reconcile.fitting.fit_board`
-(weighted residuals stacked with prior rows), minimised by a Levenberg–Marquardt
-iteration (Marquardt's diagonal scaling) vectorised over the device axis: each
-iteration evaluates every still-active device's trial point together with its P
-forward-difference neighbours, D·(P+1) parameter vectors, in one
-:meth:`reconcile.measure.MeasurementModel.predict` call, and solves the D small
-normal-equation systems with one batched :func:`numpy.linalg.solve`. A trial that
-lowers a device's objective is accepted (and its Jacobian is already at hand); one that
-does not raises that device's damping. Standard errors come from inv(JᵀJ) of each
-device's weighted system, prior rows included (the linearised posterior, as in
-:mod:`reconcile.fitting`).
+(weighted residuals stacked with prior rows), minimised by the project's one batched
+Levenberg–Marquardt core (:func:`reconcile.inference.optimiser.minimise`), the devices
+its rows: each iteration evaluates every still-active device's trial point in one
+:meth:`reconcile.measure.MeasurementModel.predict` call, and the forward-difference
+Jacobians of the accepted ones (D·P parameter vectors) in another. A device the core
+stops short of its convergence test is reported as not converged. Standard errors come
+from inv(JᵀJ) of each device's weighted system, prior rows included (the linearised
+posterior, as in :mod:`reconcile.fitting`).
 """
 
 from __future__ import annotations
 
 import dataclasses
-import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -42,20 +39,15 @@ import numpy as np
 from reconcile.model.board import Board
 from reconcile.engine import compile_board
 from reconcile.errors import InputError, InputErrors
+from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import MeasurementModel, Observation
+from reconcile.inference.optimiser import difference_steps, minimise
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 from reconcile.inference.threads import small_problem_threads
 
-FD_STEP = 1e-6
-"""Forward-difference step in internal coordinates (as :meth:`MeasurementModel.jacobian`)."""
-
 MAX_ITERATIONS = 60
-COST_RTOL = 1e-10
-STEP_ATOL = 1e-9
-LAMBDA_START = 1e-3
-LAMBDA_GIVE_UP = 1e10
-NAN_COST = math.inf
+"""Levenberg–Marquardt iterations per device at most."""
 
 
 @dataclass(frozen=True)
@@ -231,10 +223,13 @@ def fit_jig(
     mu, lo, hi = space.prior_mean, space.lower, space.upper
     n_dev = meas.shape[0]
     calls = [0]
-    evaluate = _weighted_model(model, inv_u, target, calls)
+    residuals, jacobian = _weighted_model(model, inv_u, target, calls)
     x = np.clip(np.repeat(mu[None, :], n_dev, axis=0), lo, hi)
-    x, f, r, jw, cost, converged, iterations = _levenberg_marquardt(
-        evaluate, x, lo, hi, max_iterations)
+    found = minimise(residuals, jacobian, x, lo, hi, max_iterations=max_iterations)
+    x, f, jw, iterations = found.x, found.aux, found.jacobian, found.iterations
+    failed = np.any(np.isfinite(meas) & ~np.isfinite(f), axis=1)
+    cost = np.where(failed, np.nan, found.cost)
+    converged = found.converged & ~failed
 
     a = np.einsum("mkp,mkq->mpq", jw, jw)
     try:
@@ -242,7 +237,7 @@ def fit_jig(
     except np.linalg.LinAlgError:
         cov = np.linalg.pinv(a)
     n_obs = np.isfinite(meas).sum(axis=1)
-    chi = np.where(np.isfinite(cost), cost, np.nan)
+    chi = cost
     from reconcile.inference.chi_square import upper_tail
 
     p_value = np.where(n_obs > 0, upper_tail(chi, np.maximum(n_obs, 1)), 1.0)
@@ -253,76 +248,44 @@ def fit_jig(
         board=jig, socket=ref, devices=tuple(per_device), space=space,
         keys=tuple(space.keys), observations=tuple((q, at) for q, at, _ in obs_keys),
         x=x, covariance=cov, measured=meas, predicted=predicted, uncertainty=unc,
-        chi_square=chi, dof=n_obs, p_value=p_value, converged=converged & np.isfinite(cost),
+        chi_square=chi, dof=n_obs, p_value=p_value, converged=converged,
         at_bound=at_bound, iterations=iterations, engine_calls=calls[0],
         temperature_k=float(jig.temperature),
     )
 
 
 def _weighted_model(model: MeasurementModel, inv_u: np.ndarray, target: np.ndarray, calls):
-    """``evaluate(rows, x)``: predicted readings (M, R), weighted residual (M, R+P),
-    weighted forward-difference Jacobian (M, R+P, P) and cost (M,) of devices ``rows``
-    at internal vectors ``x`` (M, P); ``calls[0]`` counts engine calls."""
+    """``residuals(x, rows)`` and ``jacobian(x, rows, predicted)`` of devices ``rows`` at
+    internal vectors x (M, P) for :func:`reconcile.inference.optimiser.minimise`: the
+    weighted residual of each reading the device has (zero where it lacks one; a failed
+    prediction as :data:`reconcile.inference.fitting.NAN_PENALTY`) stacked with the prior
+    rows, and its forward-difference Jacobian with the one step rule
+    (:func:`reconcile.inference.optimiser.difference_steps`). ``calls[0]`` counts engine
+    calls."""
     space = model.space
     mu, sd, n_par = space.prior_mean, space.prior_sd, space.size
+    kinds = [fp.kind for fp in space.parameters]
 
-    def evaluate(rows: np.ndarray, x: np.ndarray):
-        m = x.shape[0]
-        xs = np.repeat(x[:, None, :], n_par + 1, axis=1)
-        xs[:, 1:, :] += FD_STEP * np.eye(n_par)[None, :, :]
+    def residuals(rows: np.ndarray, x: np.ndarray):
         calls[0] += 1
-        pred = model.predict(xs.reshape(m * (n_par + 1), n_par)).reshape(m, n_par + 1, -1)
-        f0 = pred[:, 0, :]
-        jac = (pred[:, 1:, :] - f0[:, None, :]) / FD_STEP  # (M, P, R)
+        f0 = model.predict(x)
         w = inv_u[rows]
-        r = np.concatenate([(f0 - target[rows]) * w, (x - mu) / sd], axis=1)
-        jw = np.concatenate(
-            [np.transpose(jac, (0, 2, 1)) * w[:, :, None],
-             np.broadcast_to(np.diag(1.0 / sd), (m, n_par, n_par))], axis=1,
-        )
-        cost = np.sum(r**2, axis=1)
-        cost = np.where(np.isfinite(cost), cost, NAN_COST)
+        with np.errstate(invalid="ignore"):
+            r = np.where(w > 0, (f0 - target[rows]) * w, 0.0)
+        r = np.where(np.isfinite(r), r, NAN_PENALTY)
+        return np.concatenate([r, (x - mu) / sd], axis=1), f0
+
+    def jacobian(rows: np.ndarray, x: np.ndarray, f0: np.ndarray):
+        m = x.shape[0]
+        h = difference_steps(kinds, x)  # (M, P)
+        xs = np.repeat(x[:, None, :], n_par, axis=1)
+        xs[:, np.arange(n_par), np.arange(n_par)] += h
+        calls[0] += 1
+        pred = model.predict(xs.reshape(m * n_par, n_par)).reshape(m, n_par, -1)
+        jac = (pred - f0[:, None, :]) / h[:, :, None]  # (M, P, R)
+        jw = np.transpose(jac, (0, 2, 1)) * inv_u[rows][:, :, None]
         jw = np.where(np.isfinite(jw), jw, 0.0)
-        r = np.where(np.isfinite(r), r, 0.0)
-        return f0, r, jw, cost
+        prior = np.broadcast_to(np.diag(1.0 / sd), (m, n_par, n_par))
+        return np.concatenate([jw, prior], axis=1)
 
-    return evaluate
-
-
-def _levenberg_marquardt(evaluate, x: np.ndarray, lo, hi, max_iterations: int):
-    """Batched Levenberg–Marquardt over devices from ``x`` (D, P), bounds by clipping:
-    (x, predicted, residual, Jacobian, cost, converged, iterations)."""
-    n_dev, n_par = x.shape
-    all_rows = np.arange(n_dev)
-    f, r, jw, cost = evaluate(all_rows, x)
-    lam = np.full(n_dev, LAMBDA_START)
-    active = np.isfinite(cost)
-    converged = np.zeros(n_dev, dtype=bool)
-    iterations = np.zeros(n_dev, dtype=int)
-    for _ in range(max_iterations):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        a = np.einsum("mkp,mkq->mpq", jw[idx], jw[idx])
-        g = np.einsum("mkp,mk->mp", jw[idx], r[idx])
-        damp = lam[idx, None, None] * (np.eye(n_par)[None] * a)
-        step = np.linalg.solve(a + damp, -g[..., None])[..., 0]
-        x_try = np.clip(x[idx] + step, lo, hi)
-        f_t, r_t, jw_t, cost_t = evaluate(idx, x_try)
-        iterations[idx] += 1
-        ok = cost_t < cost[idx]
-        gain = cost[idx] - cost_t
-        moved = np.max(np.abs(x_try - x[idx]), axis=1)
-        acc = idx[ok]
-        x[acc], f[acc], r[acc], jw[acc] = x_try[ok], f_t[ok], r_t[ok], jw_t[ok]
-        small = ok & ((gain <= COST_RTOL * (1.0 + cost[idx])) | (moved < STEP_ATOL))
-        cost[acc] = cost_t[ok]
-        lam[acc] = np.maximum(lam[acc] * 0.3, 1e-12)
-        lam[idx[~ok]] *= 10.0
-        # A device whose damping grew past LAMBDA_GIVE_UP has no downhill step left:
-        # it sits at the minimum within the Jacobian's finite-difference noise.
-        stuck = ~ok & (lam[idx] > LAMBDA_GIVE_UP)
-        done = small | stuck
-        converged[idx[done]] = True
-        active[idx[done]] = False
-    return x, f, r, jw, cost, converged, iterations
+    return (lambda x, rows: residuals(rows, x)), (lambda x, rows, f0: jacobian(rows, x, f0))
