@@ -31,10 +31,12 @@ parameter, of which this is the exact, non-asymptotic form. Then
     ln P(H | D) = −score(H)/2 + ln w(kind of H) − ln Σ_H' (…),
 
 with the prior weights w of :mod:`reconcile.fault_weights` (invented defaults,
-configurable). A fit that stops before its minimum (the iteration limit, or abandoned
-because its χ² stays more than 10⁴ above the best hypothesis's) is scored with the χ² it
-reached, an upper bound, and says so in its note; a hypothesis whose engine solution
-fails (no operating point) gets probability 0 and a note.
+configurable). A fit that stops before its minimum (the iteration limit, a stall, or
+``bounded``: its Gauss–Newton floor far above the best hypothesis's χ², the rule of
+:mod:`reconcile.diagnosis.fault_fit`) is scored with the χ² it reached, an upper bound
+of its minimum (so its probability is a lower bound), and says so in its note and its
+``status``; none is dropped. A hypothesis whose engine solution fails (no operating
+point) gets probability 0 and a note.
 
 Consistency. As in :mod:`reconcile.fitting`, χ²_min follows a χ² distribution with as
 many degrees of freedom as there are readings; a hypothesis is consistent when its
@@ -286,7 +288,8 @@ def diagnose(
     kw = {} if max_iterations is None else {"max_iterations": max_iterations}
     none_fit = fit_faults(faults[:1], obs, space, **kw)[0]
     seeds = [none_fit.x, space.prior_mean]
-    rest = fit_faults(faults[1:], obs, space, seeds=seeds, **kw)
+    rest = fit_faults(faults[1:], obs, space, seeds=seeds,
+                      reference_chi2=none_fit.chi_square, **kw)
     fits = [none_fit, *rest]
     u = np.array([ob.uncertainty for ob in obs])
     hyps = score_hypotheses(board, fits, none_fit, weights, len(obs), u)

@@ -13,10 +13,21 @@ prior row (x − prior mean)/prior sd per parameter the hypothesis leaves free. 
 minimised by the project's one batched Levenberg–Marquardt core,
 :func:`reconcile.inference.optimiser.minimise` (its step, damping, bounds and
 convergence test are stated there), every start of every hypothesis of the group a row
-of one batch. The Jacobian is a forward difference in internal coordinates with the
-one step rule, :func:`reconcile.inference.optimiser.difference_steps`; each
-hypothesis keeps the DC operating point of its last evaluated point as the engine's
-warm start.
+of one batch. Each hypothesis keeps the DC operating point of its last evaluated point
+as the engine's warm start.
+
+Jacobian: the measurement model's own (:mod:`reconcile.inference.dc_jacobian`), batched
+over the rows. DC readings and parts read out of circuit are analytic, from one engine
+pass at the accepted points with each hypothesis applied to the engine parameters (an
+open's 1 TΩ, a missing capacitor's 0 F, a shorted capacitor's 100 S leak: the
+sensitivities are taken on the board as the hypothesis has it; a held part's column is
+zero, a wrong value's is its resistor's own column); small-signal readings are forward
+differences of the boards alone (no probe boards) with the one step rule,
+:func:`reconcile.inference.optimiser.difference_steps`, each perturbed board with its
+hypothesis applied and started at its linearised operating point. A reading the
+hypothesis decides (an open resistor's resistance) has a zero row. A Jacobian costs one
+engine pass of M groups plus M·(P + 1) boards alone when small-signal readings are
+present, instead of M·P groups.
 
 Starts: each hypothesis starts from the best of a few seeds (the ``none`` fit, the
 prior mean) by its initial objective. A wrong value (a widened prior) starts in
@@ -24,10 +35,21 @@ addition at every decade of its ±3-decade range, since its objective can have a
 minimum per decade and which one is lowest shows only once the other parameters have
 followed; after :data:`PRUNE_AFTER` iterations only the best :data:`KEEP_STARTS` go on.
 
-No hypothesis is dropped: each is minimised until the core's convergence test holds
-or :data:`MAX_ITERATIONS` run out. A fit stopped short (``status`` ``iteration-limit``
-or ``stalled``, ``converged`` false) has an objective that is an upper bound of its
-minimum, and is scored with it as such (:mod:`reconcile.diagnosis.scoring`).
+No hypothesis is dropped. Each is minimised until the core's convergence test holds,
+:data:`MAX_ITERATIONS` run out, or it is *bounded*: the one early stop. The core keeps
+each row's Gauss–Newton floor, cost − gᵀA⁻¹g over its free parameters (A = JᵀJ with the
+prior rows, positive definite): the lowest objective the linearised residuals reach
+anywhere (exact for residuals linear in x; the Gauss–Newton model of Madsen, Nielsen &
+Tingleff 2004, §3.1–3.2, from memory). For non-linear residuals it is an estimate, not
+a bound, so it is divided by :data:`BOUND_SAFETY` and trusted only after
+:data:`BOUND_AFTER` iterations and on :data:`BOUND_CONFIRM` iterations in a row: a
+hypothesis whose floor ÷ BOUND_SAFETY stays more than :data:`BOUND_MARGIN` above the
+best objective reached (by any row of the group, or the ``none`` fit given as
+``reference_chi2``) is stopped with status ``bounded``. Its odds against the best are
+then below exp(−50) by the linearised model with a factor of ten to spare. A fit
+stopped short (``bounded``, ``iteration-limit`` or ``stalled``; ``converged`` false) has
+an objective that is an upper bound of its minimum, and is scored with it as such
+(:mod:`reconcile.diagnosis.scoring`).
 """
 
 from __future__ import annotations
@@ -38,12 +60,13 @@ import numpy as np
 
 from reconcile.engine import devices
 from reconcile.model.board import Board
-from reconcile.engine import DCState, solve_batch
+from reconcile.engine import BatchSolution, DCState, solve_batch
 from reconcile.engine.budget import chunks
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
-from reconcile.inference.optimiser import CONVERGED, difference_steps, minimise
+from reconcile.inference.dc_jacobian import analytic_rows, apply_calibration, dc_jacobian
+from reconcile.inference.optimiser import CONVERGED, minimise
 from reconcile.inference.priors import ParameterSpace
 from reconcile.inference.threads import small_problem_threads
 
@@ -58,6 +81,21 @@ DECADE_STARTS = np.arange(-3, 4) * np.log(10.0)
 PRUNE_AFTER = 6
 KEEP_STARTS = 2
 """After PRUNE_AFTER iterations only the KEEP_STARTS best starts of a hypothesis go on."""
+BOUNDED = "bounded"
+"""Status of a hypothesis stopped by the Gauss–Newton floor (module docstring)."""
+BOUND_AFTER = 12
+"""Iterations a hypothesis runs before the floor may stop it."""
+BOUND_CONFIRM = 3
+"""Consecutive iterations the floor must say so."""
+BOUND_SAFETY = 10.0
+"""The floor is divided by this before it is compared: it is the minimum of the
+linearised model, not of the objective, and measured on the project's fault sweeps it
+lay at most ×1.1 above the objective's end value after BOUND_AFTER iterations (×4 at a
+start)."""
+BOUND_MARGIN = 100.0
+"""A bounded hypothesis's floor lies this far above the best objective reached: its
+posterior odds against the best are below exp(−50) (a complexity term of a few units
+aside), so refining it changes no probability."""
 #: the small-signal quantities the measurement model predicts (from the registry)
 SMALL_SIGNAL_KEYS = SMALL_SIGNAL
 
@@ -88,7 +126,7 @@ class FaultFit:
     chi_square: float
     converged: bool
     iterations: int
-    status: str  # converged | stalled | iteration-limit | no-operating-point
+    status: str  # converged | stalled | iteration-limit | bounded | no-operating-point
     small_signal: dict[str, float]
     regions: dict[str, str]
     node_volts: dict[str, float]
@@ -143,7 +181,8 @@ class _Group:
         self.lower, self.upper = self.space.lower, self.space.upper
         self.measured = self.model.measured
         self.uncertainty = self.model.uncertainty
-        self.kinds = [fp.kind for fp in self.space.parameters]
+        #: whether some reading is small-signal (predictions need the AC solution)
+        self.has_signal = bool((~analytic_rows(self.model)).any())
         obs_index = {(ob.quantity, ob.at): k for k, ob in enumerate(observations)}
         self.reading_fix = [
             [(obs_index[(q, at)], v) for q, at, v in f.part_readings if (q, at) in obs_index]
@@ -182,11 +221,42 @@ class _Group:
             v=v, vj=vj, converged=np.ones(n, dtype=bool), iterations=np.zeros(n, dtype=np.int64)
         )
 
+    def _with_faults(self, params, owner: np.ndarray):
+        """``params`` with each row's hypothesis applied (its engine overrides), ``owner``
+        (one per row of ``params``) saying whose row it is."""
+        changed: dict[str, np.ndarray] = {}
+        for i in np.unique(owner):
+            ovr = self.faults[int(i)].overrides
+            if not ovr:
+                continue
+            rows = owner == i
+            for name, col, value in ovr:
+                arr = changed.get(name)
+                if arr is None:
+                    arr = changed[name] = getattr(params, name).copy()
+                arr[rows, col] = value
+        return replace(params, **changed) if changed else params
+
+    def _solve(self, x: np.ndarray, owner: np.ndarray, small_signal: bool):
+        """The engine solution of internal vectors x (M, P) of hypotheses ``owner``: M
+        groups of boards (the board alone and one per probe), warm-started from each
+        owner's last operating point; small-signal results for the boards alone only
+        (all a prediction reads). Fault boards are extreme (a transistor in deep cut-off
+        has rpi = 1/0): the engine's infinities pass quietly; callers handle non-finite
+        predictions."""
+        g = self.model.group
+        params = self._with_faults(self.model.parameters(x), np.repeat(owner, g))
+        rows = np.arange(len(x)) * g if small_signal else False
+        with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
+            return solve_batch(self.model.circuit, params, self._initial(owner),
+                               small_signal=rows)
+
     def evaluate(
         self, x: np.ndarray, owner: np.ndarray, *, record: bool = False, small_signal: bool = True
     ):
         """Predictions (M, R) for internal vectors x (M, P) of hypotheses ``owner`` (M,),
-        and the engine solution. ``record`` keeps each row's DC state as its owner's
+        and the engine solution (with the small-signal results of the boards alone when
+        a reading needs them or ``small_signal`` asks). ``record`` keeps each row's DC state as its owner's
         warm start. Within the memory budget the work is one engine call; beyond it,
         chunks of rows, and the solution is then not returned (None)."""
         step = self.model.rows_per_call()
@@ -195,27 +265,8 @@ class _Group:
                     for sl in chunks(len(x), step)]
             return np.concatenate(pred), None
         g = self.model.group
-        params = self.model.parameters(x)
-        rows_owner = np.repeat(owner, g)
-        changed: dict[str, np.ndarray] = {}
-        for i in np.unique(owner):
-            ovr = self.faults[int(i)].overrides
-            if not ovr:
-                continue
-            rows = rows_owner == i
-            for name, col, value in ovr:
-                arr = changed.get(name)
-                if arr is None:
-                    arr = changed[name] = getattr(params, name).copy()
-                arr[rows, col] = value
-        if changed:
-            params = replace(params, **changed)
-        # Fault boards are extreme (a transistor in deep cut-off has rpi = 1/0): let the
-        # engine's infinities through quietly; non-finite predictions are handled here.
+        sol = self._solve(x, owner, small_signal or self.has_signal)
         with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-            sol = solve_batch(
-                self.model.circuit, params, self._initial(owner), small_signal=small_signal
-            )
             pred = self.model.predict(x, solution=sol)
         for i in np.unique(owner):
             fixes = self.reading_fix[int(i)]
@@ -243,26 +294,45 @@ class _Group:
         prior = np.where(self.free[owner], (x - self.mu[owner]) / self.sd[owner], 0.0)
         return np.sum(r**2, axis=1) + np.sum(prior**2, axis=1)
 
-    def jacobian(self, x: np.ndarray, f0: np.ndarray, owner: np.ndarray) -> np.ndarray:
-        """Forward-difference Jacobian (M, R, P) at x (M, P) with predictions f0 (M, R),
-        for as many rows at a time as the memory budget allows (M·P boards in all)."""
+    def jacobian(self, x: np.ndarray, f0: np.ndarray, owner: np.ndarray,
+                 solution: BatchSolution | None = None) -> np.ndarray:
+        """The Jacobian (M, R, P) of the predictions at x (M, P), f0 (M, R) being the
+        predictions there (their owners' operating points at x are the warm start).
+
+        The measurement model's own rows (:mod:`reconcile.inference.dc_jacobian`):
+        analytic for every DC reading and part read out of circuit, from one engine
+        pass at x with each hypothesis' overrides in the engine parameters (a held
+        part's column is zero, a widened part's is its resistor's column); forward
+        differences of the boards alone for small-signal rows, each perturbed board
+        with the hypothesis applied. A reading the hypothesis decides
+        (``part_readings``) has a zero row. Rows at a time as the memory budget
+        allows. ``solution``, if given, is the engine solution at x (M groups), spared
+        solving again."""
         m, p = x.shape
-        per_call = max(1, self.model.rows_per_call() // max(p, 1))
+        g = self.model.group
+        numeric = ~analytic_rows(self.model)
+        boards = g + (p + 1 if numeric.any() else 0)
+        per_call = max(1, self.model.rows_per_call() * g // boards)
         if m > per_call:
             return np.concatenate([self.jacobian(x[sl], f0[sl], owner[sl])
                                    for sl in chunks(m, per_call)])
-        steps = difference_steps(self.kinds, x)  # (M, P)
-        xs = np.repeat(x, p, axis=0)
-        xs[np.arange(m * p), np.tile(np.arange(p), m)] += steps.ravel()
-        pred, _ = self.evaluate(xs, np.repeat(owner, p), small_signal=self._needs_small_signal)
-        jac = (pred.reshape(m, p, -1) - f0[:, None, :]) / steps[:, :, None]
-        jac = np.where(np.isfinite(jac), jac, 0.0)
-        jac = np.where(self.free[owner][:, None, :], jac.transpose(0, 2, 1), 0.0)
-        return jac
+        sol = self._solve(x, owner, small_signal=False) if solution is None else solution
+        with np.errstate(all="ignore"):
+            jac, dv = dc_jacobian(self.model, x, sol, node_derivatives=bool(numeric.any()))
+            if numeric.any():
+                def faulted(xs, own):
+                    return self._with_faults(self.space.to_parameters(xs, self.model.base),
+                                             owner[own])
 
-    @property
-    def _needs_small_signal(self) -> bool:
-        return any(ob.quantity in SMALL_SIGNAL_KEYS for ob in self.model.observations)
+                ss = self.model.small_signal_differences(x, sol, dv, board_parameters=faulted)
+                jac[:, numeric] = ss[:, numeric]
+            apply_calibration(self.model, x, f0, jac)
+        for i in np.unique(owner):
+            fixed = [k for k, _ in self.reading_fix[int(i)]]
+            if fixed:
+                jac[np.ix_(owner == i, fixed)] = 0.0
+        jac = np.where(np.isfinite(jac), jac, 0.0)
+        return np.where(self.free[owner][:, None, :], jac, 0.0)
 
 
 def _seed_starts(
@@ -294,7 +364,7 @@ def _seed_starts(
                     owners.append(i)
     xs = np.clip(np.array(cands), group.lower, group.upper)
     own = np.array(owners)
-    pred, _ = group.evaluate(xs, own, record=False, small_signal=group._needs_small_signal)
+    pred, _ = group.evaluate(xs, own, record=False, small_signal=False)
     cost = group.cost(xs, pred, own)
     cost = np.where(np.isfinite(cost), cost, np.inf)
     starts, start_owner = [], []
@@ -314,46 +384,84 @@ def _seed_starts(
     return np.array(starts), np.array(start_owner)
 
 
-def _prune_starts(start_owner: np.ndarray):
-    """``after_iteration`` for :func:`reconcile.inference.optimiser.minimise`: once
-    :data:`PRUNE_AFTER` iterations are done, only the :data:`KEEP_STARTS` best starts of
-    each hypothesis go on (every hypothesis keeps its best start: none is dropped)."""
+def _stops(start_owner: np.ndarray, reference: float):
+    """``after_iteration`` for :func:`reconcile.inference.optimiser.minimise`, and the
+    masks of the rows it stopped: pruned starts and bounded hypotheses.
+
+    - Once :data:`PRUNE_AFTER` iterations are done, only the :data:`KEEP_STARTS` best
+      starts of each hypothesis go on (each keeps its best start).
+    - A row is *bounded* (stopped, status :data:`BOUNDED`) once, after at least
+      :data:`BOUND_AFTER` iterations and on :data:`BOUND_CONFIRM` iterations in a row,
+      its Gauss–Newton floor divided by :data:`BOUND_SAFETY` lies more than
+      :data:`BOUND_MARGIN` above the best objective any row or ``reference`` has
+      reached (module docstring)."""
     pruned = np.zeros(len(start_owner), dtype=bool)
+    bounded = np.zeros(len(start_owner), dtype=bool)
+    streak = np.zeros(len(start_owner), dtype=np.int64)
     done = [False]
 
     def after(state, active):
-        if done[0] or state.iterations.max() < PRUNE_AFTER:
-            return None
-        done[0] = True
-        for o in np.unique(start_owner):
-            rows = np.nonzero(start_owner == o)[0]
-            if len(rows) > KEEP_STARTS:
-                pruned[rows[np.argsort(state.cost[rows])[KEEP_STARTS:]]] = True
-        return np.flatnonzero(pruned & active)
+        stop = np.zeros(len(start_owner), dtype=bool)
+        if not done[0] and state.iterations.max() >= PRUNE_AFTER:
+            done[0] = True
+            for o in np.unique(start_owner):
+                rows = np.nonzero(start_owner == o)[0]
+                if len(rows) > KEEP_STARTS:
+                    pruned[rows[np.argsort(state.cost[rows])[KEEP_STARTS:]]] = True
+            stop |= pruned & active
+        best = min(reference, float(np.min(state.cost)))
+        far = active & ~stop & (state.iterations >= BOUND_AFTER) & (
+            state.floor / BOUND_SAFETY > best + BOUND_MARGIN)
+        streak[:] = np.where(far, streak + 1, 0)
+        newly = far & (streak >= BOUND_CONFIRM)
+        bounded[newly] = True
+        return np.flatnonzero(stop | newly)
 
-    return after, pruned
+    return after, pruned, bounded
 
 
-def _minimise(group: _Group, x0: np.ndarray, max_iterations: int, start_owner: np.ndarray):
+def _minimise(group: _Group, x0: np.ndarray, max_iterations: int, start_owner: np.ndarray,
+              reference: float):
     """Every start of every hypothesis minimised together by the one batched core
     (:func:`reconcile.inference.optimiser.minimise`): the weighted readings stacked with
     the prior rows of the free parameters. Returns the :class:`Minimum` (``aux`` holds
-    the predictions) and which starts were pruned."""
+    the predictions; a bounded row's status is :data:`BOUNDED`) and which starts were
+    pruned."""
     inv_sd = np.where(group.free, 1.0 / group.sd, 0.0)
 
+    last: dict = {}
+
     def residuals(x, rows):
-        pred, _ = group.evaluate(x, rows, record=True)
+        pred, sol = group.evaluate(x, rows, record=True, small_signal=False)
+        last.update(rows=rows, x=x, solution=sol)
         prior = (x - group.mu[rows]) * inv_sd[rows]
         return np.concatenate([group.weighted(pred), prior], axis=1), pred
 
     def jacobian(x, rows, pred):
-        jw = group.jacobian(x, pred, rows) / group.uncertainty[None, :, None]
+        sol = _solution_of(group, last, x, rows)
+        jw = group.jacobian(x, pred, rows, sol) / group.uncertainty[None, :, None]
         return np.concatenate([jw, inv_sd[rows][:, None, :] * np.eye(x.shape[1])], axis=1)
 
-    after, pruned = _prune_starts(start_owner)
+    after, pruned, bounded = _stops(start_owner, reference)
     found = minimise(residuals, jacobian, x0, group.lower, group.upper, free=group.free,
                      max_iterations=max_iterations, after_iteration=after)
+    found.status[bounded] = BOUNDED
     return found, pruned
+
+
+def _solution_of(group: _Group, last: dict, x: np.ndarray, rows: np.ndarray):
+    """The engine solution of rows ``rows`` at x, taken from the last residual
+    evaluation when it solved exactly those points (the core asks for the Jacobians of
+    the steps it just accepted), else None."""
+    sol = last.get("solution")
+    if sol is None:
+        return None
+    where = {int(r): i for i, r in enumerate(last["rows"])}
+    pos = np.array([where.get(int(r), -1) for r in rows], dtype=np.intp)
+    if (pos < 0).any() or not np.array_equal(last["x"][pos], x):
+        return None
+    g = group.model.group
+    return sol.take_dc((pos[:, None] * g + np.arange(g)[None, :]).ravel())
 
 
 @small_problem_threads()
@@ -365,6 +473,7 @@ def fit_faults(
     seeds: list[np.ndarray] | None = None,
     max_iterations: int = MAX_ITERATIONS,
     own_seeds: list[list[np.ndarray]] | None = None,
+    reference_chi2: float = np.inf,
 ) -> list[FaultFit]:
     """Fit every hypothesis in ``faults`` to the observations.
 
@@ -384,6 +493,9 @@ def fit_faults(
     own_seeds
         Extra starting vectors per hypothesis (in the order of ``faults``), tried
         besides ``seeds`` (a pair starts from its two single faults' fits too).
+    reference_chi2
+        The best objective known from outside these hypotheses (the ``none`` fit's),
+        against which a hypothesis may be bounded (:data:`BOUND_MARGIN`).
 
     Returns
     -------
@@ -400,7 +512,7 @@ def fit_faults(
         mine = [own_seeds[i] for i in members] if own_seeds else None
         x0, start_owner = _seed_starts(base, [np.asarray(s, dtype=float) for s in seeds], mine)
         group = base.expanded(start_owner)
-        found, pruned = _minimise(group, x0, max_iterations, start_owner)
+        found, pruned = _minimise(group, x0, max_iterations, start_owner, reference_chi2)
         x, jac, iterations = found.x, found.jacobian, found.iterations
         owner = np.arange(len(start_owner))
         pred, sol_all = group.evaluate(x, owner, small_signal=True)
@@ -500,7 +612,7 @@ def predict_faults(
         )
         x = np.array([fits[i].x for i in members])
         owner = np.arange(len(members))
-        f0, _ = group.evaluate(x, owner, record=True)
+        f0, _ = group.evaluate(x, owner, record=True, small_signal=False)
         jm = group.jacobian(x, f0, owner)
         pred[members] = f0
         jac[members] = jm

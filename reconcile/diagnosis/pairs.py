@@ -230,6 +230,7 @@ def fit_pairs(
     kw = {} if max_iterations is None else {"max_iterations": max_iterations}
     out: list[FaultFit] = []
     best = -math.inf
+    reference = min(ft.chi_square for ft in fits)
     done = batches = 0
     stopped_by = "exhausted"
     while done < len(order):
@@ -247,7 +248,8 @@ def fit_pairs(
             xa, xb = fits[a].x, fits[b].x
             seeds.append([_merged_seed(xa, xb, singles[b], space),
                           _merged_seed(xb, xa, singles[a], space)])
-        got = fit_faults(faults, observations, space, seeds=[none_fit.x], own_seeds=seeds, **kw)
+        got = fit_faults(faults, observations, space, seeds=[none_fit.x], own_seeds=seeds,
+                         reference_chi2=reference, **kw)
         out.extend(got)
         best = max([best, *(_exact_log_posterior(ft, weights) for ft in got)])
         done += len(batch)

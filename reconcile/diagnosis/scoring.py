@@ -37,10 +37,10 @@ from reconcile.model.kinds import HypothesisKind
 
 OFF_TOLERANCE_KINDS = ("resistor", "capacitor", "supply", "IS", "beta")
 _STATUS_NOTES = {
-    "approximate": "fit stopped at its iteration limit within about one unit of χ² of its "
-    "minimum: its probability may be a little low",
-    "abandoned": "fit stopped early: its χ² stayed far above the best hypothesis's "
-    "(odds below exp(-5000)); the χ² shown is an upper bound",
+    "stalled": "no step lowered its χ² however strongly damped, before its minimum: the χ² "
+    "shown is an upper bound and its probability a lower bound",
+    "bounded": "fit stopped early: its Gauss–Newton floor stayed far above the best "
+    "hypothesis's χ² (odds below exp(-50)); the χ² shown is an upper bound",
     "iteration-limit": "fit stopped at its iteration limit before its minimum: the χ² shown "
     "is an upper bound and its probability a lower bound",
     "no-operating-point": "the engine found no operating point at the fit: probability set to 0",

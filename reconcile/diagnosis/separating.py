@@ -94,8 +94,8 @@ def separating_reading(
     live = [h for h in hyps if h.probability > 0 and math.isfinite(h.score)]
     top = [h for h in live[:TOP_FOR_NEXT] if h.probability >= MIN_PROBABILITY_FOR_NEXT]
     if len(top) < 2:
-        # Every rival was abandoned or failed: the nearest of them (its fit stopped
-        # early, but its predictions stand) is still the one to rule out.
+        # Every rival is negligible or failed: the nearest of them (its fit may have
+        # stopped early, but its predictions stand) is still the one to rule out.
         rivals = [h for h in hyps if h not in top and np.all(np.isfinite(h.fit.predicted))]
         top = (top + sorted(rivals, key=lambda h: h.chi_square))[:2]
     cands = _candidates(board, obs)

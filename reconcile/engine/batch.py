@@ -6,7 +6,7 @@ and capture all go through it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields, replace
 
 import numpy as np
 
@@ -55,6 +55,18 @@ class BatchSolution:
     @property
     def converged(self) -> np.ndarray:
         return self.state.converged
+
+    def take_dc(self, index: np.ndarray) -> BatchSolution:
+        """The DC solution of some samples (their parameters, state, derived quantities
+        and Newton matrix); small-signal results and the linear model are left out."""
+        st = self.state
+        state = DCState(v=st.v[index], vj=st.vj[index], converged=st.converged[index],
+                        iterations=st.iterations[index],
+                        is_t=None if st.is_t is None else st.is_t[index])
+        arrays = {f.name: getattr(self, f.name)[index] for f in fields(self)
+                  if isinstance(getattr(self, f.name), np.ndarray)}
+        return replace(self, params=self.params.take(index), state=state, small_signal=None,
+                       linear=None, **arrays)
 
     @property
     def n_samples(self) -> int:

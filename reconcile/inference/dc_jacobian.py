@@ -46,6 +46,7 @@ class MeasurementModel(Protocol):
     space: ParameterSpace
     plan: list[tuple[str, int, object]]
     probes: tuple[tuple[str, str], ...]
+    group: int
     observations: list
     calibration_index: np.ndarray
 
@@ -76,23 +77,24 @@ def _engine_columns(model: MeasurementModel) -> tuple[list[tuple[str, int]], np.
 
 
 def _row_derivative(model: MeasurementModel, sens, kind: str, what) -> np.ndarray:
-    """d(raw prediction)/d(engine columns) of one DC reading of the board alone."""
+    """d(raw prediction)/d(engine columns) (M, C) of one DC reading of the boards alone."""
     if kind == "voltage":
         a, b = what
         n_nodes = model.circuit.n_nodes
-        zero = np.zeros(sens.node_v.shape[2])
-        da = sens.node_v[0, a] if a < n_nodes else zero
-        db = sens.node_v[0, b] if b < n_nodes else zero
+        zero = np.zeros(sens.node_v.shape[::2])
+        da = sens.node_v[:, a] if a < n_nodes else zero
+        db = sens.node_v[:, b] if b < n_nodes else zero
         return da - db
     if kind == "supply_current":
-        return sens.supply_current[0, what]
-    return sens.resistor_current[0, what]
+        return sens.supply_current[:, what]
+    return sens.resistor_current[:, what]
 
 
 def _probe_derivatives(model: MeasurementModel, solution: BatchSolution,
-                       cols: tuple[tuple[str, int], ...]) -> np.ndarray:
-    """d(V(a) − V(b))/d(engine columns) (K, C) on each probe board k, its own probe's
-    two nodes, by the adjoint form (one transposed solve per probe board)."""
+                       cols: tuple[tuple[str, int], ...], m: int) -> np.ndarray:
+    """d(V(a) − V(b))/d(engine columns) (M, K, C) on each probe board k of each of the M
+    groups, its own probe's two nodes, by the adjoint form (one transposed solve per
+    probe board)."""
     c = model.circuit
     k = len(model.probes)
     weights = np.zeros((k, c.n_nodes + 1))
@@ -100,30 +102,39 @@ def _probe_derivatives(model: MeasurementModel, solution: BatchSolution,
         weights[i, c.node_index(a)] += 1.0
         weights[i, c.node_index(b)] -= 1.0
     weights[:, c.gnd] = 0.0
-    rows = np.arange(1, 1 + k)
-    st = solution.state
-    state = DCState(v=st.v[rows], vj=st.vj[rows], converged=st.converged[rows],
-                    iterations=st.iterations[rows])
-    params = solution.params.take(rows)
+    rows = (np.arange(m)[:, None] * model.group + np.arange(1, 1 + k)[None, :]).ravel()
     newton = None if solution.newton_matrix is None else solution.newton_matrix[rows]
-    return dc_functional_sensitivity(c, params, state, weights, cols, newton)
+    out = dc_functional_sensitivity(c, solution.params.take(rows), _rows(solution.state, rows),
+                                    np.tile(weights, (m, 1)), cols, newton)
+    return out.reshape(m, k, -1)
 
 
 def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution, *,
                 node_derivatives: bool = False) -> tuple[np.ndarray, np.ndarray | None]:
     """The Jacobian (R, P) of the raw (unscaled) predictions at internal x (P,), analytic
     in the rows of :func:`analytic_rows` (other rows zero); ``solution`` is the model's
-    engine solution at x (one group of boards). With ``node_derivatives``, also
-    dV/dx (n_nodes + 1, P) of every node of the board alone (gnd last, 0), else None.
+    engine solution at x (one group of boards: the board alone, one board per probe,
+    one per ammeter). With ``node_derivatives``, also dV/dx (n_nodes + 1, P) of every node of the
+    board alone (gnd last, 0), else None.
+
+    Batched: x (M, P) and a solution of M groups (M·group boards, in the order
+    :meth:`MeasurementModel.parameters` lays them out; the boards' engine parameters
+    are the solution's own, so a caller may have changed some, as a fault hypothesis
+    does) give (M, R, P) and (M, n_nodes + 1, P).
 
     Readings of the board alone (currents, voltages when the meter is not modelled) take
     their rows from the forward sensitivities of that one board; a voltage read with
     the meter attached is the one function V(a) − V(b) of its probe board, whose row
     comes from one adjoint solve of that board."""
-    x = np.asarray(x, dtype=float).ravel()
-    slope = np.array([fp.external_slope(float(x[j]))
-                      for j, fp in enumerate(model.space.parameters)])
-    jac = np.zeros((len(model.observations), x.size))
+    x = np.asarray(x, dtype=float)
+    if x.ndim == 1:
+        jac, dv = dc_jacobian(model, x[None, :], solution, node_derivatives=node_derivatives)
+        return jac[0], None if dv is None else dv[0]
+    m, p = x.shape
+    slope = np.empty((m, p))
+    for j, fp in enumerate(model.space.parameters):
+        slope[:, j] = fp.external_slope(x[:, j])
+    jac = np.zeros((m, len(model.observations), p))
     cols, owners = _engine_columns(model)
     cols = tuple(cols)
     plan = model.plan
@@ -131,61 +142,64 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
     probed = [k for k, (kind, row, _) in enumerate(plan) if kind == "voltage" and row > 0]
     metered = [k for k, (kind, row, _) in enumerate(plan)
                if kind == "resistor_current" and row > 0]
-    dv = None
-    if node_derivatives:
-        dv = np.zeros((model.circuit.n_nodes + 1, x.size))
+    dv = np.zeros((m, model.circuit.n_nodes + 1, p)) if node_derivatives else None
     if cols and (base or node_derivatives):
-        sens = dc_sensitivity(model.circuit, solution.params.take(slice(0, 1)),
-                              _first(solution.state), cols,
+        alone = np.arange(m) * model.group
+        sens = dc_sensitivity(model.circuit, solution.params.take(alone),
+                              _rows(solution.state, alone), cols,
                               None if solution.newton_matrix is None
-                              else solution.newton_matrix[:1])
+                              else solution.newton_matrix[alone])
         for k in base:
             kind, _, what = plan[k]
-            jac[k, owners] = _row_derivative(model, sens, kind, what) * slope[owners]
+            jac[:, k, owners] = _row_derivative(model, sens, kind, what) * slope[:, owners]
         if dv is not None:
-            dv[:-1, owners] = sens.node_v[0] * slope[owners]
+            dv[:, :-1, owners] = sens.node_v * slope[:, None, owners]
     if cols and probed:
-        d_probe = _probe_derivatives(model, solution, cols)
+        d_probe = _probe_derivatives(model, solution, cols, m)
         for k in probed:
-            jac[k, owners] = d_probe[plan[k][1] - 1] * slope[owners]
+            jac[:, k, owners] = d_probe[:, plan[k][1] - 1] * slope[:, owners]
     if cols and metered:
         _ammeter_rows(model, solution, cols, metered, owners, slope, jac)
     for k, (kind, _, what) in enumerate(plan):
         if kind == "parameter":
-            jac[k, what] = slope[what]
+            jac[:, k, what] = slope[:, what]
     return jac, dv
 
 
 def _ammeter_rows(model: MeasurementModel, solution: BatchSolution, cols, metered: list[int],
                   owners: np.ndarray, slope: np.ndarray, jac: np.ndarray) -> None:
-    """Rows of the currents read through an ammeter, in place: the forward sensitivities
-    of each ammeter's own board (its resistor carrying the burden in series, whose
-    column is then the resistor's own: d(R + r)/dR = 1)."""
+    """Rows (of each of the M groups) of the currents read through an ammeter, in place:
+    the forward sensitivities of each ammeter's own board (its resistor carrying the
+    burden in series, whose column is then the resistor's own: d(R + r)/dR = 1)."""
+    m = jac.shape[0]
     rows = np.array(sorted({model.plan[k][1] for k in metered}), dtype=np.intp)
-    st = solution.state
-    state = DCState(v=st.v[rows], vj=st.vj[rows], converged=st.converged[rows],
-                    iterations=st.iterations[rows])
-    newton = None if solution.newton_matrix is None else solution.newton_matrix[rows]
-    sens = dc_sensitivity(model.circuit, solution.params.take(rows), state, cols, newton)
+    boards = (np.arange(m)[:, None] * model.group + rows[None, :]).ravel()
+    newton = None if solution.newton_matrix is None else solution.newton_matrix[boards]
+    sens = dc_sensitivity(model.circuit, solution.params.take(boards),
+                          _rows(solution.state, boards), cols, newton)
+    current = sens.resistor_current.reshape(m, len(rows), *sens.resistor_current.shape[1:])
     for k in metered:
         _, row, what = model.plan[k]
         i = int(np.searchsorted(rows, row))
-        jac[k, owners] = sens.resistor_current[i, what] * slope[owners]
+        jac[:, k, owners] = current[:, i, what] * slope[:, owners]
 
 
-def _first(state: DCState) -> DCState:
-    """The first sample of a solved state (the board alone in the model's group)."""
-    return DCState(v=state.v[:1], vj=state.vj[:1], converged=state.converged[:1],
-                   iterations=state.iterations[:1])
+def _rows(state: DCState, rows: np.ndarray) -> DCState:
+    """Some samples of a solved state."""
+    return DCState(v=state.v[rows], vj=state.vj[rows], converged=state.converged[rows],
+                   iterations=state.iterations[rows])
 
 
 def apply_calibration(model: MeasurementModel, x: np.ndarray, f0: np.ndarray,
                       jac: np.ndarray) -> None:
     """Rows of readings predicted times a calibration factor c, in place: c·df/dx, and
-    f·dc/dx = f0 (the scaled prediction, since dc/d(ln c) = c) in the factor's column."""
+    f·dc/dx = f0 (the scaled prediction, since dc/d(ln c) = c) in the factor's column.
+    One point (x (P,), f0 (R,), jac (R, P)) or a batch (a leading axis M on each)."""
     cal = model.calibration_index
-    ext = model.space.external(np.asarray(x, dtype=float)[None, :])[0]
+    ext = model.space.external(np.atleast_2d(np.asarray(x, dtype=float)))
+    if np.ndim(x) == 1:
+        ext = ext[0]
     for k in np.flatnonzero(cal >= 0):
         c = cal[k]
-        jac[k] *= ext[c]
-        jac[k, c] = f0[k]
+        jac[..., k, :] *= ext[..., c, None]
+        jac[..., k, c] = f0[..., k]

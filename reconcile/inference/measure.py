@@ -49,6 +49,7 @@ from reconcile.engine.batch import bytes_per_board
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.inference.calibration import calibration_map
 from reconcile.inference.dc_jacobian import analytic_rows, apply_calibration, dc_jacobian
+from reconcile.inference.optimiser import DERIVATIVE_STEP, difference_steps
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
@@ -308,7 +309,8 @@ class MeasurementModel:
                 out[:, i] = getattr(at_freq, name)[:, j]
         return out
 
-    def jacobian(self, x: np.ndarray, *, step: float = 1e-6) -> tuple[np.ndarray, np.ndarray]:
+    def jacobian(self, x: np.ndarray, *,
+                 step: float = DERIVATIVE_STEP) -> tuple[np.ndarray, np.ndarray]:
         """Predictions at x (R,) and their Jacobian (R, P) in internal coordinates.
 
         DC rows and parts read out of circuit are analytic, from the one engine solve of
@@ -327,27 +329,18 @@ class MeasurementModel:
         jac[bad] = np.nan
         return f0, jac
 
-    def _steps(self, x: np.ndarray, step: float) -> np.ndarray:
-        """Forward-difference step of each internal coordinate."""
-        h = np.full(x.size, step)
-        for j, fp in enumerate(self.space.parameters):
-            if fp.kind == "temperature":
-                h[j] = 1e-4
-            elif fp.kind == "supply":
-                h[j] = step * max(1.0, abs(x[j]))
-        return h
-
-    def _seed(self, solution: BatchSolution, cols: np.ndarray, h: np.ndarray,
-              node_derivatives: np.ndarray | None) -> DCState:
-        """Starting points of the board alone at x and x + h·e_j (see
-        :meth:`small_signal_differences`): one shared, or one linearised per vector."""
+    def _seed(self, solution: BatchSolution, m: int, reps: int, offsets: np.ndarray | None
+              ) -> DCState:
+        """Starting points of the boards alone of :meth:`small_signal_differences`:
+        each of the M groups' board alone repeated ``reps`` times, moved by ``offsets``
+        (M·reps, n_nodes + 1) to its linearised operating point when given."""
         st = solution.state
-        if node_derivatives is None:
-            return DCState(v=st.v[:1], vj=st.vj[:1], converged=st.converged[:1],
-                           iterations=st.iterations[:1],
-                           is_t=None if st.is_t is None else st.is_t[:1])
-        v = np.repeat(st.v[:1], cols.size + 1, axis=0)
-        v[1:] += (node_derivatives[:, cols] * h[None, :]).T
+        alone = np.repeat(np.arange(m) * self.group, reps)
+        v = st.v[alone].copy()
+        if offsets is None:
+            return DCState(v=v, vj=st.vj[alone], converged=st.converged[alone],
+                           iterations=st.iterations[alone])
+        v += offsets
         q, pol = self.circuit.transistor_nodes, self.circuit.polarity
         vj = np.empty((v.shape[0], len(pol), 2))
         if len(pol):
@@ -359,31 +352,54 @@ class MeasurementModel:
 
     def small_signal_differences(self, x: np.ndarray, solution: BatchSolution,
                                  node_derivatives: np.ndarray | None = None, *,
-                                 step: float = 1e-6) -> np.ndarray:
+                                 step: float = DERIVATIVE_STEP,
+                                 board_parameters=None) -> np.ndarray:
         """Forward-difference rows (R, P) of the raw (unscaled) small-signal predictions
         at x; other rows and the calibration columns are zero. The board alone is solved
-        at x and at x + h·e_j for every board parameter j, in one batched call (chunked
-        under the memory budget), seeded from ``solution`` (the model's solve at x) or,
-        given ``node_derivatives`` (dV/dx of the board alone, n_nodes + 1 by P), each
-        from its linearised operating point V + h·dV/dx_j, so Newton starts converged
-        to first order."""
-        x = np.asarray(x, dtype=float).ravel()
+        at x and at x + h·e_j for every board parameter j (the one step rule,
+        :func:`reconcile.inference.optimiser.difference_steps`), in one batched call
+        (chunked under the memory budget), seeded from ``solution`` (the model's solve
+        at x) or, given ``node_derivatives`` (dV/dx of the board alone, n_nodes + 1 by
+        P), each from its linearised operating point V + h·dV/dx_j, so Newton starts
+        converged to first order.
+
+        Batched: x (M, P), a solution of M groups and node derivatives (M, n_nodes + 1,
+        P) give (M, R, P). ``board_parameters(xs, owner)``, if given, makes the engine
+        parameters of the boards alone at internal vectors xs, ``owner`` saying which
+        of the M points each belongs to (a fault hypothesis changes some); by default
+        :meth:`ParameterSpace.to_parameters`."""
+        x = np.asarray(x, dtype=float)
+        if x.ndim == 1:
+            dv = None if node_derivatives is None else node_derivatives[None]
+            return self.small_signal_differences(x[None, :], solution, dv, step=step,
+                                                 board_parameters=board_parameters)[0]
+        m, p = x.shape
         cols = np.array([j for j, fp in enumerate(self.space.parameters)
                          if fp.kind != "calibration"], dtype=np.intp)
-        h = self._steps(x, step)[cols]
-        xs = np.repeat(x[None, :], cols.size + 1, axis=0)
-        xs[1 + np.arange(cols.size), cols] += h
-        seed = self._seed(solution, cols, h, node_derivatives)
+        kinds = [self.space.parameters[j].kind for j in cols]
+        h = difference_steps(kinds, x[:, cols], step=step)  # (M, C)
+        reps = cols.size + 1
+        xs = np.repeat(x, reps, axis=0)
+        moved = (np.arange(m)[:, None] * reps + 1 + np.arange(cols.size)[None, :]).ravel()
+        xs[moved, np.tile(cols, m)] += h.ravel()
+        offsets = None
+        if node_derivatives is not None:
+            offsets = np.zeros((m, reps, node_derivatives.shape[1]))
+            offsets[:, 1:] = (node_derivatives[:, :, cols] * h[:, None, :]).transpose(0, 2, 1)
+            offsets = offsets.reshape(m * reps, -1)
+        seed = self._seed(solution, m, reps, offsets)
+        owner = np.repeat(np.arange(m), reps)
+        make = board_parameters or (lambda xv, _own: self.space.to_parameters(xv, self.base))
         rows = self._signal_plan
         values = np.empty((xs.shape[0], len(rows)))
-        step_rows = rows_per_chunk(bytes_per_board(self.circuit), share=0.5)
-        for sl in chunks(xs.shape[0], step_rows):
-            part = seed if seed.v.shape[0] == 1 else DCState(
-                v=seed.v[sl], vj=seed.vj[sl], converged=seed.converged[sl],
-                iterations=seed.iterations[sl])
-            sol = solve_batch(self.circuit, self.space.to_parameters(xs[sl], self.base), part)
+        for sl in chunks(xs.shape[0], rows_per_chunk(bytes_per_board(self.circuit), share=0.5)):
+            part = DCState(v=seed.v[sl], vj=seed.vj[sl], converged=seed.converged[sl],
+                           iterations=seed.iterations[sl])
+            sol = solve_batch(self.circuit, make(xs[sl], owner[sl]), part)
             values[sl] = self._small_signal_values(sol, np.arange(sl.stop - sl.start), rows)
             values[sl][~sol.converged] = np.nan
-        jac = np.zeros((len(self.observations), x.size))
-        jac[np.ix_(rows, cols)] = ((values[1:] - values[0]) / h[:, None]).T
+        values = values.reshape(m, reps, len(rows))
+        jac = np.zeros((m, len(self.observations), p))
+        jac[:, np.asarray(rows)[:, None], cols[None, :]] = (
+            (values[:, 1:] - values[:, :1]) / h[:, :, None]).transpose(0, 2, 1)
         return jac

@@ -65,20 +65,21 @@ TEMPERATURE_STEP_K = 1e-4
 CONVERGED, STALLED, ITERATION_LIMIT = "converged", "stalled", "iteration-limit"
 
 
-def difference_steps(kinds, x: np.ndarray) -> np.ndarray:
+def difference_steps(kinds, x: np.ndarray, step: float = DERIVATIVE_STEP) -> np.ndarray:
     """The one forward-difference step rule: a step per parameter at the point(s) x
     (..., P), the same shape as x.
 
     ``kinds`` (P,) are the parameter kinds of :mod:`reconcile.inference.priors`: a
     logarithmic coordinate (resistors, capacitors, device parameters, calibration
-    factors) moves by :data:`DERIVATIVE_STEP`, a temperature (kelvin) by
+    factors) moves by ``step`` (:data:`DERIVATIVE_STEP`), a temperature (kelvin) by
     :data:`TEMPERATURE_STEP_K`, a supply (volts, a linear coordinate) by the relative
-    step times max(1, |x|)."""
+    step times max(1, |x|). The measurement model's small-signal columns, the
+    hypothesis fits and the jig fits all take their steps here."""
     x = np.asarray(x, dtype=float)
     kinds = np.asarray(list(kinds), dtype=object)
-    out = np.where(kinds == "temperature", TEMPERATURE_STEP_K, DERIVATIVE_STEP)
+    out = np.where(kinds == "temperature", TEMPERATURE_STEP_K, step)
     supply = kinds == "supply"
-    return np.where(supply, DERIVATIVE_STEP * np.maximum(1.0, np.abs(x)), out + 0.0 * x)
+    return np.where(supply, step * np.maximum(1.0, np.abs(x)), out + 0.0 * x)
 
 
 @dataclass
@@ -98,6 +99,7 @@ class Minimum:
     status: np.ndarray
     iterations: np.ndarray
     decrement: np.ndarray
+    floor: np.ndarray
 
     @property
     def converged(self) -> np.ndarray:
@@ -128,6 +130,7 @@ class _Rows:
         self.active = np.ones(m, dtype=bool)
         self.iterations = np.zeros(m, dtype=np.int64)
         self.decrement = np.full(m, np.inf)
+        self.floor = np.full(m, -np.inf)
 
     def stop(self, idx: np.ndarray, status: str) -> None:
         self.status[idx] = status
@@ -187,6 +190,9 @@ def _iterate(st: _Rows, idx: np.ndarray) -> None:
     g_m = np.where(moving, grad, 0.0)
     decrement = np.einsum("mi,mi->m", g_m, _solve(_restricted(a, moving), g_m))
     st.decrement[idx] = decrement
+    free = st.free[idx]
+    g_f = np.where(free, grad, 0.0)
+    st.floor[idx] = st.cost[idx] - np.einsum("mi,mi->m", g_f, _solve(_restricted(a, free), g_f))
     done = decrement <= DECREMENT_TOL
     st.stop(idx[done], CONVERGED)
     keep = ~done
@@ -250,4 +256,5 @@ def minimise(
 
 def _minimum(st: _Rows) -> Minimum:
     return Minimum(x=st.x, residual=st.r, jacobian=st.jac, aux=st.aux, cost=st.cost,
-                   status=st.status, iterations=st.iterations, decrement=st.decrement)
+                   status=st.status, iterations=st.iterations, decrement=st.decrement,
+                   floor=st.floor)

@@ -86,13 +86,13 @@ class FreeParameter:
             return math.log10(value)
         return float(value)
 
-    def external_slope(self, x: float) -> float:
-        """d(external)/d(internal) at x."""
+    def external_slope(self, x: np.ndarray | float) -> np.ndarray:
+        """d(external)/d(internal) at x (a number or an array of points)."""
         if self.transform == "log":
-            return math.exp(x)
+            return np.exp(x)
         if self.transform == "log10":
-            return math.log(10.0) * 10.0**x
-        return 1.0
+            return math.log(10.0) * 10.0 ** np.asarray(x, dtype=float)
+        return 1.0 + 0.0 * np.asarray(x, dtype=float)
 
 
 def _range_sd(value: float, low: float | None, high: float | None, fn) -> float | None:
