@@ -5,6 +5,10 @@ The method is described in :mod:`reconcile.diagnosis.diagnose` (Bhattacharyya di
 between the hypotheses' predictive Gaussians; Fukunaga, *Introduction to Statistical
 Pattern Recognition*, ch. 3, from memory). The candidates are the readings of the
 catalogue (:func:`reconcile.inference.catalogue.readings_one_could_take`) not yet taken.
+
+A hypothesis the readings cannot see (``testable`` false: :mod:`reconcile.diagnosis.scoring`)
+is no reason for a reading: it takes part only when it matters to the spec, its fitted
+board missing a ``[spec]`` target (:func:`matters_to_spec`).
 """
 
 from __future__ import annotations
@@ -17,6 +21,7 @@ import numpy as np
 from reconcile.data.readings import Reading, default_uncertainty
 from reconcile.diagnosis.fault_fit import predict_faults
 from reconcile.diagnosis.scoring import Hypothesis
+from reconcile.engine.solution import check_spec
 from reconcile.errors import InputError
 from reconcile.inference.catalogue import ReadingKey, reading_label, readings_one_could_take
 from reconcile.inference.measure import Observation
@@ -91,6 +96,7 @@ def _reading_u(board: Board, quantity: str, at: str, value: float) -> float | No
 def separating_reading(
     board: Board, hyps: list[Hypothesis], obs: list[Observation]
 ) -> NextReading | None:
+    hyps = [h for h in hyps if h.testable or matters_to_spec(board, h)]
     live = [h for h in hyps if h.probability > 0 and math.isfinite(h.score)]
     top = [h for h in live[:TOP_FOR_NEXT] if h.probability >= MIN_PROBABILITY_FOR_NEXT]
     if len(top) < 2:
@@ -164,6 +170,13 @@ def separating_reading(
         purpose=purpose,
         frequency=f,
     )
+
+
+def matters_to_spec(board: Board, h: Hypothesis) -> bool:
+    """Whether the board under ``h``, as fitted, misses one of its ``[spec]`` targets
+    (the small-signal quantities its fit gives)."""
+    return any(not c.met for c in check_spec(board, h.fit.small_signal)
+               if math.isfinite(c.value))
 
 
 def _bhattacharyya(m1, v1, m2, v2) -> np.ndarray:

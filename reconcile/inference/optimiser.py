@@ -33,6 +33,11 @@ The method, one rule for every caller:
   has hit the ``iteration-limit``. For both, the sum of squares reached is an upper
   bound of the row's minimum (every accepted step lowers it), never a value to be taken
   as the minimum.
+- **Floor.** Each iteration also keeps the row's Gauss–Newton floor, cost − gᵀA⁻¹g over
+  all its free parameters: the minimum of the linearised residuals ‖r + Jδ‖² over every
+  δ (bounds ignored). It is exact for residuals linear in x and an estimate otherwise;
+  a caller may use it, with a safety factor of its own, to stop a row that cannot
+  matter (:mod:`reconcile.diagnosis.fault_fit`, ``bounded``).
 """
 
 from __future__ import annotations
@@ -88,7 +93,8 @@ class Minimum:
 
     ``x`` (M, P), ``residual`` (M, N), ``jacobian`` (M, N, P) and ``aux`` at the last
     accepted point; ``cost`` = ‖residual‖²; ``status`` one of :data:`CONVERGED`,
-    :data:`STALLED`, :data:`ITERATION_LIMIT`; ``decrement`` the last Newton decrement.
+    :data:`STALLED`, :data:`ITERATION_LIMIT`; ``decrement`` the last Newton decrement;
+    ``floor`` the last Gauss–Newton floor (module docstring; −inf before the first).
     """
 
     x: np.ndarray

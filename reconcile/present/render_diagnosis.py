@@ -108,6 +108,24 @@ def _fault_value_short(h: Hypothesis) -> str:
     return text
 
 
+def _ranked(diag: Diagnosis) -> list[Hypothesis]:
+    """The hypotheses the table ranks: those the readings can tell from ``none``; the
+    others (``testable`` false) are listed apart (:func:`_untestable_line`)."""
+    return [h for h in diag.hypotheses if h.testable]
+
+
+def _untestable_line(diag: Diagnosis) -> str | None:
+    """One line naming the hypotheses the readings cannot see, apart from the ranking."""
+    apart = [h for h in diag.hypotheses if not h.testable]
+    if not apart:
+        return None
+    total = sum(h.probability for h in apart)
+    names = ", ".join(markup(h.label) for h in apart[:8]) + (" ..." if len(apart) > 8 else "")
+    return (f"[{STYLE_DIM}]Not testable with these readings (they cannot tell these from "
+            f"none, so each keeps about its prior share, together {_probability(total)}; "
+            f"nothing is to be reworked on their account): {names}[/]")
+
+
 def hypothesis_table(diag: Diagnosis, rows: int = 10, *, wide: bool = False) -> Table:
     """The ranked hypotheses: fault, probability, χ², fitted value; with ``wide`` also the
     fitted board in its own column (compact: :func:`hypothesis_details` below the table)."""
@@ -122,7 +140,8 @@ def hypothesis_table(diag: Diagnosis, rows: int = 10, *, wide: bool = False) -> 
     t.add_column("fitted value" + ("" if wide else " (nearest)"))
     if wide:
         t.add_column("the fitted board then has")
-    for i, h in enumerate(diag.hypotheses[:rows], start=1):
+    ranked = _ranked(diag)
+    for i, h in enumerate(ranked[:rows], start=1):
         style = "" if h.converged else STYLE_DIM
         chi = numbers.plain(h.chi_square, 3)
         chi = chi if h.converged else f"≥{chi}"
@@ -132,9 +151,9 @@ def hypothesis_table(diag: Diagnosis, rows: int = 10, *, wide: bool = False) -> 
         else:
             cells.append(_fault_value_short(h))
         t.add_row(*cells, style=style)
-    more = len(diag.hypotheses) - rows
+    more = len(ranked) - rows
     if more > 0:
-        rest = sum(h.probability for h in diag.hypotheses[rows:])
+        rest = sum(h.probability for h in ranked[rows:])
         t.caption = f"{more} more hypotheses, together probability {_probability(rest)}"
     return t
 
@@ -145,7 +164,7 @@ def hypothesis_details(diag: Diagnosis, rows: int = 10) -> list:
     grid = Table.grid(padding=(0, 1))
     grid.add_column(justify="right", no_wrap=True)
     grid.add_column()
-    for i, h in enumerate(diag.hypotheses[:rows], start=1):
+    for i, h in enumerate(_ranked(diag)[:rows], start=1):
         value = _fault_value(h) if h.n_faults == 1 and h.fault == "wrong-value" else ""
         lead = f"{markup(h.label)} {value}: " if value else f"{markup(h.label)}: "
         grid.add_row(f"{i}.", f"{lead}{markup(_fitted_board(h, diag.board))}")
@@ -194,8 +213,11 @@ def diagnosis_tables(diag: Diagnosis, *, rows: int = 10, checks: int = 3,
     parts.append(hypothesis_table(diag, rows, wide=wide))
     if not wide:
         parts += hypothesis_details(diag, rows)
+    apart = _untestable_line(diag)
+    if apart:
+        parts.append(apart)
     shown = [
-        h for i, h in enumerate(diag.hypotheses[:checks])
+        h for i, h in enumerate(_ranked(diag)[:checks])
         if i == 0 or h.probability >= CHECK_MIN_PROBABILITY
     ]
     if shown:
