@@ -206,16 +206,36 @@ def fit(
     session: SessionOpt = None,
     store: StoreOpt = None,
     assume: AssumeOpt = None,
+    profile: Annotated[
+        Optional[list[str]],  # noqa: UP045
+        typer.Option("--profile", metavar="PARAM",
+                     help="Profile-likelihood interval of PARAM (a key such as RE or Q1.IS) "
+                          "at 1 and 2 sigma; repeatable."),
+    ] = None,
+    sample: Annotated[
+        int,
+        typer.Option("--sample", metavar="N",
+                     help="Draw the posterior with N steps of an ensemble sampler (emcee, "
+                          "the [sample] extra): median and 16/84 % and 2.5/97.5 %."),
+    ] = 0,
+    seed: Annotated[int, typer.Option(help="Seed of --sample.")] = 0,
 ) -> None:
     """Fit the built board to its readings: values, uncertainties, error budget, next reading."""
-    from reconcile.pipeline.analyses import fit_step
+    from reconcile.pipeline.analyses import fit_step, with_intervals
     from reconcile.pipeline.inputs import AnalysisOptions
 
     if plot is not None:
         check_plot_path(plot)
+    check_count(sample, "--sample")
+    check_count(seed, "--seed")
+    if sample:
+        from reconcile.inference.sampling import check_sampling
+
+        check_sampling(sample)
     options = AnalysisOptions(model_meter=meter_model, assume=tuple(assume or ()))
     inputs = _gather(board, readings, session, store, "fit", options)
-    outcome = fit_step(inputs)
+    outcome = with_intervals(fit_step(inputs), profile=tuple(profile or ()), sample=sample,
+                             seed=seed)
     result = outcome.to_dict()
     recorded = inputs.record("fit", result)
     if plot is not None:

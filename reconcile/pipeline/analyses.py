@@ -46,6 +46,7 @@ __all__ = [
     "run_fit",
     "trim_step",
     "wants_trim",
+    "with_intervals",
 ]
 
 Progress = Callable[[int, int], None] | None
@@ -63,6 +64,10 @@ class FitOutcome:
     assumed: Assumption | None = None
     source: str = "drawn"
     probability: float | None = None
+    profile: dict = field(default_factory=dict)
+    """``fit --profile``: key → :class:`reconcile.inference.profile.ProfileInterval`."""
+    posterior: Any = None
+    """``fit --sample``: a :class:`reconcile.inference.sampling.PosteriorSample`."""
 
     def assumed_dict(self) -> dict | None:
         """The hypothesis fitted under, as the JSON names it (None: the board as drawn)."""
@@ -81,6 +86,10 @@ class FitOutcome:
         # the version-1 name, kept readable for one version (README: migration notes)
         out["miss_budget"] = out["error_budget"]
         out["next_readings"] = [s.to_dict() for s in self.suggestions]
+        if self.profile:
+            out["profile"] = {k: v.to_dict() for k, v in self.profile.items()}
+        if self.posterior is not None:
+            out["posterior"] = self.posterior.to_dict()
         return out
 
     def __repr__(self) -> str:
@@ -142,6 +151,26 @@ def run_fit(
                        fixed=assumed.fixed, widened=assumed.widened)
     return FitOutcome(result, error_budget(result), suggest_next(result), assumed, source,
                       probability)
+
+
+def with_intervals(outcome: FitOutcome, *, profile: tuple[str, ...] = (), sample: int = 0,
+                   seed: int = 0) -> FitOutcome:
+    """The fit outcome with profile-likelihood intervals of ``profile``'s keys and, when
+    ``sample`` > 0, that many steps of posterior sampling (``fit --profile``,
+    ``fit --sample``; :mod:`reconcile.inference.profile`,
+    :mod:`reconcile.inference.sampling`)."""
+    import dataclasses
+
+    extra: dict[str, Any] = {}
+    if profile:
+        from reconcile.inference.profile import profile_intervals
+
+        extra["profile"] = profile_intervals(outcome.fit, tuple(dict.fromkeys(profile)))
+    if sample:
+        from reconcile.inference.sampling import sample_posterior
+
+        extra["posterior"] = sample_posterior(outcome.fit, sample, seed=seed)
+    return dataclasses.replace(outcome, **extra) if extra else outcome
 
 
 def _need_readings(inputs: AnalysisInputs, step: str) -> list[Reading]:

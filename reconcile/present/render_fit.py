@@ -184,3 +184,47 @@ def print_fit(
         console.print(budget_table(budget))
     if suggestions:
         console.print(next_table(suggestions))
+
+
+def _end(value: float | None, unit: str) -> str:
+    return "open" if value is None else _fmt(value, unit)
+
+
+def profile_table(profile: dict) -> Table:
+    """``fit --profile``: each parameter's profile-likelihood interval, own unit."""
+    t = Table(title="Profile-likelihood intervals", title_justify="left")
+    for col in ("parameter", "fitted", "1σ low", "1σ high", "2σ low", "2σ high"):
+        t.add_column(col, justify="left" if col == "parameter" else "right")
+    for key, p in profile.items():
+        t.add_row(markup(key), _fmt(p.value, p.unit), _end(p.sigma1[0], p.unit),
+                  _end(p.sigma1[1], p.unit), _end(p.sigma2[0], p.unit), _end(p.sigma2[1], p.unit))
+    return t
+
+
+def posterior_table(posterior) -> Table:
+    """``fit --sample``: posterior median and quantiles per parameter, own unit."""
+    t = Table(title=f"Posterior draws ({posterior.steps} steps × {posterior.walkers} walkers, "
+                    f"first {posterior.burn} discarded)", title_justify="left")
+    for col in ("parameter", "2.5 %", "16 %", "median", "84 %", "97.5 %"):
+        t.add_column(col, justify="left" if col == "parameter" else "right")
+    for key, q in posterior.quantiles.items():
+        u = q["unit"]
+        t.add_row(markup(key), _fmt(q["p2_5"], u), _fmt(q["p16"], u), _fmt(q["median"], u),
+                  _fmt(q["p84"], u), _fmt(q["p97_5"], u))
+    return t
+
+
+def print_intervals(profile: dict, posterior, console: Console) -> None:
+    """The profile intervals and posterior draws a fit was asked for, with their notes."""
+    if profile:
+        console.print(profile_table(profile))
+        for key, p in profile.items():
+            for note in p.notes:
+                console.print(f"[{WARN}]{markup(key)}: {markup(note)}[/]")
+    if posterior is not None:
+        console.print(posterior_table(posterior))
+        tau = posterior.autocorrelation_steps
+        console.print(f"acceptance fraction {posterior.acceptance_fraction:.2f}, "
+                      f"autocorrelation time {'unknown' if tau is None else f'{tau:.0f}'} steps")
+        for w in posterior.warnings:
+            console.print(f"[{WARN}]warning: {markup(w)}[/]")

@@ -129,14 +129,16 @@ def brief(obj: Any) -> str:
 def _print_fit_outcome(obj, console: Console | None) -> None:
     from reconcile.present.console import make_console
     from reconcile.present.escape import markup
-    from reconcile.present.render_fit import print_fit
+    from reconcile.present.render_fit import print_fit, print_intervals
 
+    console = console or make_console()
     assumed = obj.assumed_dict()
     if assumed is not None:
-        (console or make_console()).print(
+        console.print(
             f"[bold]Fitted as built under {markup(assumed['hypothesis'])}[/] "
             f"({assumed['source']}): the error budget and next readings follow it.")
     print_fit(obj.fit, obj.budget, obj.suggestions, console)
+    print_intervals(obj.profile, obj.posterior, console)
 
 
 def _print_fit(obj, console: Console | None) -> None:
