@@ -72,3 +72,37 @@ def test_a_headroom_reason_carries_its_numbers():
     ref = m.group(1)
     assert _number(m.group(2), "volts") == pytest.approx(abs(result.baseline.vce[ref]), rel=2e-3)
     assert _number(m.group(3), "volts") == pytest.approx(20.0)
+
+
+def test_chunking_changes_nothing_self_consistency(preamp, monkeypatch):
+    # Self-consistency: the same search and yields in engine calls of 100 boards (the
+    # search split into many calls, each option's yield over several) as in one call
+    from reconcile.engine import compile_board
+    from reconcile.trim import search, yields
+
+    def run():
+        return trim(preamp, None, samples=1200, top=3, max_changes=1,
+                    rng=np.random.default_rng(5)).to_dict()
+
+    whole = run()
+    assert whole["evaluated"] > 200  # the search is split too
+    monkeypatch.setattr(search, "THROUGHPUT_ROWS", 100)
+    monkeypatch.setattr(yields, "THROUGHPUT_ROWS", 100)
+    assert search.boards_per_call(compile_board(preamp)) == 100
+    _same(run(), whole)  # a batch's Newton runs until its last board converges: round-off
+
+
+def _same(a, b, path="result"):
+    """Equal structure and text, numbers to 1e-9 relative."""
+    if isinstance(a, dict):
+        assert isinstance(b, dict) and a.keys() == b.keys(), path
+        for k in a:
+            _same(a[k], b[k], f"{path}.{k}")
+    elif isinstance(a, list):
+        assert isinstance(b, list) and len(a) == len(b), path
+        for i, (x, y) in enumerate(zip(a, b)):
+            _same(x, y, f"{path}[{i}]")
+    elif isinstance(a, float) and not isinstance(b, bool):
+        assert a == pytest.approx(b, rel=1e-9, abs=1e-12, nan_ok=True), path
+    else:
+        assert a == b, path

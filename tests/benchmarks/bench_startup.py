@@ -49,9 +49,19 @@ _PEAK_LAUNCHER = (
 )
 
 
+def _user_env() -> dict[str, str]:
+    """The environment with bytecode writing allowed, as an installed package has it
+    (pip compiles a wheel's modules). ``PYTHONDONTWRITEBYTECODE`` counts as set when it
+    is any non-empty string, "0" included, so it is removed, not set to "0": with it,
+    every module changed since its last ``.pyc`` is compiled again in every timed run."""
+    env = dict(os.environ)
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
+    return env
+
+
 def _time_process(argv: list[str]) -> float:
     """Wall seconds of one child process."""
-    env = dict(os.environ, PYTHONDONTWRITEBYTECODE="0")
+    env = _user_env()
     start = time.perf_counter()
     done = subprocess.run(argv, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=ROOT,
                           env=env, check=False)
@@ -64,7 +74,7 @@ def _time_process(argv: list[str]) -> float:
 def _peak_mib(argv: list[str]) -> float:
     """Peak RSS in MiB of one run of ``argv``, through the small launcher."""
     done = subprocess.run([sys.executable, "-c", _PEAK_LAUNCHER, *argv], capture_output=True,
-                          text=True, cwd=ROOT, check=True)
+                          text=True, cwd=ROOT, env=_user_env(), check=True)
     code, kib = done.stdout.split()
     if int(code) != 0:
         raise RuntimeError(f"{' '.join(argv)} exited {code}")
