@@ -1,13 +1,13 @@
 """The least rework that restores the spec: which resistor to swap or tack a part across.
 
-Starting point: the built board as fitted (:class:`~reconcile.fitting.FitResult`, its MAP
+Starting point: the built board as fitted (:class:`~reconcile.inference.fitting.FitResult`, its MAP
 vector and linearised posterior covariance), or in design mode (no readings) the board
 as drawn with the prior as "posterior" (each part anywhere in its tolerance). Candidates
 are standard values of each trimmable resistor's E-series, as a replacement or as a part
-added in parallel (:mod:`reconcile.trim_candidates`); single changes and combinations of
+added in parallel (:mod:`reconcile.trim.candidates`); single changes and combinations of
 up to ``max_changes`` parts are solved exactly by the batched engine and ranked
-(:mod:`reconcile.trim_search`, :mod:`reconcile.trim_combos`); the best ``top`` get a
-Monte Carlo yield (:mod:`reconcile.trim_yield`).
+(:mod:`reconcile.trim.search`, :mod:`reconcile.trim.combos`); the best ``top`` get a
+Monte Carlo yield (:mod:`reconcile.trim.yields`).
 
 Ranking, best first:
 
@@ -160,7 +160,7 @@ class TrimResult:
     """Ranked rework options (best first) against the board as it is.
 
     ``search`` says how combinations were found (``exhaustive``: every one solved;
-    ``pruned``: screened first, see :mod:`reconcile.trim_combos`); ``evaluated`` counts
+    ``pruned``: screened first, see :mod:`reconcile.trim.combos`); ``evaluated`` counts
     the candidate boards the engine solved, ``screened`` those only predicted.
     ``searched_changes`` is the largest number of changed parts searched: the search stops
     early, with the same result, once ``top`` options meet spec with margin using fewer
@@ -266,7 +266,7 @@ def trim(
     board
         The board as drawn (spec, tolerances, ratings, ``trim`` flags).
     fit
-        What was built (:func:`reconcile.fitting.fit_board`); None for design mode.
+        What was built (:func:`reconcile.inference.fitting.fit_board`); None for design mode.
     max_changes
         Most parts changed by one option (default 2).
     series_for
@@ -281,8 +281,8 @@ def trim(
     rng
         Random generator or seed for the Monte Carlo (default seed 0).
     window, k_sigma, merit_band, exhaustive_limit, pair_budget, beam, variants_per_rework
-        Search settings (see :mod:`reconcile.trim_candidates`, :mod:`reconcile.trim_search`,
-        :mod:`reconcile.trim_combos`).
+        Search settings (see :mod:`reconcile.trim.candidates`, :mod:`reconcile.trim.search`,
+        :mod:`reconcile.trim.combos`).
 
     Raises
     ------

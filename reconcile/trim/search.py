@@ -1,6 +1,6 @@
 """Score rework candidates with the engine: many boards per call, then rank them.
 
-A candidate is a tuple of single changes (see :mod:`reconcile.trim_candidates`) on
+A candidate is a tuple of single changes (see :mod:`reconcile.trim.candidates`) on
 distinct resistors, applied to the built board (the fitted MAP board, or the drawn board
 in design mode). Each is solved exactly by the batched engine and scored:
 
@@ -23,7 +23,7 @@ in design mode). Each is solved exactly by the batched engine and scored:
   With ``min_vce`` the same first-order spread of each transistor's |VCE| decides whether
   the headroom holds ``k_sigma`` deviations down (``headroom_robust``).
 
-Which combinations are solved is :mod:`reconcile.trim_combos`' job; ranking them is
+Which combinations are solved is :mod:`reconcile.trim.combos`' job; ranking them is
 :func:`merit` and :func:`rank_order` here.
 """
 
