@@ -19,6 +19,7 @@ from cli_support import run_cli
 from fit_support import SAMPLE_DATA
 from scipy import stats
 
+from reconcile.data.readings import readings_to_csv
 from reconcile.errors import InputError
 from reconcile.inference.fitting import fit_board
 from reconcile.inference.profile import profile_intervals
@@ -30,15 +31,20 @@ BOARD = str(SAMPLE_DATA / "line_receiver_cb.toml")
 READINGS = str(SAMPLE_DATA / "line_receiver_built.csv")
 
 
+DIVIDER = (title("invented divider for interval tests")
+           + supply("VCC", "vcc", 10, tolerance="1%")
+           + resistor("R1", "vcc", "m", "10k", tolerance="5%")
+           + resistor("R2", "m", "gnd", "4k7", tolerance="5%"))
+
+
+def _divider_readings():
+    board = board_from_text(DIVIDER)
+    return board, simulate_readings(board, full_plan(board), rng=np.random.default_rng(1))
+
+
 @pytest.fixture(scope="module")
 def divider_fit():
-    text = (title("invented divider for interval tests")
-            + supply("VCC", "vcc", 10, tolerance="1%")
-            + resistor("R1", "vcc", "m", "10k", tolerance="5%")
-            + resistor("R2", "m", "gnd", "4k7", tolerance="5%"))
-    board = board_from_text(text)
-    readings = simulate_readings(board, full_plan(board), rng=np.random.default_rng(1))
-    return fit_board(board, readings)
+    return fit_board(*_divider_readings())
 
 
 def test_profile_interval_matches_the_gaussian_one_on_a_linear_board(divider_fit):
@@ -83,12 +89,19 @@ def test_sampling_refuses_beyond_its_limit_and_without_emcee(monkeypatch):
         check_sampling(10)
 
 
-def test_cli_profile_json_and_unknown_parameter():
-    out = run_cli("fit", BOARD, READINGS, "--profile", "RE", "--json")
+def test_cli_profile_json(tmp_path):
+    _, readings = _divider_readings()
+    (tmp_path / "divider.toml").write_text(DIVIDER, encoding="utf-8")
+    (tmp_path / "readings.csv").write_text(readings_to_csv(readings), encoding="utf-8")
+    out = run_cli("fit", str(tmp_path / "divider.toml"), str(tmp_path / "readings.csv"),
+                  "--profile", "R1", "--json")
     assert out.exit_code == 0, out.stderr
-    data = json.loads(out.stdout)
-    re_ = data["profile"]["RE"]
-    assert re_["unit"] == "ohm" and re_["sigma1"][0] < re_["value"] < re_["sigma1"][1]
+    r1 = json.loads(out.stdout)["profile"]["R1"]
+    assert r1["unit"] == "ohm" and r1["sigma1"][0] < r1["value"] < r1["sigma1"][1]
+    assert r1["sigma2"][0] < r1["sigma1"][0] and r1["sigma1"][1] < r1["sigma2"][1]
+
+
+def test_cli_refuses_an_unknown_profile_parameter_and_too_many_steps():
     bad = run_cli("fit", BOARD, READINGS, "--profile", "Q1.Is")
     assert bad.exit_code == 2 and bad.crash is None
     line = bad.stderr.strip()
