@@ -288,11 +288,17 @@ class _Story:
         self.summary["hidden_board_after_rework"]["repair"] = (
             None if trimmed.repair is None else [s["text"] for s in trimmed.repair.steps])
         self.summary["hidden_board_after_rework"]["changes"] = [c.to_dict() for c in changes]
-        values = ", ".join(f"{ch.quantity} {ch.value:.4g}" for ch in checks)
-        done = [s["text"] for s in trimmed.repair.steps] if trimmed.repair is not None else []
-        done += [f"{c.ref} {c.action} {c.ohms:.4g} ohm" for c in changes]
+        from reconcile.present import numbers
+        from reconcile.present.render_trim import describe_change
+
+        values = ", ".join(
+            f"{ch.quantity} {numbers.si(ch.value, numbers.quantity_symbol(ch.quantity), 4)}"
+            for ch in checks)
+        done = ([markup(s["text"]) for s in trimmed.repair.steps]
+                if trimmed.repair is not None else [])
+        done += [describe_change(c) for c in changes]  # escaped there
         self.console.print(
-            f"The hidden board after {markup('; '.join(done))} (power off first): {values} — "
+            f"The hidden board after {'; '.join(done)} (power off first): {values} — "
             + ("[green]meets its spec[/]" if verdict else "[red]still misses[/]")
             + " (the demo can check this; on a real bench, measure again after rework)."
         )
