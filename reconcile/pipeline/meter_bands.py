@@ -41,8 +41,9 @@ def _bands_by_name(board: Board, out: list[str]) -> dict[str, tuple[FrequencyBan
     bands: dict[str, tuple[FrequencyBand, str]] = {}
     for path in board.bench.instruments:
         if not os.path.isfile(path):
-            out.append(f"{board.source_path}: [bench.instruments] instrument file {path} not "
-                       "found: readings naming it are not checked against its band")
+            where = board.source_path or "board"
+            out.append(f"{where}: [bench.instruments] instrument file {path} not found: "
+                       "readings naming it are not checked against its band")
             continue
         profile = load_profile(path)
         if profile.ac_band is None:
