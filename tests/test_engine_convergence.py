@@ -319,6 +319,25 @@ def test_source_stepping_path_self_consistency(name: str, monkeypatch) -> None:
     np.testing.assert_allclose(got.node_v, want.node_v, rtol=1e-9, atol=1e-12)
 
 
+def test_source_stepping_a_whole_batch_self_consistency(monkeypatch) -> None:
+    # Self-consistency check: every sample of a spread batch forced through source
+    # stepping (warm and cold Newton cut to one iteration, gmin stepping made to fail),
+    # each on its own ramp within one batched Newton call per round, lands on the
+    # batch's unpatched solution; reference: KCL at every node.
+    board, circuit, p = _monte_carlo(64, seed=5)
+    want = solve_batch(circuit, p)
+    source = _Spy(dc._source_stepping)
+    monkeypatch.setattr(dc, "WARM_ITERATIONS", 1)
+    monkeypatch.setattr(dc, "COLD_ITERATIONS", 1)
+    monkeypatch.setattr(dc, "_gmin_stepping", _Spy(dc._gmin_stepping, rewrite=_all_failed))
+    monkeypatch.setattr(dc, "_source_stepping", source)
+    got = solve_batch(circuit, p)
+    # two calls: the seed sample a large batch is started from, then the whole batch
+    assert source.calls == 2 and bool(np.all(got.converged))
+    assert float(np.max(kcl_error(board, got))) <= KCL_TOL_A
+    np.testing.assert_allclose(got.node_v, want.node_v, rtol=1e-9, atol=1e-12)
+
+
 def test_warm_start_failures_fall_back_to_cold_start_self_consistency(monkeypatch) -> None:
     # Self-consistency check: each sample solved alone; reference: KCL. With one warm
     # iteration allowed, a spread

@@ -245,15 +245,19 @@ class _Batch:
         a, rhs = self._system(idx, vbe, vbc, gmin=gmin, scale=scale)
         return self.dense(a), rhs
 
-    def _system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float = 1.0):
-        """As :meth:`linear_system`, the matrix in storage form (M, n_store)."""
+    def _system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float | np.ndarray = 1.0):
+        """As :meth:`linear_system`, the matrix in storage form (M, n_store); ``scale``
+        multiplies the supplies, one factor for all samples or one per sample (M,)."""
         a = self.g_ff[idx]
-        rhs = self.rhs_fixed[idx] * scale if scale != 1.0 else self.rhs_fixed[idx]
+        per_sample = np.ndim(scale) == 1
+        s = np.asarray(scale, dtype=float)[:, None] if per_sample else scale
+        rhs = self.rhs_fixed[idx] * s if per_sample or scale != 1.0 else self.rhs_fixed[idx]
         if gmin:
             a[:, self.diag_store] += gmin
         if len(self.circuit.transistor_refs):
             st = self.device_state(idx, vbe, vbc)
-            self._stamp_devices(a, rhs, st, vbe, vbc, self.vq_fixed[idx] * scale)
+            vq = self.vq_fixed[idx] * (s[:, :, None] if per_sample else s)
+            self._stamp_devices(a, rhs, st, vbe, vbc, vq)
         return a, rhs
 
     def dense(self, a: np.ndarray) -> np.ndarray:
@@ -308,19 +312,22 @@ class _Batch:
         vj: np.ndarray,
         *,
         gmin: float = 0.0,
-        scale: float = 1.0,
+        scale: float | np.ndarray = 1.0,
         max_iter: int = COLD_ITERATIONS,
         fresh: bool = False,
     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Iterate samples ``idx`` from full node voltages ``v`` and junction voltages
-        ``vj``; returns the new v, vj, a converged mask and iteration counts."""
+        ``vj``; returns the new v, vj, a converged mask and iteration counts. ``scale``
+        multiplies the supplies: one factor, or one per sample of ``idx``."""
         free = self.free
         v = v.copy()
         vj = vj.copy()
         m = len(idx)
         converged = np.zeros(m, dtype=bool)
         iters = np.zeros(m, dtype=np.int64)
-        v[:, self.fixed] = self.v_fixed[idx] * scale
+        per_sample = np.ndim(scale) == 1
+        scale_of = np.asarray(scale, dtype=float) if per_sample else None
+        v[:, self.fixed] = self.v_fixed[idx] * (scale_of[:, None] if per_sample else scale)
         active = np.arange(m)
         has_q = vj.shape[1] > 0
         first = True
@@ -342,7 +349,8 @@ class _Batch:
                 vbe_l = vbc_l = np.zeros((len(active), 0))
                 limited = np.zeros(len(active), dtype=bool)
             first = False
-            a, rhs = self._system(sub, vbe_l, vbc_l, gmin=gmin, scale=scale)
+            a, rhs = self._system(sub, vbe_l, vbc_l, gmin=gmin,
+                                  scale=scale_of[active] if per_sample else scale)
             v_free = self.solve_stored(a, rhs)
             old = va[:, free]
             ok_num = np.all(np.isfinite(v_free), axis=1)
@@ -475,31 +483,29 @@ def _gmin_stepping(batch: _Batch, idx: np.ndarray):
 
 
 def _source_stepping(batch: _Batch, idx: np.ndarray):
-    """Ramp the supplies from zero, one sample at a time with an adaptive step."""
+    """Ramp the supplies from zero with an adaptive step, each sample on its own ramp
+    (its own scale and step), all of them batched in one Newton call per round."""
     m = len(idx)
     size = batch.circuit.n_nodes + 1
     n_t = len(batch.circuit.transistor_refs)
-    v_out = np.zeros((m, size))
-    vj_out = np.zeros((m, n_t, 2))
-    ok = np.zeros(m, dtype=bool)
+    v = np.zeros((m, size))
+    vj = np.zeros((m, n_t, 2))
+    scale = np.zeros(m)
+    step = np.full(m, 0.1)
     total = np.zeros(m, dtype=np.int64)
-    for k in range(m):
-        one = idx[k : k + 1]
-        v, vj = np.zeros((1, size)), np.zeros((1, n_t, 2))
-        scale, step = 0.0, 0.1
-        while scale < 1.0 and step > 1e-4:
-            trial = min(1.0, scale + step)
-            vv, jj, conv, it = batch.newton(one, v, vj, scale=trial, max_iter=STEP_ITERATIONS)
-            total[k] += it[0]
-            if conv[0]:
-                v, vj, scale = vv, jj, trial
-                step = min(step * 2.0, 0.25)
-            else:
-                step /= 4.0
-        if scale >= 1.0:
-            ok[k] = True
-            v_out[k], vj_out[k] = v[0], vj[0]
-    return ok, v_out, vj_out, total
+    live = np.arange(m)
+    while len(live):
+        trial = np.minimum(1.0, scale[live] + step[live])
+        vv, jj, conv, it = batch.newton(idx[live], v[live], vj[live], scale=trial,
+                                        max_iter=STEP_ITERATIONS)
+        total[live] += it
+        good, bad = live[conv], live[~conv]
+        v[good], vj[good], scale[good] = vv[conv], jj[conv], trial[conv]
+        step[good] = np.minimum(step[good] * 2.0, 0.25)
+        step[bad] /= 4.0
+        live = live[(scale[live] < 1.0) & (step[live] > 1e-4)]
+    ok = scale >= 1.0
+    return ok, v, vj, total
 
 
 def jacobian_at(circuit: Circuit, params: Parameters, state: DCState) -> np.ndarray:
