@@ -107,9 +107,11 @@ def test_no_other_module_writes_a_default_uncertainty_rule() -> None:
     assert not copies, f"default uncertainty rules outside model/quantities.py: {copies}"
 
 
-def test_a_typed_gains_default_is_what_derive_gain_gives_with_its_defaults() -> None:
-    # Issue: a gain row typed with no uncertainty and `derive gain` with no --u-… must
-    # agree; both are first-order propagation of two AC voltages (JCGM 100:2008 eq. 10).
+def test_self_consistency_a_typed_gains_default_is_what_derive_gain_gives() -> None:
+    # Self-consistency check (two of our functions, which must agree): a gain row typed
+    # with no uncertainty and `derive gain` with no --u-…; both are first-order
+    # propagation of two AC voltages (JCGM 100:2008 eq. 10). The hand-worked value is
+    # checked in tests/test_cli.py and tests/test_readings.py.
     from reconcile.data.derived_readings import gain_from_ac
     from reconcile.data.readings import Reading, default_uncertainty
     from reconcile.model.quantities import AC_VOLTAGE_DEFAULT, GAIN_INPUT_VRMS
@@ -131,7 +133,7 @@ def test_a_dead_stages_gain_keeps_the_ac_meters_noise_floor() -> None:
     assert default_uncertainty(Reading.from_si("gain", "", 0.0)) == pytest.approx(1e-3)
 
 
-def test_the_gain_default_assumes_the_capture_runs_amplitude() -> None:
+def test_self_consistency_the_gain_default_assumes_the_capture_runs_amplitude() -> None:
     from reconcile.capture.run import DEFAULT_SIGNAL_VRMS
     from reconcile.model.quantities import GAIN_INPUT_VRMS
 
