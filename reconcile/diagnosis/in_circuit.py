@@ -45,9 +45,9 @@ def ohms_between(board: Board, a: str, b: str) -> float:
     index = {n: i for i, n in enumerate(nodes)}
     g = np.zeros((len(nodes), len(nodes)))
     for n1, n2, siemens in edges:
-        i, j = index.get(n1), index.get(n2)
-        if n1 not in component:
+        if n1 not in component:  # then n2 is not either: the edge joins them
             continue
+        i, j = index.get(n1), index.get(n2)  # None for b, the grounded node
         if i is not None:
             g[i, i] += siemens
         if j is not None:
