@@ -71,17 +71,22 @@ class Truth:
         return solve_batch(circuit, nominal_parameters(circuit, temperature=self.temperature_k))
 
 
-def draw_truth(board: Board, rng: np.random.Generator) -> Truth:
+def draw_truth(board: Board, rng: np.random.Generator, *, spread: str = "prior") -> Truth:
     """A board as it might really be built from ``board``'s drawing.
 
     Resistors, capacitors and supplies are drawn uniformly within their tolerance (the
-    rectangular reading of a tolerance limit, JCGM 100:2008 4.3.7); each transistor's
-    device values (IS, beta, and VA or n where they have a range) from the prior of
-    :mod:`reconcile.priors` (Gaussian in the internal, logarithmic, coordinate); the
-    junction temperature from ambient plus a Gaussian of ``TEMPERATURE_SD_K``. Each
-    transistor gets a device table of its own.
+    rectangular reading of a tolerance limit, JCGM 100:2008 4.3.7). With ``spread =
+    "prior"`` each transistor's device values (IS, beta, and VA or n where they have a
+    range) come from the prior of :mod:`reconcile.inference.priors` (Gaussian in the
+    internal, logarithmic, coordinate) and the junction temperature from ambient plus a
+    Gaussian of ``TEMPERATURE_SD_K``. With ``spread = "datasheet"`` the truths come from
+    outside the fit's own prior: every device value with a range is drawn uniformly
+    (log-uniformly for IS, beta and VA) across the whole datasheet range, edges as likely
+    as the middle, and the temperature uniformly within ±2·``TEMPERATURE_SD_K`` of
+    ambient. Each transistor gets a device table of its own.
     """
-    space = build_space(compile_board(board))
+    if spread not in ("prior", "datasheet"):
+        raise ValueError(f"spread must be 'prior' or 'datasheet', not {spread!r}")
     truth = board
     for ref, r in board.resistors.items():
         truth = truth.with_resistor_ohms(ref, r.ohms * (1.0 + r.tolerance * rng.uniform(-1, 1)))
@@ -91,23 +96,52 @@ def draw_truth(board: Board, rng: np.random.Generator) -> Truth:
     for s in board.supplies.values():
         volts = s.volts * (1.0 + s.tolerance * rng.uniform(-1, 1))
         truth = truth.replace_part(dataclasses.replace(s, volts=volts))
+    draw = _device_from_prior(board) if spread == "prior" else _device_from_datasheet
     devices = dict(truth.devices)
     transistors = dict(truth.transistors)
     for ref, q in board.transistors.items():
         device = board.device_of(ref)
-        drawn = {}
-        for key in DEVICE_KEYS:
-            full = f"{ref}.{key}"
-            if full in space.keys:
-                fp = space.parameters[space.index(full)]
-                value = float(fp.to_external(rng.normal(fp.prior_mean, fp.prior_sd)))
-                drawn[key] = DeviceParam(value)
+        drawn = {key: DeviceParam(value) for key, value in draw(ref, device, rng).items()}
         name = f"truth-{ref}"
         devices[name] = dataclasses.replace(device, name=name, **drawn)
         transistors[ref] = dataclasses.replace(q, device=name)
     truth = dataclasses.replace(truth, devices=devices, transistors=transistors)
-    temperature = board.temperature + TEMPERATURE_SD_K * rng.standard_normal()
+    if spread == "prior":
+        temperature = board.temperature + TEMPERATURE_SD_K * rng.standard_normal()
+    else:
+        temperature = board.temperature + TEMPERATURE_SD_K * rng.uniform(-2.0, 2.0)
     return Truth(truth, float(temperature))
+
+
+def _device_from_prior(board: Board):
+    """Device values drawn from the fit's own prior (the free parameters of ``board``)."""
+    space = build_space(compile_board(board))
+
+    def draw(ref: str, device, rng: np.random.Generator) -> dict[str, float]:
+        out = {}
+        for key in DEVICE_KEYS:
+            full = f"{ref}.{key}"
+            if full in space.keys:
+                fp = space.parameters[space.index(full)]
+                out[key] = float(fp.to_external(rng.normal(fp.prior_mean, fp.prior_sd)))
+        return out
+
+    return draw
+
+
+def _device_from_datasheet(ref: str, device, rng: np.random.Generator) -> dict[str, float]:
+    """Device values drawn uniformly across each datasheet range (log-uniformly where the
+    fit works in logarithms: IS, beta, VA); values without a range stay as typed."""
+    out = {}
+    for key in DEVICE_KEYS:
+        p = getattr(device, key)
+        if not p.has_range or not np.isfinite(p.value):
+            continue
+        if key == "n":
+            out[key] = float(rng.uniform(p.low, p.high))
+        else:
+            out[key] = float(np.exp(rng.uniform(np.log(p.low), np.log(p.high))))
+    return out
 
 
 def quantity_gradient(fit: FitResult, quantity: str) -> tuple[float, np.ndarray]:

@@ -1,17 +1,26 @@
 """Recovery of synthetic boards: does the fit find what was really built, and are its
 standard errors honest?
 
-For each of two invented sample boards, 100 "true" boards are drawn inside the drawing's
-tolerances (resistors, capacitors and supplies uniform within tolerance; device IS and
-beta from the log-normal prior of :mod:`reconcile.priors`; junction temperature ambient
-± 3 K), read with the engine through the measurement model (meter attached) plus seeded
-Gaussian noise of each reading's default standard uncertainty, and fitted.
+For each of two invented sample boards, 150 "true" boards are drawn inside the drawing's
+tolerances (resistors, capacitors and supplies uniform within tolerance), read with the
+engine through the measurement model (meter attached) plus seeded Gaussian noise of each
+reading's default standard uncertainty, and fitted. Their devices and temperature come
+two ways (``fit_support.draw_truth``):
+
+* 50 per board from the fit's own prior (device IS and beta log-normal as in
+  :mod:`reconcile.inference.priors`, junction temperature ambient plus a Gaussian);
+* 100 per board from outside it: IS and beta log-uniform across the whole datasheet
+  range, its edges as likely as its middle, and the temperature uniform within ±2 sd of
+  ambient. A Bayesian interval is calibrated by construction when the truths come from
+  its prior; these 200 boards check that the intervals stay honest when they do not.
 
 Checks, each against a named outside reference:
 
 * coverage of the 2-sigma intervals of every parameter the readings inform
   (``informed_by == "readings"``), pooled over parameters and boards, against the
-  binomial bound below;
+  binomial bound below (truths from the prior), and within 0.95 ± 0.03 on the 200
+  boards drawn outside it (the tolerance is the requirement's; about 3.5 binomial
+  standard deviations at these 900-odd intervals, common practice);
 * the fitted gain against the true board's gain: the median relative error under 0.5 %
   over all boards (the issue's requirement), and the errors consistent with the fit's
   own propagated gain uncertainty by a chi-square test.
@@ -30,7 +39,7 @@ from scipy import stats
 from reconcile.inference.fitting import fit_board
 from reconcile.inference.simulate import full_plan
 
-# every test shares the module's fixture of 200 fits (about 9 s, more on a loaded machine)
+# every test shares the module's fixture of 300 fits (about 25 s of CPU on this machine)
 pytestmark = pytest.mark.slow
 
 #: (sample board, readings added to :func:`full_plan`)
@@ -38,12 +47,15 @@ CASES = (
     ("line_receiver_cb", (("resistance", "RE"),)),
     ("preamp_ce", ()),
 )
-BOARDS_PER_CASE = 100
+#: boards per sample board, by where their devices and temperature are drawn from
+BOARDS_PER_SPREAD = {"prior": 50, "datasheet": 100}
 SEED = 20240603
 
 #: Nominal coverage the bound is built around. A Gaussian ±2σ interval covers 95.45 %;
 #: the issue states 95 %, which leaves that 0.45 % as extra margin.
 COVERAGE = 0.95
+#: The requirement's band for the truths drawn outside the prior: 0.95 ± 0.03.
+OUTSIDE_BAND = 0.03
 #: Reject when the pooled coverage is more than this many binomial standard deviations
 #: below COVERAGE.
 BINOMIAL_SIGMAS = 3.0
@@ -58,6 +70,7 @@ def binomial_lower_bound(p: float, n: int, k: float = BINOMIAL_SIGMAS) -> float:
 @dataclass(frozen=True)
 class Recovery:
     case: str
+    spread: str  # "prior" or "datasheet": where the truth's devices were drawn from
     z_internal: tuple[float, ...]  # (fit − truth)/sd in internal coordinates, informed
     z_external: tuple[float, ...]  # (value − truth)/stderr as reported, informed
     gain_error: float  # (fitted − true)/true
@@ -65,10 +78,10 @@ class Recovery:
     success: bool
 
 
-def _recover(case: str, extra: tuple, rng: np.random.Generator) -> Recovery:
+def _recover(case: str, spread: str, extra: tuple, rng: np.random.Generator) -> Recovery:
     board = sample_board(case)
     plan = full_plan(board) + list(extra)
-    truth = draw_truth(board, rng)
+    truth = draw_truth(board, rng, spread=spread)
     readings = truth.read(plan, rng)
     fit = fit_board(board, readings)
     x_true = truth.internal(fit.space)
@@ -85,6 +98,7 @@ def _recover(case: str, extra: tuple, rng: np.random.Generator) -> Recovery:
     gain_fit, g = quantity_gradient(fit, "gain")
     return Recovery(
         case=case,
+        spread=spread,
         z_internal=tuple(z_int),
         z_external=tuple(z_ext),
         gain_error=(gain_fit - gain_true) / gain_true,
@@ -97,9 +111,16 @@ def _recover(case: str, extra: tuple, rng: np.random.Generator) -> Recovery:
 def recoveries() -> list[Recovery]:
     out = []
     for i, (case, extra) in enumerate(CASES):
-        rng = np.random.default_rng([SEED, i])
-        out += [_recover(case, extra, rng) for _ in range(BOARDS_PER_CASE)]
+        for j, (spread, n) in enumerate(BOARDS_PER_SPREAD.items()):
+            rng = np.random.default_rng([SEED, i, j])
+            out += [_recover(case, spread, extra, rng) for _ in range(n)]
     return out
+
+
+def _pooled(recoveries: list[Recovery], spread: str, *, external: bool) -> np.ndarray:
+    """|z| of every informed interval of the boards drawn with ``spread``, pooled."""
+    rs = [r for r in recoveries if r.spread == spread]
+    return np.abs(np.concatenate([r.z_external if external else r.z_internal for r in rs]))
 
 
 def test_every_synthetic_fit_converges(recoveries: list[Recovery]) -> None:
@@ -115,24 +136,43 @@ def test_two_sigma_coverage_meets_binomial_bound(recoveries: list[Recovery]) -> 
     approximation. With n intervals, reject if coverage < 0.95 − 3·sqrt(0.95·0.05/n).
     The intervals of one board are correlated, so the true spread of the pooled
     coverage is somewhat wider than binomial; the 3-sigma bound and the 0.45 % between
-    95 % and the Gaussian 95.45 % absorb that.
+    95 % and the Gaussian 95.45 % absorb that. Truths drawn from the fit's own prior.
     """
-    z = np.abs(np.concatenate([r.z_internal for r in recoveries]))
+    z = _pooled(recoveries, "prior", external=False)
     n = z.size
     coverage = float(np.mean(z <= 2.0))
     bound = binomial_lower_bound(COVERAGE, n)
-    assert n >= 600, f"only {n} informed intervals"
+    assert n >= 400, f"only {n} informed intervals"
     assert coverage >= bound, f"coverage {coverage:.4f} over {n} intervals < bound {bound:.4f}"
 
 
 def test_reported_two_sigma_intervals_meet_binomial_bound(recoveries: list[Recovery]) -> None:
     """The same check on the intervals as reported (value ± 2·stderr, external units):
     what a user of ``fit --json`` reads. Reference: binomial bound as above."""
-    z = np.abs(np.concatenate([r.z_external for r in recoveries]))
+    z = _pooled(recoveries, "prior", external=True)
     n = z.size
     coverage = float(np.mean(z <= 2.0))
     bound = binomial_lower_bound(COVERAGE, n)
     assert coverage >= bound, f"coverage {coverage:.4f} over {n} intervals < bound {bound:.4f}"
+
+
+@pytest.mark.parametrize("external", [False, True], ids=["internal", "reported"])
+def test_two_sigma_coverage_with_truths_outside_the_prior(
+    recoveries: list[Recovery], external: bool
+) -> None:
+    """The 200 boards whose devices are drawn across their whole datasheet range and
+    whose temperature is drawn uniformly (not from the fit's prior): the pooled coverage
+    of the ±2σ intervals of every parameter informed by readings lies within 0.95 ±
+    0.03, neither too narrow nor too wide. Reference: a Gaussian ±2σ interval covers
+    95.45 %; the binomial sd of the pooled fraction at these n is about 0.007 (normal
+    approximation, as above), and the band also absorbs the correlation of one board's
+    intervals. Internal coordinates and as reported."""
+    boards = sum(r.spread == "datasheet" for r in recoveries)
+    z = _pooled(recoveries, "datasheet", external=external)
+    coverage = float(np.mean(z <= 2.0))
+    assert boards >= 200 and z.size >= 800, f"{boards} boards, {z.size} intervals"
+    assert abs(coverage - COVERAGE) <= OUTSIDE_BAND, (
+        f"coverage {coverage:.4f} over {z.size} intervals outside {COVERAGE} ± {OUTSIDE_BAND}")
 
 
 def test_median_gain_error_under_half_percent(recoveries: list[Recovery]) -> None:
