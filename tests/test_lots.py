@@ -139,7 +139,11 @@ def test_jig_batched_fit_agrees_with_fit_board_loop_self_consistency(jig, jig_lo
             # DECREMENT_TOL of χ², so a gap of at most sqrt(DECREMENT_TOL) standard errors.
             assert abs(value - est.value) <= math.sqrt(DECREMENT_TOL) * stderr
             assert stderr == pytest.approx(est.stderr, rel=1e-2)
-        assert batched.chi_square[i] == pytest.approx(one.objective, abs=DECREMENT_TOL)
+        assert batched.objective[i] == pytest.approx(one.objective, abs=DECREMENT_TOL)
+        # the verdict's statistics follow the board fit's convention (readings' χ² alone,
+        # on the readings less the parameters they inform)
+        assert batched.chi_square[i] == pytest.approx(one.chi_square, abs=2 * DECREMENT_TOL)
+        assert batched.dof[i] == pytest.approx(one.dof, rel=1e-2)
 
 
 def test_jig_sample_files_find_the_odd_device():

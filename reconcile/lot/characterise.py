@@ -21,7 +21,8 @@ flag                   meaning
 ``high-beta``          beta above ``spec_high``
 ``not-converged``      the jig fit did not converge (left out of everything)
 ``at-bound``           a jig fit parameter at its hard bound
-``poor-fit``           the fit's χ² upper-tail probability below 0.001
+``poor-fit``           the fit's χ² upper-tail probability below 0.001 (jig: the readings' χ² on
+                       the readings less the parameters they inform, as a board's fit)
 ``series-resistance``  sweep bends down at high current (IS, n from the corrected fit)
 ``curvature``          sweep bends up at high current (e.g. self-heating)
 ``beta-varies``        IC/IB not constant over the sweep within its uncertainties
@@ -147,7 +148,7 @@ class DeviceEstimate:
     vbe_stderr_v: float
     flags: tuple[str, ...]
     chi_square: float
-    dof: int
+    dof: float  # readings less the parameters they inform (jig); points less parameters (sweep)
     points: int
     polarity: Polarity = "npn"
     bin: str | None = None
@@ -338,7 +339,7 @@ def _device_estimates(names, beta, ln_beta_se, ln_is, n, cov, n_fitted, vbe, vbe
             beta=float(beta[i]), beta_stderr=float(beta[i] * ln_beta_se[i]),
             n=float(n[i]), n_stderr=float(n_se[i]) if n_fitted else None,
             vbe_v=float(vbe[i]), vbe_stderr_v=float(vbe_se[i]), flags=tuple(flags[i]),
-            chi_square=float(chi[i]), dof=int(dof[i]), points=int(points[i]),
+            chi_square=float(chi[i]), dof=float(dof[i]), points=int(points[i]),
             polarity="npn" if polarity[i] > 0 else "pnp", bin=labels[i],
             robust_z={k: float(scores[k][i]) for k in scores},
             r_series_ohm=optional(r_value, i), r_series_stderr=optional(r_se, i),
@@ -404,7 +405,7 @@ def characterise_jig(
     return _assemble(
         mode="jig", names=fit.devices, beta=beta, ln_beta_se=ln_beta_se, ln_is=ln_is, n=n,
         cov=cov, n_fitted=j_n is not None, flags=flags, chi=fit.chi_square, dof=fit.dof,
-        points=fit.dof, polarity=np.full(d, sign),
+        points=np.isfinite(fit.measured).sum(axis=1), polarity=np.full(d, sign),
         temperature_k=fit.temperature_k, options=o, xti=dev.is_temp_exponent,
         bandgap_ev=dev.bandgap, table_extra=extra, fit_info=info,
     )

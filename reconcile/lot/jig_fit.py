@@ -56,9 +56,11 @@ class JigFit:
 
     ``x`` (D, P) internal coordinates in the order of ``keys``; ``covariance``
     (D, P, P); ``measured``, ``predicted``, ``uncertainty`` (D, R) over
-    ``observations`` (NaN where a device lacks that reading); ``chi_square`` readings
-    plus prior rows, ``dof`` the number of readings (the convention of
-    :mod:`reconcile.fitting`).
+    ``observations`` (NaN where a device lacks that reading); ``objective`` the whole
+    minimised sum (readings plus prior rows); ``chi_square`` the readings' χ² alone on
+    ``dof``, the device's readings less the parameters they inform, and ``p_value`` its
+    upper tail, with ``prior_penalty`` beside it: the verdict convention of
+    :mod:`reconcile.inference.readings_verdict`, the same as a board's fit.
     """
 
     board: Board
@@ -72,9 +74,11 @@ class JigFit:
     measured: np.ndarray
     predicted: np.ndarray
     uncertainty: np.ndarray
+    objective: np.ndarray
     chi_square: np.ndarray
     dof: np.ndarray
     p_value: np.ndarray
+    prior_penalty: np.ndarray
     converged: np.ndarray
     at_bound: np.ndarray
     iterations: np.ndarray
@@ -236,11 +240,7 @@ def fit_jig(
         cov = np.linalg.inv(a)
     except np.linalg.LinAlgError:
         cov = np.linalg.pinv(a)
-    n_obs = np.isfinite(meas).sum(axis=1)
-    chi = cost
-    from reconcile.inference.chi_square import upper_tail
-
-    p_value = np.where(n_obs > 0, upper_tail(chi, np.maximum(n_obs, 1)), 1.0)
+    verdicts = _verdicts(f, meas, inv_u, x, space, cov)
     span = hi - lo
     at_bound = np.any((x - lo < 1e-6 * span) | (hi - x < 1e-6 * span), axis=1)
     predicted = np.where(np.isfinite(meas), f, np.nan)
@@ -248,10 +248,27 @@ def fit_jig(
         board=jig, socket=ref, devices=tuple(per_device), space=space,
         keys=tuple(space.keys), observations=tuple((q, at) for q, at, _ in obs_keys),
         x=x, covariance=cov, measured=meas, predicted=predicted, uncertainty=unc,
-        chi_square=chi, dof=n_obs, p_value=p_value, converged=converged,
+        objective=cost, chi_square=np.array([v.chi_square for v in verdicts]),
+        dof=np.array([v.dof for v in verdicts]), p_value=np.array([v.p_value for v in verdicts]),
+        prior_penalty=np.array([v.prior_penalty for v in verdicts]), converged=converged,
         at_bound=at_bound, iterations=iterations, engine_calls=calls[0],
         temperature_k=float(jig.temperature),
     )
+
+
+def _verdicts(f, meas, inv_u, x, space: ParameterSpace, cov) -> list:
+    """Each device's :class:`~reconcile.inference.readings_verdict.ReadingsChiSquare` from
+    the normalised residuals of the readings it has."""
+    from reconcile.inference.readings_verdict import readings_chi_square
+
+    out = []
+    for i in range(meas.shape[0]):
+        has = np.isfinite(meas[i])
+        with np.errstate(invalid="ignore"):
+            z = (f[i, has] - meas[i, has]) * inv_u[i, has]
+        z = np.where(np.isfinite(z), z, np.inf)
+        out.append(readings_chi_square(z, x[i], space.prior_mean, space.prior_sd, cov[i]))
+    return out
 
 
 def _weighted_model(model: MeasurementModel, inv_u: np.ndarray, target: np.ndarray, calls):
