@@ -117,6 +117,23 @@ def test_a_current_through_a_resistor_carries_the_ammeters_burden():
     assert ideal == pytest.approx(1e-3, rel=1e-12)
 
 
+def test_a_held_short_keeps_the_ammeter_in_series():
+    # Ohm's law for resistors in series: with R2 shorted (held at SHORT_OHMS by the
+    # hypothesis) the current read through it is V/(R1 + SHORT_OHMS + r), the ammeter's
+    # burden r still in the loop; a hypothesis that holds R2 must not drop the meter.
+    from reconcile.data.readings import Reading
+    from reconcile.diagnosis.fault_fit import fit_faults
+    from reconcile.diagnosis.faults import SHORT_OHMS, single_faults
+    from reconcile.inference.measure import MeasurementModel, observations_from
+
+    board = board_from_text(_series_pair(table("bench", ammeter_ohms="50")), path="pair.toml")
+    obs = observations_from([Reading.from_si("current", "R2", 9.5e-3)], board)
+    short = [f for f in single_faults(board) if f.ref == "R2" and f.kind == "short"]
+    (fit,) = fit_faults(short, obs, MeasurementModel(board, obs).space)
+    expected = fit.value("VCC") / (fit.value("R1") + SHORT_OHMS + 50.0)
+    assert fit.predicted[0] == pytest.approx(expected, rel=1e-9)
+
+
 def test_the_documented_default_burden_applies_when_the_file_is_silent():
     from reconcile.data.readings import Reading
     from reconcile.model.board import DEFAULT_AMMETER_OHMS

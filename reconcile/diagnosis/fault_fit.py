@@ -229,6 +229,7 @@ class _Group:
         """``params`` with each row's hypothesis applied (its engine overrides), ``owner``
         (one per row of ``params``) saying whose row it is."""
         changed: dict[str, np.ndarray] = {}
+        within = np.arange(len(owner)) % self.model.group  # each row's place in its group
         for i in np.unique(owner):
             ovr = self.faults[int(i)].overrides
             if not ovr:
@@ -239,6 +240,11 @@ class _Group:
                 if arr is None:
                     arr = changed[name] = getattr(params, name).copy()
                 arr[rows, col] = value
+                if name == "resistor_ohms":
+                    # the ammeter stays in series with the held resistor on its own board
+                    meter = self.model.ammeter_row(self.model.circuit.resistor_refs[col])
+                    if meter is not None:
+                        arr[rows & (within == meter), col] += self.model.board.bench.ammeter_ohms
         return replace(params, **changed) if changed else params
 
     def _solve(self, x: np.ndarray, owner: np.ndarray, small_signal: bool):

@@ -213,6 +213,15 @@ class MeasurementModel:
             p = p.with_values(resistor_ohms=ohms)
         return p
 
+    def ammeter_row(self, ref: str) -> int | None:
+        """The row within each group of the board with the ammeter in series with
+        resistor ``ref`` (its burden ``bench.ammeter_ohms`` added to that resistor), or
+        None when no current is read through ``ref``. A caller that overrides the
+        resistor's value (a fault hypothesis) adds the burden back on this row."""
+        if ref not in self.ammeters:
+            return None
+        return 1 + len(self.probes) + self.ammeters.index(ref)
+
     def _signal_rows(self, m: int) -> np.ndarray:
         """Rows of M groups whose small-signal results a prediction reads: the board
         alone of each group, or none without small-signal readings."""
