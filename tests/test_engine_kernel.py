@@ -83,6 +83,21 @@ def test_compiled_and_numpy_paths_agree_self_consistency(board: str, monkeypatch
     assert float(np.max(a.kcl_residual)) < 1e-12
 
 
+def test_compiled_small_signal_matches_mpmath_corners(monkeypatch) -> None:
+    # Reference: the common-emitter stage written out independently in mpmath at 30
+    # digits (tests/test_sweep_reference.py, _mp_ce_corners): mid-band gain and both
+    # -3 dB corners to 1e-6 relative, every AC solve on the compiled two-port kernel.
+    from test_sweep_reference import test_ce_stage_corners_match_an_independent_mpmath_solve
+
+    monkeypatch.setenv(kernel.ENV, "numba-all")
+    calls = []
+    compiled = kernel.two_port
+    monkeypatch.setattr(kernel, "two_port", lambda *a: calls.append(1) or compiled(*a))
+    test_ce_stage_corners_match_an_independent_mpmath_solve({"rs": 10e3, "c_mu": 8e-12,
+                                                             "ft": 80e6})
+    assert calls
+
+
 @pytest.mark.parametrize("dtype", [float, complex])
 def test_dense_solver_matches_lapack(dtype, monkeypatch) -> None:
     # Reference: numpy.linalg.solve (LAPACK gesv) on random well-conditioned systems,

@@ -78,6 +78,35 @@ def _lu_solve(a, b):
 
 
 @numba.njit(**_OPTS)
+def _lu_solve_diagonal(a, b):
+    """As :func:`_lu_solve` with the pivots taken on the diagonal, no row exchanges (the
+    numpy path's fixed-pattern order, :mod:`reconcile.engine.sparse`); False at a pivot
+    that is zero or not finite (the caller then solves with :func:`_lu_solve`)."""
+    n = a.shape[0]
+    k = b.shape[1]
+    for col in range(n):
+        piv = a[col, col]
+        if not abs(piv) > 0.0 or not math.isfinite(abs(piv)):
+            return False
+        inv = 1.0 / piv
+        for r in range(col + 1, n):
+            f = a[r, col] * inv
+            if f != 0.0:
+                for j in range(col + 1, n):
+                    a[r, j] -= f * a[col, j]
+                for j in range(k):
+                    b[r, j] -= f * b[col, j]
+    for col in range(n - 1, -1, -1):
+        inv = 1.0 / a[col, col]
+        for j in range(k):
+            s = b[col, j]
+            for c in range(col + 1, n):
+                s -= a[col, c] * b[c, j]
+            b[col, j] = s * inv
+    return True
+
+
+@numba.njit(**_OPTS)
 def solve_stack(a, b, out):
     """out[i] = solve(a[i], b[i]) for a stack (M, n, n) and (M, n, k); NaN where singular.
     ``a`` and ``b`` are left unchanged."""
@@ -92,22 +121,41 @@ def solve_stack(a, b, out):
 
 
 @numba.njit(**_OPTS)
-def _terminal_voltage(v, vq, row, s, t, k):
-    return v[row] if row >= 0 else vq[s, t, k]
+def _fixed_part(s, g_ff, store_of, rhs_fixed, a0, b0):
+    """Board ``s``'s branch conductances as a dense matrix ``a0`` (nF×nF) and the
+    current the fixed nodes push into each free node, ``b0`` (nF): the part of the
+    Newton system that does not change between iterations."""
+    nf = a0.shape[0]
+    for i in range(nf):
+        b0[i] = rhs_fixed[s, i]
+        for j in range(nf):
+            k = store_of[i * nf + j]
+            a0[i, j] = g_ff[s, k] if k >= 0 else 0.0
 
 
 @numba.njit(**_OPTS)
-def _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta,
-              beta_r, va, a, b):
+def _junctions(s, v, vq, q_free, pol, vbe, vbc):
+    """npn-frame vbe, vbc of every transistor of board ``s`` at free voltages ``v``."""
+    for t in range(q_free.shape[0]):
+        r = q_free[t, 0]
+        vc = v[r] if r >= 0 else vq[s, t, 0]
+        r = q_free[t, 1]
+        vb = v[r] if r >= 0 else vq[s, t, 1]
+        r = q_free[t, 2]
+        ve = v[r] if r >= 0 else vq[s, t, 2]
+        vbe[t] = pol[t] * (vb - ve)
+        vbc[t] = pol[t] * (vb - vc)
+
+
+@numba.njit(**_OPTS)
+def _assemble(s, vbe, vbc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, a, b):
     """The Newton system of board ``s`` with every transistor linearised at (vbe, vbc):
-    the same stamp as ``dc._Batch.linear_system``. ``store_of[i*nF + j]`` is where entry
-    (i, j) is stored in ``g_ff`` (-1: a structural zero)."""
+    the same stamp as ``dc._Batch.linear_system``, on top of the fixed part (a0, b0)."""
     nf = a.shape[0]
     for i in range(nf):
-        b[i, 0] = rhs_fixed[s, i]
+        b[i, 0] = b0[i]
         for j in range(nf):
-            k = store_of[i * nf + j]
-            a[i, j] = g_ff[s, k] if k >= 0 else 0.0
+            a[i, j] = a0[i, j]
     for t in range(q_free.shape[0]):
         ic, ib, c_be, c_bc, b_be, b_bc = junction_point(
             vbe[t], vbc[t], is_t[s, t], beta[s, t], beta_r[s, t], va[s, t], n_vt[s, t]
@@ -115,23 +163,29 @@ def _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, 
         p = pol[t]
         ic0 = p * (ic - c_be * vbe[t] - c_bc * vbc[t])
         ib0 = p * (ib - b_be * vbe[t] - b_bc * vbc[t])
-        # d(current into c, b, e)/d(V of c, b, e); the polarity sign cancels
-        rc = (-c_bc, c_be + c_bc, -c_be)
-        rb = (-b_bc, b_be + b_bc, -b_be)
-        re_ = (c_bc + b_bc, -(c_be + c_bc + b_be + b_bc), c_be + b_be)
-        i0 = (ic0, ib0, -(ic0 + ib0))
         for k in range(3):
             pk = q_free[t, k]
             if pk < 0:
                 continue
-            row = rc if k == 0 else (rb if k == 1 else re_)
-            b[pk, 0] -= i0[k]
+            # d(current into terminal k)/d(V of c, b, e); the polarity sign cancels
+            if k == 0:
+                d0, d1, d2, i0 = -c_bc, c_be + c_bc, -c_be, ic0
+            elif k == 1:
+                d0, d1, d2, i0 = -b_bc, b_be + b_bc, -b_be, ib0
+            else:
+                d0 = c_bc + b_bc
+                d1 = -(c_be + c_bc + b_be + b_bc)
+                d2 = c_be + b_be
+                i0 = -(ic0 + ib0)
+            acc = b[pk, 0] - i0
             for j in range(3):
+                dj = d0 if j == 0 else (d1 if j == 1 else d2)
                 pj = q_free[t, j]
                 if pj >= 0:
-                    a[pk, pj] += row[j]
+                    a[pk, pj] += dj
                 else:
-                    b[pk, 0] -= row[j] * vq[s, t, j]
+                    acc -= dj * vq[s, t, j]
+            b[pk, 0] = acc
 
 
 @numba.njit(**_OPTS)
@@ -146,12 +200,17 @@ def newton_dc(
     m = g_ff.shape[0]
     nf = rhs_fixed.shape[1]
     nt = q_free.shape[0]
+    a0 = np.empty((nf, nf))
+    b0 = np.empty(nf)
     a = np.empty((nf, nf))
     b = np.empty((nf, 1))
     v = np.empty(nf)
     vbe = np.empty(nt)
     vbc = np.empty(nt)
+    raw_be = np.empty(nt)
+    raw_bc = np.empty(nt)
     for s in range(m):
+        _fixed_part(s, g_ff, store_of, rhs_fixed, a0, b0)
         for i in range(nf):
             v[i] = v0[s, i]
         for t in range(nt):
@@ -160,24 +219,22 @@ def newton_dc(
         converged = False
         it = 0
         while it < max_iter:
-            limited = False
+            limited = it == 0  # the first step is never the last
             if it > 0:
+                _junctions(s, v, vq, q_free, pol, raw_be, raw_bc)
                 for t in range(nt):
-                    vc = _terminal_voltage(v, vq, q_free[t, 0], s, t, 0)
-                    vb = _terminal_voltage(v, vq, q_free[t, 1], s, t, 1)
-                    ve = _terminal_voltage(v, vq, q_free[t, 2], s, t, 2)
-                    x, l1 = _limit(pol[t] * (vb - ve), vbe[t], n_vt[s, t], v_crit[s, t])
-                    y, l2 = _limit(pol[t] * (vb - vc), vbc[t], n_vt[s, t], v_crit[s, t])
+                    x, l1 = _limit(raw_be[t], vbe[t], n_vt[s, t], v_crit[s, t])
+                    y, l2 = _limit(raw_bc[t], vbc[t], n_vt[s, t], v_crit[s, t])
                     vbe[t] = x
                     vbc[t] = y
                     limited = limited or l1 or l2
-            else:
-                limited = True  # the first step is never the last
-            _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt,
-                      beta, beta_r, va, a, b)
+            _assemble(s, vbe, vbc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, a, b)
             it += 1
-            if not _lu_solve(a, b):
-                break
+            if not _lu_solve_diagonal(a, b):
+                _assemble(s, vbe, vbc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va,
+                          a, b)
+                if not _lu_solve(a, b):
+                    break
             small = True
             finite = True
             for i in range(nf):
@@ -201,14 +258,75 @@ def newton_dc(
         for t in range(nt):
             vj_out[s, t, 0] = vbe[t]
             vj_out[s, t, 1] = vbc[t]
-            vc = _terminal_voltage(v, vq, q_free[t, 0], s, t, 0)
-            vb = _terminal_voltage(v, vq, q_free[t, 1], s, t, 1)
-            ve = _terminal_voltage(v, vq, q_free[t, 2], s, t, 2)
-            vbe[t] = pol[t] * (vb - ve)
-            vbc[t] = pol[t] * (vb - vc)
-        _assemble(s, v, vbe, vbc, g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt,
-                  beta, beta_r, va, a, b)
+        _junctions(s, v, vq, q_free, pol, raw_be, raw_bc)
+        _assemble(s, raw_be, raw_bc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va,
+                  a, b)
         for i in range(nf):
             rhs_out[s, i] = b[i, 0]
             for j in range(nf):
                 jac_out[s, i, j] = a[i, j]
+
+
+@numba.njit(**_OPTS)
+def _stamp_admittance(y, a, b, value):
+    """Add the admittance ``value`` between free rows a and b (-1: AC ground)."""
+    if a >= 0:
+        y[a, a] += value
+    if b >= 0:
+        y[b, b] += value
+    if a >= 0 and b >= 0:
+        y[a, b] -= value
+        y[b, a] -= value
+
+
+@numba.njit(**_OPTS)
+def _ac_matrix(s, w, jac, cap_rows, cap_f, dev_rows, c_mu, c_pi, probe_rows, g_probe,
+               c_probe, y):
+    """Board ``s``'s complex nodal matrix at angular frequency ``w``: the DC Jacobian,
+    the capacitors, the hybrid-pi capacitances (c_mu base-collector, c_pi base-emitter)
+    and the AC probe on the signal nodes (the stamps of ``LinearModel._matrices``)."""
+    nf = y.shape[0]
+    for i in range(nf):
+        for j in range(nf):
+            y[i, j] = jac[s, i, j]
+    for k in range(cap_rows.shape[0]):
+        _stamp_admittance(y, cap_rows[k, 0], cap_rows[k, 1], 1j * (w * cap_f[s, k]))
+    for t in range(dev_rows.shape[0]):
+        _stamp_admittance(y, dev_rows[t, 1], dev_rows[t, 0], 1j * (w * c_mu[s, t]))
+        _stamp_admittance(y, dev_rows[t, 1], dev_rows[t, 2], 1j * (w * c_pi[s, t]))
+    for r in probe_rows:
+        y[r, r] += g_probe[s] + 1j * (w * c_probe[s])
+
+
+@numba.njit(**_OPTS)
+def two_port(board_of, omega, jac, cap_rows, cap_f, dev_rows, c_mu, c_pi, probe_rows,
+             g_probe, c_probe, i_in, i_out, z_out):
+    """The open-circuit two-port impedances of each row (board ``board_of[r]`` at angular
+    frequency ``omega[r]``): 1 A into the input row, then into the output row, one complex
+    solve with both right-hand sides; ``z_out[r]`` = (z_ii, z_oi, z_io, z_oo), NaN where
+    the matrix is singular."""
+    nf = jac.shape[1]
+    y = np.empty((nf, nf), dtype=np.complex128)
+    rhs = np.empty((nf, 2), dtype=np.complex128)
+    for r in range(board_of.shape[0]):
+        s = board_of[r]
+        solved = False
+        for attempt in range(2):
+            _ac_matrix(s, omega[r], jac, cap_rows, cap_f, dev_rows, c_mu, c_pi, probe_rows,
+                       g_probe, c_probe, y)
+            for i in range(nf):
+                rhs[i, 0] = 0.0
+                rhs[i, 1] = 0.0
+            rhs[i_in, 0] = 1.0
+            rhs[i_out, 1] = 1.0
+            solved = _lu_solve_diagonal(y, rhs) if attempt == 0 else _lu_solve(y, rhs)
+            if solved:
+                break
+        if solved:
+            z_out[r, 0] = rhs[i_in, 0]
+            z_out[r, 1] = rhs[i_out, 0]
+            z_out[r, 2] = rhs[i_in, 1]
+            z_out[r, 3] = rhs[i_out, 1]
+        else:
+            for c in range(4):
+                z_out[r, c] = np.nan

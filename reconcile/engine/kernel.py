@@ -1,22 +1,24 @@
 """The optional compiled kernel (numba, the ``[fast]`` extra) and when it is used.
 
-The numpy path is the engine; the compiled kernel is a faster way to run its warm-start
-Newton loop and its small dense solves for large batches. It uses the same stamps, the
-same junction limiting and convergence test, and the device equations compiled from
-their one copy (:func:`reconcile.engine.devices.junction_point`). Samples the warm start
-does not bring home go through the numpy path's cold start, gmin and source stepping
-as before.
+The numpy path is the engine; the compiled kernel is a faster way to run two of its
+steps for large batches, one board at a time with no numpy temporaries: the warm-start
+DC Newton loop (the same stamps, junction limiting and convergence test, the device
+equations compiled from their one copy, :func:`reconcile.engine.devices.junction_point`)
+and the small-signal two-port solve (the stamps of
+:class:`reconcile.engine.small_signal.LinearModel`, one complex solve per sample and
+frequency). Both factorise with diagonal pivots first, as the numpy path's fixed-pattern
+factorisation does, and fall back to partial pivoting where a pivot fails. Samples the
+warm start does not bring home go through the numpy path's cold start, gmin and source
+stepping as before.
 
 Whether it is used is the user's choice, through the environment variable
-``RECONCILE_KERNEL``: ``numpy`` (the default) never, ``numba`` for batches of at least
-:data:`COMPILED_FROM_BATCH` boards on boards under
+``RECONCILE_KERNEL``: ``numpy`` (the default) never, ``numba`` for engine calls of at
+least :data:`COMPILED_FROM_BATCH` boards on boards under
 :data:`reconcile.engine.sparse.SPARSE_FROM_NODES` free nodes, ``numba-all`` for every
-batch (the tests). It is not the default because it does not pay, measured side by side
-(``tests/benchmarks/bench_engine.py``): since the numpy path runs the fixed-pattern
-factorisation over the batch, its Newton loop is as fast as the compiled one
-(``solve --samples 400000`` on the sample preamp: 1.25 s either way in one process), and
-loading the compiled code costs about 0.5 s more per process. Compiled code is cached in
-the user's cache folder (``platformdirs.user_cache_dir("reconcile")/numba``).
+call (the tests). Measured side by side (``tests/benchmarks/bench_engine.py``, README's
+benchmark table) it is faster but short of the 1 000 000 boards/s that would make it
+the default; loading the compiled code costs about 0.5 s per process. Compiled code is
+cached in the user's cache folder (``platformdirs.user_cache_dir("reconcile")/numba``).
 """
 
 from __future__ import annotations
@@ -25,8 +27,13 @@ import os
 
 import numpy as np
 
-COMPILED_FROM_BATCH = 20_000
-"""With ``RECONCILE_KERNEL=numba``, the smallest batch that uses the compiled kernel."""
+COMPILED_FROM_BATCH = 4096
+"""With ``RECONCILE_KERNEL=numba``, the smallest engine call that uses the compiled kernel
+(at most :data:`reconcile.engine.budget.THROUGHPUT_ROWS`, the size ``solve --samples``
+calls the engine with). Measured side by side in one process on the sample boards, the
+compiled ``solve_batch`` is 2.3–5× faster than the numpy path from 64 boards up; below
+the threshold a call takes a few milliseconds either way, and the small calls of fits and
+diagnoses stay on the numpy path their tests and benchmarks measure."""
 ENV = "RECONCILE_KERNEL"
 
 _state: dict = {}
@@ -99,6 +106,25 @@ def newton_dc(batch, v0_free, vj0, max_iter: int, abs_tol: float, rel_tol: float
         float(abs_tol), float(rel_tol), v, vj, conv, iters, jac, rhs,
     )
     return v, vj, conv, iters, jac, rhs
+
+
+def two_port(circuit, params, jac_ff: np.ndarray, c_pi: np.ndarray, board_of: np.ndarray,
+             freq: np.ndarray) -> np.ndarray:
+    """The open-circuit two-port impedances (rows, 4): z_ii, z_oi, z_io, z_oo of board
+    ``board_of[r]`` at ``freq[r]`` Hz, one compiled complex solve per row (the stamps of
+    :class:`reconcile.engine.small_signal.LinearModel`; NaN where singular)."""
+    pos = circuit.free_position
+    probe = sorted({int(pos[circuit.input_node]), int(pos[circuit.output_node])} - {-1})
+    z = np.empty((len(board_of), 4), dtype=complex)
+    _load().two_port(
+        np.ascontiguousarray(board_of, dtype=np.int64), _f(2.0 * np.pi * freq),
+        _f(jac_ff), pos[circuit.capacitor_nodes].astype(np.int64).reshape(-1, 2),
+        _f(params.capacitor_farads), pos[circuit.transistor_nodes].astype(np.int64).reshape(-1, 3),
+        _f(params.c_mu), _f(c_pi), np.asarray(probe, dtype=np.int64),
+        _f(params.probe_ac_siemens), _f(params.probe_ac_farads),
+        int(pos[circuit.input_node]), int(pos[circuit.output_node]), z,
+    )
+    return z
 
 
 def _f(x: np.ndarray) -> np.ndarray:

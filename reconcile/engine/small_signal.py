@@ -47,8 +47,9 @@ import numpy as np
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.engine.circuit import Circuit, Parameters
 from reconcile.model import quantities
+from reconcile.engine import kernel
 from reconcile.engine.kernel import solve_small
-from reconcile.engine.sparse import factorisation_for
+from reconcile.engine.sparse import SPARSE_FROM_NODES, factorisation_for
 
 SHORT_FACTOR = 1e9
 """A capacitor taken as a short in :meth:`LinearModel.resistance_seen` is a conductance
@@ -172,18 +173,26 @@ class LinearModel:
         return SmallSignal(frequency=freq.copy(),
                            **{k: v.reshape(n, n_f) for k, v in out.items()})
 
-    def _close_two_port(self, s_idx: np.ndarray, freq: np.ndarray) -> dict[str, np.ndarray]:
-        c, p = self.circuit, self.params
+    def _two_port(self, s_idx: np.ndarray, freq: np.ndarray) -> np.ndarray:
+        """(rows, 4) open-circuit impedances z_ii, z_oi, z_io, z_oo of samples ``s_idx``
+        at ``freq``: the compiled kernel's per-board solves when it is in use (a board
+        under :data:`SPARSE_FROM_NODES` free nodes), else one batched solve."""
+        c = self.circuit
         pos = c.free_position
-        y = self._matrices(s_idx, freq)
-        rows, m = y.shape[0], y.shape[1]
+        rows, m = len(s_idx), len(c.free)
         i_in, i_out = pos[c.input_node], pos[c.output_node]
+        if m < SPARSE_FROM_NODES and min(i_in, i_out) >= 0 and kernel.use_compiled(rows):
+            return kernel.two_port(c, self.params, self.jac_ff, self.c_pi(), s_idx, freq)
+        y = self._matrices(s_idx, freq)
         rhs = np.zeros((rows, m, 2), dtype=complex)
         rhs[:, i_in, 0] = 1.0
         rhs[:, i_out, 1] = 1.0
         z = solve_small(y, rhs, factorisation_for(c, capacitors=True, n_samples=rows))
-        z_ii, z_oi = z[:, i_in, 0], z[:, i_out, 0]
-        z_io, z_oo = z[:, i_in, 1], z[:, i_out, 1]
+        return np.stack([z[:, i_in, 0], z[:, i_out, 0], z[:, i_in, 1], z[:, i_out, 1]], axis=1)
+
+    def _close_two_port(self, s_idx: np.ndarray, freq: np.ndarray) -> dict[str, np.ndarray]:
+        p = self.params
+        z_ii, z_oi, z_io, z_oo = self._two_port(s_idx, freq).T
         rl = p.load_ohms[s_idx]
         rs = p.source_ohms[s_idx]
         no_load = ~np.isfinite(rl)
