@@ -181,7 +181,7 @@ def _final_linear_system(batch: _Batch, params: Parameters, vbe_n: np.ndarray,
         if len(redo):
             jac_ff[redo], rhs[redo] = batch.linear_system(redo, vbe_n[redo], vbc_n[redo])
         return jac_ff, rhs
-    return batch.linear_system(np.arange(params.n_samples), vbe_n, vbc_n)
+    return batch.linear_system(slice(None), vbe_n, vbc_n)
 
 
 def _transistor_outputs(batch: _Batch, circuit: Circuit, params: Parameters, v: np.ndarray,

@@ -199,11 +199,16 @@ class _Batch:
             self.g_ff[:, self.diag_store[self.floating_rows]] += FLOAT_SIEMENS
         self.v_fixed = np.zeros((n, n_x))
         self.v_fixed[:, : params.supply_volts.shape[1]] = params.supply_volts
-        # rhs_fixed[p] = -Σ G[p, x]·V[x] over fixed x: one source value per (branch, x).
+        # rhs_fixed[p] = -Σ G[p, x]·V[x] over fixed x: one source value g_b·V[x] per
+        # (branch b, fixed node x) pair of the stamp, and only those (signs are ±1).
         self.rhs_fixed = np.zeros((n, n_f))
-        if self._branch_fx.pairs:
-            gv = (g[:, :, None] * self.v_fixed[:, None, :]).reshape(n, -1)
-            self._branch_fx.add_to(self.rhs_fixed, gv)
+        for t, src, sign in self._branch_fx.pairs:
+            b, x = divmod(src, n_x)
+            gv = g[:, b] * self.v_fixed[:, x]
+            if sign == 1.0:
+                self.rhs_fixed[:, t] += gv
+            else:
+                self.rhs_fixed[:, t] -= gv
         t = params.temperature[:, None]
         self.n_vt = params.n * devices.thermal_voltage(t)
         self.is_t = devices.saturation_current(params.IS, t, params.xti, params.bandgap)
@@ -248,10 +253,12 @@ class _Batch:
     def _system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float | np.ndarray = 1.0):
         """As :meth:`linear_system`, the matrix in storage form (M, n_store); ``scale``
         multiplies the supplies, one factor for all samples or one per sample (M,)."""
-        a = self.g_ff[idx]
+        a = self.g_ff[idx].copy() if isinstance(idx, slice) else self.g_ff[idx]
         per_sample = np.ndim(scale) == 1
         s = np.asarray(scale, dtype=float)[:, None] if per_sample else scale
         rhs = self.rhs_fixed[idx] * s if per_sample or scale != 1.0 else self.rhs_fixed[idx]
+        if isinstance(idx, slice) and np.may_share_memory(rhs, self.rhs_fixed):
+            rhs = rhs.copy()  # a slice is a view: the stamps below add into it
         if gmin:
             a[:, self.diag_store] += gmin
         if len(self.circuit.transistor_refs):
@@ -331,36 +338,41 @@ class _Batch:
         active = np.arange(m)
         has_q = vj.shape[1] > 0
         first = True
+        whole = bool(np.array_equal(idx, np.arange(self.n)))  # every sample, in order
         for _ in range(max_iter):
             if not len(active):
                 break
-            sub = idx[active]
-            va = v[active]
+            # while every sample is still iterating, slices instead of gathers
+            full = whole and len(active) == m
+            at = slice(None) if full else active
+            sub = at if full else idx[active]
+            va = v if full else v[active]
             if first and fresh:
-                vbe_l, vbc_l = vj[active, :, 0], vj[active, :, 1]
+                vbe_l, vbc_l = vj[at, :, 0], vj[at, :, 1]
                 limited = np.ones(len(active), dtype=bool)
             elif has_q:
                 vbe_raw, vbc_raw = self.junctions(va)
                 n_vt, v_crit = self.n_vt[sub], self.v_crit[sub]
-                vbe_l, lim_be = devices.limit_junction(vbe_raw, vj[active, :, 0], n_vt, v_crit)
-                vbc_l, lim_bc = devices.limit_junction(vbc_raw, vj[active, :, 1], n_vt, v_crit)
+                vbe_l, lim_be = devices.limit_junction(vbe_raw, vj[at, :, 0], n_vt, v_crit)
+                vbc_l, lim_bc = devices.limit_junction(vbc_raw, vj[at, :, 1], n_vt, v_crit)
                 limited = np.any(lim_be | lim_bc, axis=1)
             else:
                 vbe_l = vbc_l = np.zeros((len(active), 0))
                 limited = np.zeros(len(active), dtype=bool)
             first = False
             a, rhs = self._system(sub, vbe_l, vbc_l, gmin=gmin,
-                                  scale=scale_of[active] if per_sample else scale)
+                                  scale=scale_of[at] if per_sample else scale)
             v_free = self.solve_stored(a, rhs)
             old = va[:, free]
             ok_num = np.all(np.isfinite(v_free), axis=1)
             small = np.all(np.abs(v_free - old) <= V_ABS_TOL + V_REL_TOL * np.abs(v_free), axis=1)
-            va[:, free] = np.where(ok_num[:, None], v_free, old)
-            v[active] = va
+            va[:, free] = v_free if ok_num.all() else np.where(ok_num[:, None], v_free, old)
+            if not full:
+                v[active] = va
             if has_q:
-                vj[active, :, 0] = vbe_l
-                vj[active, :, 1] = vbc_l
-            iters[active] += 1
+                vj[at, :, 0] = vbe_l
+                vj[at, :, 1] = vbc_l
+            iters[at] += 1
             done = small & ~limited & ok_num
             converged[active[done]] = True
             active = active[~done & ok_num]

@@ -123,11 +123,11 @@ class LinearModel:
                            self.gm[index])
 
     # ------------------------------------------------------------------ solves
-    def _matrices(self, s_idx: np.ndarray, freq: np.ndarray) -> np.ndarray:
+    def _matrices(self, s_idx: np.ndarray | slice, freq: np.ndarray) -> np.ndarray:
         """Complex nodal matrices (rows, nF, nF) of samples ``s_idx`` at ``freq``."""
         c, p = self.circuit, self.params
         pos = c.free_position
-        rows, m = len(s_idx), len(c.free)
+        rows, m = len(freq), len(c.free)
         y = np.empty((rows, m, m), dtype=complex)
         y.real = self.jac_ff[s_idx]
         y.imag = 0.0
@@ -167,7 +167,8 @@ class LinearModel:
         step = rows_per_chunk(bytes_per_row(self.circuit), share=0.5)
         for sl in chunks(total, step):
             idx = np.arange(sl.start, sl.stop)
-            block = self._close_two_port(idx // n_f, flat_f[idx])
+            # one frequency per sample: the samples of the chunk are a slice (no gathers)
+            block = self._close_two_port(sl if n_f == 1 else idx // n_f, flat_f[idx])
             for name, values in block.items():
                 out[name][sl] = values
         return SmallSignal(frequency=freq.copy(),
@@ -179,10 +180,11 @@ class LinearModel:
         under :data:`SPARSE_FROM_NODES` free nodes), else one batched solve."""
         c = self.circuit
         pos = c.free_position
-        rows, m = len(s_idx), len(c.free)
+        rows, m = len(freq), len(c.free)
         i_in, i_out = pos[c.input_node], pos[c.output_node]
         if m < SPARSE_FROM_NODES and min(i_in, i_out) >= 0 and kernel.use_compiled(rows):
-            return kernel.two_port(c, self.params, self.jac_ff, self.c_pi(), s_idx, freq)
+            board_of = np.arange(self.params.n_samples)[s_idx]
+            return kernel.two_port(c, self.params, self.jac_ff, self.c_pi(), board_of, freq)
         y = self._matrices(s_idx, freq)
         rhs = np.zeros((rows, m, 2), dtype=complex)
         rhs[:, i_in, 0] = 1.0

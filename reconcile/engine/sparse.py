@@ -103,6 +103,10 @@ class SparseLU:
             )
             for k, (lower, upper) in enumerate(steps)
         ]
+        self.natural_order = bool(np.array_equal(perm, np.arange(n)))
+        """Whether the elimination runs in the caller's own node order."""
+        self.diagonal = np.array([step[0] for step in self.steps], dtype=np.intp)
+        """The slots of the pivots, in elimination order."""
 
     @property
     def fill(self) -> int:
@@ -120,17 +124,21 @@ class SparseLU:
         m = a_slots.shape[0]
         n = self.n
         vals = np.ascontiguousarray(a_slots.T)  # (slots, M)
-        a = a_slots
-        rhs = np.moveaxis(b[:, self.perm, :], 0, -1).astype(np.result_type(a, b))  # (n, k, M)
-        bad = np.zeros(m, dtype=bool)
+        dtype = np.result_type(a_slots, b)
+        natural = self.natural_order
+        # (n, k, M), contiguous over the samples: one copy, gathered only when reordered
+        rhs = np.ascontiguousarray(np.moveaxis(b if natural else b[:, self.perm, :], 0, -1),
+                                   dtype=dtype)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             for kk, lower, s_l, upper, s_u, s_lu in self.steps:
-                piv = vals[kk]
-                bad |= ~(np.abs(piv) > 0.0) | ~np.isfinite(piv)
                 if len(lower):
-                    vals[s_l] /= piv
+                    col = vals[s_l] / vals[kk]
+                    vals[s_l] = col
                     if len(upper):
-                        vals[s_lu] -= vals[s_l][:, None, :] * vals[s_u][None, :, :]
+                        vals[s_lu] -= col[:, None, :] * vals[s_u][None, :, :]
+            # a pivot is never changed after its step: check them all at once
+            piv = vals[self.diagonal]
+            bad = ~np.all((np.abs(piv) > 0.0) & np.isfinite(piv), axis=0)
             # forward substitution (unit lower triangle)
             for k, (_, lower, s_l, _, _, _) in enumerate(self.steps):
                 if len(lower):
@@ -141,8 +149,11 @@ class SparseLU:
                 if len(upper):
                     rhs[k] -= (vals[s_u][:, None, :] * rhs[upper]).sum(axis=0)
                 rhs[k] /= vals[kk]
-        out = np.empty((m, n, rhs.shape[1]), dtype=rhs.dtype)
-        out[:, self.perm, :] = np.moveaxis(rhs, -1, 0)  # back to the caller's order
+        if natural:
+            out = np.moveaxis(rhs, -1, 0)  # a view, in the caller's order
+        else:
+            out = np.empty((m, n, rhs.shape[1]), dtype=rhs.dtype)
+            out[:, self.perm, :] = np.moveaxis(rhs, -1, 0)  # back to the caller's order
         if np.any(bad):
             out[bad] = np.nan
         return out
