@@ -14,6 +14,9 @@ what sets the low corner.
   crossing inside the search range does not exist within the model (NaN; ``null`` in
   JSON): a DC-coupled board has no low corner, and a board with no capacitance on its
   signal path (no ``ft``/``c_mu``, no probe capacitance) no high corner.
+* :func:`corners_near` is the same search for boards close to known ones (trim's
+  candidates and yield draws: part values changed from a board whose corners are
+  known), in windows around the known peak and corners.
 * :func:`low_corner_shares` tells each capacitor's part in the low corner two ways:
   the short-circuit time-constant hand estimate (each capacitor alone, with the others
   shorted, contributes 1/(2π·R·C) and the estimate is their sum), and the exact share
@@ -46,6 +49,13 @@ ZOOM_STEPS = 4
 SHARE_STEP = 1e-4
 DEFAULT_POINTS = 61
 MAX_POINTS = 100_000
+NEAR_SPAN = 1.0
+"""Decades either side of a hinted peak that :func:`corners_near` searches."""
+NEAR_POINTS = 9
+NEAR_ROUNDS = 3
+NEAR_BRACKET = 0.25
+"""Decades past a hinted corner where :func:`corners_near` starts its bracket."""
+NEAR_WIDENINGS = 4
 INV_SQRT2 = 1.0 / math.sqrt(2.0)
 
 
@@ -183,6 +193,99 @@ def find_corners(linear: LinearModel) -> Corners:
         high[rows[1]] = roots[len(rows[0]):]
     return Corners(midband_gain=g_peak, midband_frequency=10.0 ** x_peak,
                    low_corner=low, high_corner=high)
+
+
+def _vertex(x: np.ndarray, g3: np.ndarray, h: float) -> np.ndarray:
+    """The vertex in log10 f of the parabola through (x − h, x, x + h), kept within ±h
+    (``x`` itself where the three points do not bend down)."""
+    g_m, g_0, g_p = g3[:, 0], g3[:, 1], g3[:, 2]
+    bend = g_m - 2.0 * g_0 + g_p
+    with np.errstate(divide="ignore", invalid="ignore"):
+        step = 0.5 * h * (g_m - g_p) / bend
+    return x + np.where((bend < 0) & np.isfinite(step), np.clip(step, -h, h), 0.0)
+
+
+def _peak_near(linear: LinearModel, x_hint: np.ndarray) -> tuple:
+    """Largest |gain| within :data:`NEAR_SPAN` decades of ``x_hint`` (log10 f): a grid
+    of :data:`NEAR_POINTS`, then :data:`NEAR_ROUNDS` parabola steps around the best point,
+    each with a step 16 times finer. Also returns where the gain still rises at the
+    grid's edge (the peak may lie outside the window)."""
+    n = len(x_hint)
+    t = np.linspace(-NEAR_SPAN, NEAR_SPAN, NEAR_POINTS)
+    x = x_hint[:, None] + t[None, :]
+    g = linear.response(10.0 ** x).gain
+    g = np.where(np.isfinite(g), g, -np.inf)
+    j = np.argmax(g, axis=1)
+    best_x, best_g = x[np.arange(n), j], g[np.arange(n), j]
+    inner = np.max(g[:, 1:-1], axis=1)
+    # still rising at the window's edge (not merely flat across it)
+    edge = ((j == 0) | (j == NEAR_POINTS - 1)) & ~(best_g <= inner * (1.0 + 1e-9))
+    h = float(t[1] - t[0])
+    for _ in range(NEAR_ROUNDS):
+        x3 = best_x[:, None] + h * np.array([-1.0, 0.0, 1.0])[None, :]
+        xv = _vertex(best_x, linear.response(10.0 ** x3).gain, h)
+        gv = _gain_at(linear, xv)
+        better = np.isfinite(gv) & (gv > best_g)
+        best_x, best_g = np.where(better, xv, best_x), np.where(better, gv, best_g)
+        h /= 16.0
+    return best_x, best_g, edge
+
+
+def _root_near(linear, x_hint, x_peak, target, side: int) -> np.ndarray:
+    """The −3 dB crossing on one side of the peak (side −1: below it, +1: above it),
+    bracketed between the peak and a point past ``x_hint`` (widened up to
+    :data:`NEAR_WIDENINGS` times); NaN where no bracket was found."""
+    w = NEAR_BRACKET
+    far = x_hint + side * w
+    f_far = _gain_at(linear, far) - target
+    for _ in range(NEAR_WIDENINGS):
+        open_ = ~(f_far < 0.0)
+        if not np.any(open_):
+            break
+        w *= 2.0
+        far = np.where(open_, x_hint + side * w, far)
+        f_far = np.where(open_, _gain_at(linear, far) - target, f_far)
+    out = np.full(len(x_hint), np.nan)
+    ok = f_far < 0.0
+    if np.any(ok):
+        sub = linear.take(np.flatnonzero(ok))
+        f_peak = _gain_at(sub, x_peak[ok]) - target[ok]
+        out[ok] = _illinois(sub, far[ok], x_peak[ok], f_far[ok], f_peak, target[ok])
+    return out
+
+
+def corners_near(linear: LinearModel, hint: Corners) -> Corners:
+    """:func:`find_corners` for boards close to known ones (``hint``, one row per sample:
+    e.g. a board before a small change of part values), at a fraction of its cost.
+
+    The peak is searched within :data:`NEAR_SPAN` decades of the hinted peak, each corner
+    root-found (the same Illinois iteration, to :data:`ROOT_TOL_LOG`) in a bracket from
+    the peak to just past the hinted corner. A corner the hint lacks (NaN) is taken to be
+    missing here too: a change of values does not change which capacitors exist, so it
+    keeps a DC-coupled board DC-coupled and a board without capacitance on its signal
+    path without a high corner. Samples whose peak or corner falls outside these windows
+    are solved by :func:`find_corners` in full.
+    """
+    n = linear.params.n_samples
+    x_peak, g_peak, edge = _peak_near(linear, np.log10(hint.midband_frequency))
+    target = g_peak * INV_SQRT2
+    corners = [np.full(n, np.nan), np.full(n, np.nan)]
+    redo = edge | ~np.isfinite(g_peak)
+    for k, (hz, side) in enumerate(((hint.low_corner, -1), (hint.high_corner, 1))):
+        has = np.isfinite(hz) & ~redo
+        if np.any(has):
+            idx = np.flatnonzero(has)
+            root = _root_near(linear.take(idx), np.log10(hz[idx]), x_peak[idx],
+                              target[idx], side)
+            corners[k][idx] = 10.0 ** root
+            redo[idx[~np.isfinite(root)]] = True
+    out = Corners(g_peak, 10.0 ** x_peak, corners[0], corners[1])
+    if np.any(redo):
+        idx = np.flatnonzero(redo)
+        full = find_corners(linear.take(idx))
+        for name in ("midband_gain", "midband_frequency", "low_corner", "high_corner"):
+            getattr(out, name)[idx] = getattr(full, name)
+    return out
 
 
 # ------------------------------------------------------------------ shares
