@@ -264,22 +264,19 @@ class _Story:
     def _check_rework(self, design, truth, trimmed) -> None:
         """Apply the repair (when the trim follows a hypothesis), then the best option when
         the repaired board still needs one, to the hidden board; say whether it meets spec."""
-        import dataclasses
-
-        from reconcile.engine.solution import check_spec, solve
+        from reconcile.engine.solution import check_corners, check_spec, solve
         from reconcile.pipeline.repair import apply_repair
         from reconcile.present.escape import markup
+        from reconcile.trim.apply import apply_changes
 
         reworked = truth if trimmed.repair is None else apply_repair(truth, trimmed.repair)
         best = trimmed.result.best
         changes = best.changes if best is not None and trimmed.result.needed else ()
-        for c in changes:
-            built = reworked.resistors[c.ref].ohms
-            ohms = c.ohms if c.action == "replace" else built * c.ohms / (built + c.ohms)
-            reworked = reworked.replace_part(
-                dataclasses.replace(reworked.resistors[c.ref], ohms=ohms))
-        after = solve(reworked)
+        after = solve(apply_changes(reworked, changes))
         checks = check_spec(design, after.small_signal or {})
+        if design.spec.low_corner_max is not None or design.spec.high_corner_min is not None:
+            corners = after.corners
+            checks += check_corners(design, corners.low_corner[0], corners.high_corner[0])
         verdict = all(ch.met for ch in checks)
         self.summary["hidden_board_after_rework"] = {
             "small_signal": after.small_signal,

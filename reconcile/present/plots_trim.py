@@ -40,7 +40,7 @@ def plot_trim(result: TrimResult, path: str | Path, *, bins: int = 60) -> Path:
     fig = Figure(figsize=(5.5 * len(shown), 4.2))
     axes = fig.subplots(1, len(shown), squeeze=False)
     label_after = "after: " + plot_text("; ".join(
-        f"{c.ref} {'→' if c.action == 'replace' else '∥'} {numbers.si(c.ohms, 'Ω', 3)}"
+        f"{c.ref} {'→' if c.action == 'replace' else '∥'} {numbers.si(c.value, c.unit, 3)}"
         for c in best.changes
     ))
     for ax, (name, label, unit) in zip(axes[0], shown, strict=True):

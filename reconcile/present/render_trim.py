@@ -17,7 +17,12 @@ STYLE_WARN = "yellow"
 STYLE_DIM = "dim"
 
 
+CORNER_UNIT = "Hz"
+
+
 def _unit(quantity: str) -> str:
+    if quantity in ("low_corner", "high_corner"):
+        return CORNER_UNIT
     return numbers.quantity_symbol(quantity)
 
 
@@ -34,12 +39,13 @@ def _value(quantity: str, x: float | None) -> str:
 
 def describe_change(change: Change, *, compact: bool = False) -> str:
     """``replace RC with 931 Ω (E96)`` or ``RC ∥ 12.4 kΩ (E96) → 940 Ω``; compact (the
-    series said once below the table): ``RC := 931 Ω``, ``RC ∥ 12.4 kΩ → 940 Ω``."""
-    new = numbers.si(change.ohms, "Ω", 3)
+    series said once below the table): ``RC := 931 Ω``, ``RC ∥ 12.4 kΩ → 940 Ω``. A
+    capacitor the same in farads (``C2 ∥ 22 µF → 32 µF``: capacitances in parallel add)."""
+    new = numbers.si(change.value, change.unit, 3)
     ref = markup(change.ref)
     if change.action == "replace":
         return f"{ref} := {new}" if compact else f"replace {ref} with {new} ({change.series})"
-    combined = numbers.si(change.combined_ohms, "Ω", 3 if compact else 4)
+    combined = numbers.si(change.combined, change.unit, 3 if compact else 4)
     if compact:
         return f"{ref} ∥ {new} → {combined}"
     return f"{ref} ∥ {new} ({change.series}) → {combined}"
@@ -70,8 +76,7 @@ def trim_table(result: TrimResult, *, wide: bool = False,
     for q in quantities:
         head = q.replace("_", " ") if wide else _short(q)
         if wide and q in result.spec:
-            s = result.spec[q]
-            head += f"\n{_value(q, s['low'])} … {_value(q, s['high'])}"
+            head += "\n" + _band(q, result.spec[q]).removeprefix(_short(q)).strip()
         table.add_column(head, justify="right", no_wrap=not wide)
     table.add_column("margin\n(worst case)" if wide else "margin", justify="right",
                      no_wrap=not wide)
@@ -101,13 +106,20 @@ def trim_table(result: TrimResult, *, wide: bool = False,
         changes = "\n".join(describe_change(c, compact=not wide) for c in option.changes)
         row(str(i), option, changes + why(option))
     if not wide:
-        bands = "; ".join(
-            f"{_short(q)} {_value(q, result.spec[q]['low'])} … {_value(q, result.spec[q]['high'])}"
-            for q in quantities if q in result.spec)
+        bands = "; ".join(_band(q, result.spec[q]) for q in quantities if q in result.spec)
         series = sorted({c.series for o in result.options for c in o.changes})
         table.caption = (f"spec: {bands}" if bands else "") + (
             f"; new parts from {', '.join(series)}" if series else "") + "; --wide: full table"
     return table
+
+
+def _band(quantity: str, limits: dict) -> str:
+    """``gain 9.5 … 10.5``, or for a one-sided limit (a corner) ``low corner ≤ 20 Hz``."""
+    if limits["low"] is None:
+        return f"{_short(quantity)} ≤ {_value(quantity, limits['high'])}"
+    if limits["high"] is None:
+        return f"{_short(quantity)} ≥ {_value(quantity, limits['low'])}"
+    return f"{_short(quantity)} {_value(quantity, limits['low'])} … {_value(quantity, limits['high'])}"
 
 
 def print_trim(result: TrimResult, console: Console | None = None, *,

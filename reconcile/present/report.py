@@ -110,6 +110,20 @@ def _e(x) -> str:
     return html.escape(str(x))
 
 
+def _predicted_unit(quantity: str) -> str:
+    """The unit of a trim option's predicted quantity (a corner in Hz)."""
+    if quantity.endswith("corner"):
+        return "Hz"
+    return "Ω" if quantity.endswith("resistance") else ""
+
+
+def _change_value(change: dict) -> str:
+    """A trim change's new value from its JSON (``ohms`` or, for a capacitor, ``farads``)."""
+    if "farads" in change:
+        return numbers.si(change["farads"], "F", 3)
+    return numbers.si(change["ohms"], "Ω", 3)
+
+
 def _num(x, unit: str = "", digits: int = 4) -> str:
     if x is None:
         return "–"
@@ -358,7 +372,7 @@ def _trim_section(d: ReportData) -> str:
             "<b>" + _e("first, restore the drawn design: " + (
                 "; ".join(step["text"] for step in repair["steps"]) or "nothing to repair"))
             + "</b>",
-            _e(", ".join(f"{k} {numbers.si(v, 'Ω' if k.endswith('resistance') else '')}"
+            _e(", ".join(f"{k} {numbers.si(v, _predicted_unit(k))}"
                          for k, v in b["predicted"].items())),
             f"{100 * (b.get('margin') or 0):+.1f}%",
             '<span class="ok">yes</span>' if b["meets_spec"] else '<span class="bad">no</span>',
@@ -368,13 +382,13 @@ def _trim_section(d: ReportData) -> str:
         change = (
             "; ".join(
                 f"{c['ref']} {'replace with' if c['action'] == 'replace' else 'add in parallel'} "
-                f"{numbers.si(c['ohms'], 'Ω', 3)} ({c['series']})"
+                f"{_change_value(c)} ({c['series']})"
                 for c in o["changes"]
             )
             or "no change"
         )
         pred = ", ".join(
-            f"{k} {numbers.si(v, 'Ω' if k.endswith('resistance') else '')}"
+            f"{k} {numbers.si(v, _predicted_unit(k))}"
             for k, v in o["predicted"].items()
         )
         y = o.get("yield")

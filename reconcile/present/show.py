@@ -90,7 +90,7 @@ def _brief_trim(obj) -> str:
     if best is None:
         head = "no option"
     else:
-        change = "; ".join(f"{c.ref} {c.action} {numbers.si(c.ohms, 'ohm', 3)}"
+        change = "; ".join(f"{c.ref} {c.action} {numbers.si(c.value, c.unit, 3)}"
                            for c in best.changes) or "no change"
         y = "" if best.yield_ is None else f", yield {numbers.percent(best.yield_, sign=False)}"
         head = f"best: {change}{y}"

@@ -1,4 +1,5 @@
-"""What a rework may change: standard-value candidates for every trimmable resistor.
+"""What a rework may change: standard-value candidates for every trimmable resistor,
+and for the capacitors a corner limit calls for.
 
 Two kinds of change are offered for a resistor whose ``trim`` flag is true:
 
@@ -27,6 +28,18 @@ Which values are worth trying (:class:`CandidateWindow`):
   built part is known to without a measurement (for large added values neighbouring
   E-series steps move the combination by a small fraction of a percent).
 
+Capacitors (only those :func:`reconcile.trim.rework.trim` names: the ones a missed
+``[spec]`` corner limit calls for) get the same two kinds of change, from E12 for a part
+of ±10 % or tighter and E6 otherwise (IEC 60063; the values capacitors are stocked in);
+the new part has the tolerance of the part it replaces or joins (the board's own,
+``tolerance`` under ``[capacitors.X]``, default ±20 %):
+
+* ``replace``: any value from ``1/capacitor_span`` to ``capacitor_span`` times the built
+  value (default 10: a corner moves about as 1/C, so a decade either way);
+* ``parallel``: a part tacked across it, capacitances in parallel adding (C_a + C_b,
+  basic circuit theory), the total from 1.1 to ``capacitor_span`` times the built value,
+  thinned as for resistors.
+
 These windows are our own engineering choices; :class:`CandidateWindow` makes them
 configurable.
 """
@@ -41,7 +54,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from reconcile.model.board import Board, Resistor
+from reconcile.model.board import Board, Capacitor, Resistor
 from reconcile.errors import InputError
 from reconcile.model.eseries import series_for_tolerance, values_in_range
 from reconcile.model.kinds import ReworkAction
@@ -72,8 +85,12 @@ class CandidateWindow:
     parallel_min_ratio: float = 0.5
     parallel_min_trim: float = 0.02
     parallel_resolution: float = 0.5
+    capacitor_span: float = 10.0
 
     def __post_init__(self) -> None:
+        if not (math.isfinite(self.capacitor_span) and self.capacitor_span > 1.1):
+            raise InputError(
+                f"capacitor_span must be a number above 1.1, got {self.capacitor_span!r}")
         if not (math.isfinite(self.parallel_resolution) and self.parallel_resolution >= 0.0):
             raise InputError(
                 f"parallel_resolution must be a number >= 0, got {self.parallel_resolution!r}"
@@ -89,23 +106,34 @@ class CandidateWindow:
 
 @dataclass(frozen=True)
 class Singles:
-    """Every single change, flat: row k changes resistor column ``column[k]``.
+    """Every single change, flat: row k changes part column ``column[k]``.
 
-    ``combined_ohms`` is the part's resistance after the change with the built value in
+    Part columns are the resistors in engine order, then the capacitors
+    (``n_resistors`` onwards). ``new_value`` is the new part's value (ohms or farads);
+    ``combined_value`` the position's value after the change with the built part in
     place (the new value for a replacement, the parallel combination otherwise).
     """
 
-    column: np.ndarray  # (K,) resistor column
+    column: np.ndarray  # (K,) part column
     action: np.ndarray  # (K,) REPLACE | PARALLEL
-    new_ohms: np.ndarray  # (K,)
-    combined_ohms: np.ndarray  # (K,)
+    new_value: np.ndarray  # (K,)
+    combined_value: np.ndarray  # (K,)
     tolerance: np.ndarray  # (K,) of the new part, fraction
-    series: tuple[str, ...]  # per resistor column ('' when the part is not trimmed)
-    refs: tuple[str, ...]  # per resistor column
+    series: tuple[str, ...]  # per part column ('' when the part is not changed)
+    refs: tuple[str, ...]  # per part column
+    n_resistors: int = -1  # -1: every column is a resistor
 
     @property
     def size(self) -> int:
         return int(self.column.shape[0])
+
+    @property
+    def resistor_count(self) -> int:
+        return len(self.refs) if self.n_resistors < 0 else self.n_resistors
+
+    def is_capacitor(self, index: np.ndarray) -> np.ndarray:
+        """Whether single change(s) ``index`` change a capacitor."""
+        return self.column[index] >= self.resistor_count
 
     def count_per_column(self) -> np.ndarray:
         return np.bincount(self.column, minlength=len(self.refs))
@@ -135,6 +163,21 @@ def resolve_series(part: Resistor, series_for: SeriesChoice) -> str:
     return name
 
 
+def capacitor_series(part: Capacitor) -> str:
+    """E12 for a capacitor of ±10 % or tighter, E6 otherwise (see the module docstring)."""
+    return "E12" if part.tolerance <= 0.10 + 1e-12 else "E6"
+
+
+def _capacitor_values(part: Capacitor, name: str, c_b: float,
+                      window: CandidateWindow) -> tuple[np.ndarray, np.ndarray]:
+    """(replacement values, parallel values) for a capacitor built as ``c_b`` farads."""
+    span = window.capacitor_span
+    rep = values_in_range(name, c_b / span, c_b * span)
+    par = values_in_range(name, 0.1 * c_b, (span - 1.0) * c_b)
+    par = _thin(par, c_b + par, window.parallel_resolution * part.tolerance)
+    return rep, par
+
+
 def single_candidates(
     board: Board,
     resistor_refs: tuple[str, ...],
@@ -142,8 +185,12 @@ def single_candidates(
     *,
     series_for: SeriesChoice = None,
     window: CandidateWindow | None = None,
+    capacitor_refs: tuple[str, ...] = (),
+    built_farads: np.ndarray | None = None,
+    capacitors_to_try: frozenset[str] = frozenset(),
 ) -> Singles:
-    """Every standard-value replacement and parallel part for each trimmable resistor.
+    """Every standard-value replacement and parallel part for each trimmable resistor,
+    and for each trimmable capacitor in ``capacitors_to_try``.
 
     Parameters
     ----------
@@ -157,6 +204,10 @@ def single_candidates(
         A mapping ref -> series name, or a function of the part; default by tolerance.
     window
         Which values to try; default :class:`CandidateWindow`.
+    capacitor_refs, built_farads
+        Capacitor refs in engine column order and their built values, farads.
+    capacitors_to_try
+        The capacitors that may be changed (see :func:`reconcile.trim.rework.trim`).
     """
     if isinstance(series_for, Mapping):
         unknown = sorted(set(series_for) - set(resistor_refs))
@@ -188,14 +239,31 @@ def single_candidates(
             new.append(values)
             comb.append(np.asarray(combined, dtype=float))
             tols.append(np.full(values.shape, part.tolerance))
+    n_r = len(resistor_refs)
+    for k, ref in enumerate(capacitor_refs):
+        part = board.capacitors[ref]
+        if ref not in capacitors_to_try or not part.trim or built_farads is None:
+            series_names.append("")
+            continue
+        name = capacitor_series(part)
+        series_names.append(name)
+        c_b = float(built_farads[k])
+        rep, par = _capacitor_values(part, name, c_b, window)
+        for action, values, combined in ((REPLACE, rep, rep), (PARALLEL, par, c_b + par)):
+            cols.append(np.full(values.shape, n_r + k, dtype=np.intp))
+            acts.append(np.full(values.shape, action, dtype=np.int8))
+            new.append(values)
+            comb.append(np.asarray(combined, dtype=float))
+            tols.append(np.full(values.shape, part.tolerance))
     if not cols:
-        raise InputError("no resistor may be changed: every part is marked trim = false")
+        raise InputError("no part may be changed: every part is marked trim = false")
     return Singles(
         column=np.concatenate(cols),
         action=np.concatenate(acts),
-        new_ohms=np.concatenate(new),
-        combined_ohms=np.concatenate(comb),
+        new_value=np.concatenate(new),
+        combined_value=np.concatenate(comb),
         tolerance=np.concatenate(tols),
         series=tuple(series_names),
-        refs=tuple(resistor_refs),
+        refs=tuple(resistor_refs) + tuple(capacitor_refs),
+        n_resistors=n_r,
     )

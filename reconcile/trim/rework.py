@@ -1,4 +1,4 @@
-"""The least rework that restores the spec: which resistor to swap or tack a part across.
+"""The least rework that restores the spec: which part to swap or tack a part across.
 
 Starting point: the built board as fitted (:class:`~reconcile.inference.fitting.FitResult`, its MAP
 vector and linearised posterior covariance), or in design mode (no readings) the board
@@ -24,7 +24,11 @@ Ranking, best first:
 4. lower rework cost: by default 1.0 per part added in parallel (tack it on) and 1.5 per
    part replaced (desolder, clean the pads, fit). These weights are our own invented
    figures, not from any standard; pass ``costs`` to change them;
-5. larger exact worst-case margin.
+5. larger exact worst-case margin;
+6. the smaller change of value (Σ |ln(after/built)|). A one-sided limit (a corner)
+   counts in the worst-case margin only until it is met with its worst case, so among
+   capacitors that meet a corner limit the one nearest the built value ranks first (the
+   smallest that meets a ``low_corner`` max).
 
 Only one option per rework (the same parts with the same actions) is listed, the best
 value of it (``variants_per_rework`` lists more), and a combination is left out when a
@@ -37,8 +41,18 @@ over ``samples`` draws of the posterior and of the new parts' tolerances (unifor
 :data:`reconcile.engine.budget.THROUGHPUT_ROWS` boards; see :mod:`reconcile.trim.yields`.
 It is reported, not used for the ranking.
 
-Capacitors are not changed: the spec quantities of the boards this tool is aimed at are
-set by resistors and the bias point, with coupling and bypass capacitors chosen large.
+Capacitors are changed when ``[spec]`` limits a corner (``low_corner = { max }``,
+``high_corner = { min }``) and the built board misses the limit or reaches it within its
+worst-case margin: for the low corner the capacitors whose exact share of it
+(:func:`reconcile.engine.sweep.low_corner_shares`) is at least :data:`LOW_SHARE_FLOOR`
+of the largest share, for the high corner every capacitor whose value moves it (an
+elasticity |∂ln f_H/∂ln C| of at least :data:`HIGH_ELASTICITY_FLOOR` at the built board:
+the ones that load a node of the signal path; the probe's capacitance is bench set-up,
+not a part, and is never proposed). Capacitors are one more kind of part in the same
+search (replacements and parallel parts from E6/E12, combinations with resistors), and
+every candidate's corners, gain and other spec quantities come from the same engine
+evaluation; a capacitor does not move the DC bias. The new capacitor's tolerance is the
+board's own for the part it replaces or joins (default ±20 %).
 """
 
 from __future__ import annotations
@@ -65,15 +79,20 @@ from reconcile.trim.candidates import (
     single_candidates,
 )
 from reconcile.trim.combos import all_pairs, grow, pair_count, screen_pairs
+from reconcile.engine.sweep import find_corners, low_corner_shares, with_stepped_capacitors
 from reconcile.trim.search import (
+    CORNERS,
     Context,
     Scores,
     build_context,
+    combo_change,
     combo_costs,
+    corner_values,
     evaluate,
     merit,
     rank_order,
     score_solution,
+    spec_corners,
 )
 from reconcile.trim.yields import YieldEstimate, yields
 
@@ -88,32 +107,59 @@ MERIT_BAND = 0.005
 EXHAUSTIVE_LIMIT = 200_000
 PAIR_BUDGET = 40_000
 BEAM = 200
+LOW_SHARE_FLOOR = 0.2
+"""A capacitor is tried for a missed low corner when its share is at least this fraction
+of the largest share (our own choice)."""
+HIGH_ELASTICITY_FLOOR = 0.01
+"""A capacitor is tried for a missed high corner when |∂ln f_H/∂ln C| is at least this."""
 
 Action = ReworkAction
 
 
 @dataclass(frozen=True)
 class Change:
-    """One change on the bench. ``ohms`` is the new part's standard value; ``combined_ohms``
-    what the position then measures with the built value in place."""
+    """One change on the bench. ``value`` is the new part's standard value (ohms for a
+    resistor, farads for a capacitor: ``part``); ``combined`` what the position then
+    measures with the built part in place; ``built`` the built part's value."""
 
     ref: str
     action: Action
-    ohms: float
+    value: float
     series: str
-    combined_ohms: float
+    combined: float
     tolerance: float = 0.0
-    built_ohms: float = math.nan
+    built: float = math.nan
+    part: str = "resistor"
+
+    @property
+    def unit(self) -> str:
+        """The value's SI unit symbol."""
+        return "F" if self.part == "capacitor" else "Ω"
+
+    @property
+    def ohms(self) -> float:
+        """A resistor change's new value (NaN for a capacitor)."""
+        return self.value if self.part == "resistor" else math.nan
+
+    @property
+    def combined_ohms(self) -> float:
+        return self.combined if self.part == "resistor" else math.nan
+
+    @property
+    def built_ohms(self) -> float:
+        return self.built if self.part == "resistor" else math.nan
 
     def to_dict(self) -> dict:
+        key = "farads" if self.part == "capacitor" else "ohms"
         return {
             "ref": self.ref,
+            "part": self.part,
             "action": self.action,
-            "ohms": self.ohms,
+            key: self.value,
             "series": self.series,
-            "combined_ohms": self.combined_ohms,
+            f"combined_{key}": self.combined,
             "tolerance": self.tolerance,
-            "built_ohms": self.built_ohms,
+            f"built_{key}": self.built,
         }
 
 
@@ -299,7 +345,9 @@ def trim(
     space, x, cov, mode = _starting_point(board, fit)
     ctx = build_context(board, space.circuit, space, x, cov, mode, float(k_sigma))
     singles = single_candidates(
-        board, ctx.circuit.resistor_refs, ctx.built_ohms, series_for=series_for, window=window
+        board, ctx.circuit.resistor_refs, ctx.built_ohms, series_for=series_for, window=window,
+        capacitor_refs=ctx.circuit.capacitor_refs, built_farads=ctx.built_farads,
+        capacitors_to_try=capacitors_to_try(ctx),
     )
     scores, evaluated, screened, search, searched = _search(
         ctx, singles, max_changes, cost_of, top, variants_per_rework, merit_band,
@@ -314,6 +362,32 @@ def trim(
     )
 
 
+def capacitors_to_try(ctx: Context) -> frozenset[str]:
+    """The capacitors a corner limit calls for (see the module docstring): none unless
+    the built board misses a corner limit or reaches it within ``k_sigma`` predicted
+    standard deviations."""
+    out: set[str] = set()
+    refs = ctx.circuit.capacitor_refs
+    n_r = len(ctx.circuit.resistor_refs)
+    for name in ctx.corner_names:
+        k = ctx.quantities.index(name)
+        value = corner_values(ctx.hint, (name,))[0][0]
+        lo, hi = ctx.low[k], ctx.high[k]
+        reach = ctx.k_sigma * math.sqrt(max(float(ctx.var0[k]), 0.0))
+        if min(value - lo, hi - value) - reach >= 0.0:
+            continue
+        if name == "low_corner":
+            stacked = with_stepped_capacitors(ctx.base.linear)
+            shares = low_corner_shares(stacked, find_corners(stacked))
+            top = max((sh.share for sh in shares if math.isfinite(sh.share)), default=0.0)
+            out |= {sh.ref for sh in shares if top > 0 and sh.share >= LOW_SHARE_FLOOR * top}
+        elif math.isfinite(value):
+            elasticity = ctx.sens_col[k, n_r:] / value
+            out |= {ref for ref, e in zip(refs, elasticity, strict=True)
+                    if abs(e) >= HIGH_ELASTICITY_FLOOR}
+    return frozenset(ref for ref in out if ctx.board.capacitors[ref].trim)
+
+
 def _result(
     ctx: Context, singles: Singles, scores: Scores, cost_of: dict[str, float], *, top: int,
     per: int, merit_band: float, samples: int, rng: np.random.Generator, meta: dict,
@@ -321,14 +395,15 @@ def _result(
     """Rank the scored options, keep the distinct best ``top``, estimate their yields
     (and the baseline's) in one Monte Carlo call, and assemble the result."""
     cost = combo_costs(singles, scores.combos, cost_of["replace"], cost_of["parallel"])
-    order = rank_order(scores, cost, merit_band)
+    order = rank_order(scores, cost, merit_band, combo_change(ctx, singles, scores.combos))
     chosen = _distinct(singles, scores, order, top, per, merit_band)
     width = scores.combos.shape[1]
     rows = np.vstack([np.full((1, width), -1, dtype=np.intp), scores.combos[chosen]])
     estimates: list[YieldEstimate | None] = [None] * rows.shape[0]
     if samples:
-        option_v = evaluate(ctx, singles, rows, keep_v=True).v
-        estimates = yields(ctx, singles, rows, samples, rng, option_v=option_v)
+        kept = evaluate(ctx, singles, rows, keep_v=True)
+        estimates = yields(ctx, singles, rows, samples, rng, option_v=kept.v,
+                           option_corners=kept.corners)
     options = tuple(
         _option(ctx, singles, scores, int(i), float(cost[i]), est)
         for i, est in zip(chosen, estimates[1:], strict=True)
@@ -342,11 +417,14 @@ def _check_settings(
     k_sigma, merit_band,
 ) -> None:
     """Refuse a board with nothing to trim to and settings out of range."""
-    if not board.spec.targets and board.spec.min_vce is None:
+    spec = board.spec
+    if (not spec.targets and spec.min_vce is None and spec.low_corner_max is None
+            and spec.high_corner_min is None):
         raise InputError("the board has no [spec] to trim to", path=board.source_path, key="spec")
-    if board.spec.targets and not (board.signal.input and board.signal.output):
+    if spec_corners(board) + tuple(spec.targets) and not (
+            board.signal.input and board.signal.output):
         raise InputError(
-            "[spec] targets need a [signal] set-up (input and output)",
+            "[spec] targets and corners need a [signal] set-up (input and output)",
             path=board.source_path,
             key="signal",
         )
@@ -372,6 +450,12 @@ def _spec_dict(board: Board) -> dict:
     }
     if board.spec.min_vce is not None:
         spec["min_vce"] = {"value": board.spec.min_vce}
+    if board.spec.low_corner_max is not None:
+        spec["low_corner"] = {"target": board.spec.low_corner_max, "low": None,
+                              "high": board.spec.low_corner_max}
+    if board.spec.high_corner_min is not None:
+        spec["high_corner"] = {"target": board.spec.high_corner_min,
+                               "low": board.spec.high_corner_min, "high": None}
     return spec
 
 def _search(
@@ -401,9 +485,8 @@ def _search(
         # with `top` of those listed already, larger combinations cannot change the list.
         so_far = Scores.concatenate([_subset(f, slice(None)) for f in found])
         c = combo_costs(singles, so_far.combos, cost_of["replace"], cost_of["parallel"])
-        picked = _distinct(
-            singles, so_far, rank_order(so_far, c, merit_band), top, variants_per_rework, merit_band
-        )
+        order = rank_order(so_far, c, merit_band, combo_change(ctx, singles, so_far.combos))
+        picked = _distinct(singles, so_far, order, top, variants_per_rework, merit_band)
         tier, _ = merit(so_far, merit_band)
         return int(np.sum(tier[picked] == 0)) >= top
 
@@ -427,7 +510,7 @@ def _search(
             order = rank_order(
                 seeds_scores,
                 combo_costs(singles, seeds_scores.combos, cost_of["replace"], cost_of["parallel"]),
-                merit_band,
+                merit_band, combo_change(ctx, singles, seeds_scores.combos),
             )[:beam]
             seeds = seeds_scores.combos[order]
             seed_view = _subset(seeds_scores, order)
@@ -447,7 +530,7 @@ def _subset(scores: Scores, index) -> Scores:
         **{
             k: (v[index] if isinstance(v, np.ndarray) else v)
             for k, v in scores.__dict__.items()
-            if k != "v"
+            if k not in ("v", "corners")
         }
     )
 
@@ -481,15 +564,19 @@ def _changes(ctx: Context, singles: Singles, row: np.ndarray) -> tuple[Change, .
     out = []
     for j in sorted(row[row >= 0].tolist(), key=lambda j: singles.column[j]):
         col = int(singles.column[j])
+        cap = bool(singles.is_capacitor(np.array([j]))[0])
+        built = (ctx.built_farads[col - singles.resistor_count] if cap
+                 else ctx.built_ohms[col])
         out.append(
             Change(
                 ref=singles.refs[col],
                 action=ACTIONS[int(singles.action[j])],
-                ohms=float(singles.new_ohms[j]),
+                value=float(singles.new_value[j]),
                 series=singles.series[col],
-                combined_ohms=float(singles.combined_ohms[j]),
+                combined=float(singles.combined_value[j]),
                 tolerance=float(singles.tolerance[j]),
-                built_ohms=float(ctx.built_ohms[col]),
+                built=float(built),
+                part="capacitor" if cap else "resistor",
             )
         )
     return tuple(out)
@@ -508,6 +595,8 @@ def _problems(ctx: Context, scores: Scores, i: int) -> tuple[str, ...]:
     for k in range(ctx.n_spec):
         entry = REGISTRY.get(ctx.quantities[k])
         name, unit = (entry.short, entry.unit) if entry else (ctx.quantities[k], "")
+        if ctx.quantities[k] in CORNERS:
+            name, unit = ctx.quantities[k].replace("_", " "), "Hz"
         if not q[k] >= ctx.low[k]:
             out.append(f"{name} {format_si(q[k], unit, 4)} < min {format_si(ctx.low[k], unit, 4)}")
         elif not q[k] <= ctx.high[k]:
@@ -562,7 +651,8 @@ def _baseline_option(ctx: Context, est: YieldEstimate | None) -> TrimOption:
         ("",) * len(ctx.circuit.resistor_refs),
         ctx.circuit.resistor_refs,
     )
-    s = score_solution(ctx, dummy, none, ctx.base, np.ones((1, len(ctx.circuit.resistor_refs))))
+    s = score_solution(ctx, dummy, none, ctx.base, np.ones((1, len(ctx.circuit.resistor_refs))),
+                       hint=ctx.hint)
     return _option(ctx, dummy, s, 0, 0.0, est)
 
 

@@ -1,7 +1,7 @@
 """Score rework candidates with the engine: many boards per call, then rank them.
 
 A candidate is a tuple of single changes (see :mod:`reconcile.trim.candidates`) on
-distinct resistors, applied to the built board (the fitted MAP board, or the drawn board
+distinct parts (resistors, and capacitors when a corner limit calls for them), applied to the built board (the fitted MAP board, or the drawn board
 in design mode). Each is solved exactly by the batched engine and scored:
 
 * constraints: a DC solution was found, every transistor is forward-active with
@@ -10,7 +10,13 @@ in design mode). Each is solved exactly by the batched engine and scored:
   its share of the power, inversely proportional to its resistance), and the new part
   has the rating of the part it joins or replaces;
 * ``margin``: for each [spec] entry min(q − low, high − q)/target at the predicted
-  board, the smallest over the entries (negative when outside);
+  board, the smallest over the entries (negative when outside). A ``low_corner`` limit
+  is an entry with only a high limit (the max), a ``high_corner`` limit one with only a
+  low limit (the min), the limit being the target, as :func:`reconcile.engine.solution.check_corners`
+  scores them: a board with no low corner (DC-coupled) counts 0 Hz, one with no high
+  corner infinity. The corners are root-found by the engine
+  (:func:`reconcile.engine.sweep.corners_near`, from the built board's corners) in the
+  same engine evaluation as the other quantities;
 * ``worst_case_margin``: the same with each distance shortened by ``k_sigma`` predicted
   standard deviations of q, so that a candidate that sits in spec only thanks to a
   favourable guess of the built board ranks below one that is in spec whatever the
@@ -18,8 +24,12 @@ in design mode). Each is solved exactly by the batched engine and scored:
   sensitivities at the built board (central finite differences, one engine call)
   propagated through the posterior covariance, with the changed part's coefficient
   scaled by d ln R_after / d ln R_built (0 for a replacement, R_new/(R_built + R_new)
-  for a parallel part) and the new part's own tolerance (a rectangular ±tol, standard
+  for a parallel resistor, C_built/(C_built + C_new) for a parallel capacitor) and the
+  new part's own tolerance (a rectangular ±tol, standard
   deviation tol/√3, JCGM 100:2008 4.3.7) added through d ln R_after / d ln R_new.
+  A corner's standard deviation is scaled by its value over the built board's (its
+  relative spread carries over: a corner moves as 1/C and 1/R of the parts that set it,
+  and a capacitor change may move it by a decade).
   With ``min_vce`` the same first-order spread of each transistor's |VCE| decides whether
   the headroom holds ``k_sigma`` deviations down (``headroom_robust``).
 
@@ -40,6 +50,7 @@ from reconcile.model.kinds import TrimMode
 from reconcile.engine import BatchSolution, Circuit, DCState, Parameters, solve_batch
 from reconcile.engine.batch import bytes_per_board
 from reconcile.engine.budget import THROUGHPUT_ROWS, chunks, rows_per_chunk
+from reconcile.engine.sweep import Corners, corners_near, find_corners
 from reconcile.inference.priors import ParameterSpace
 from reconcile.trim.candidates import PARALLEL, Singles
 
@@ -48,15 +59,20 @@ FD_STEP_OF_PRIOR_SD = 0.01
 """Finite-difference step for the sensitivities, as a fraction of each prior sd."""
 
 FD_STEP_LN_R = 1e-4
-"""Finite-difference step in ln R for the resistor columns."""
+"""Finite-difference step in ln R (ln C) for the resistor (capacitor) columns."""
+
+CORNERS = ("low_corner", "high_corner")
+"""The corner limits of ``[spec]``, as quantities trim scores (Hz)."""
 
 
 @dataclass(frozen=True)
 class Context:
     """Everything fixed while candidates are scored.
 
-    ``quantities`` lists the small-signal quantities reported for an option: the spec
-    entries first (``n_spec`` of them), then gain and input resistance if not among them.
+    ``quantities`` lists the quantities reported for an option: the spec entries first
+    (``n_spec`` of them: the small-signal targets, then the corner limits), then gain
+    and input resistance if not among them. Part columns (``sens_col``,
+    ``param_of_col``, ``v_sens_col``) are the resistors, then the capacitors.
     The watched quantities, whose predicted spread the worst-case margin uses, are the spec
     entries and, with ``min_vce``, each transistor's |VCE| (polarity · VCE).
     """
@@ -70,6 +86,8 @@ class Context:
     base_params: Parameters  # one sample: the built board
     base: BatchSolution
     built_ohms: np.ndarray  # (nR,)
+    built_farads: np.ndarray  # (nC,)
+    hint: Corners | None  # the built board's corners (None: no corner limit in the spec)
     ratings: np.ndarray  # (nR,) W, nan where none
     quantities: tuple[str, ...]
     n_spec: int
@@ -79,12 +97,16 @@ class Context:
     min_vce: float | None
     k_sigma: float
     sens: np.ndarray  # (n_watch, P) dq/dx at the built board
-    sens_col: np.ndarray  # (n_watch, nR) dq/d ln R per resistor column
+    sens_col: np.ndarray  # (n_watch, nR + nC) dq/d ln R (ln C) per part column
     cov_sens: np.ndarray  # (P, n_watch) Σ·gᵀ
     var0: np.ndarray  # (n_watch,) gᵀΣg
-    param_of_col: np.ndarray  # (nR,) index into the space, or -1
+    param_of_col: np.ndarray  # (nR + nC,) index into the space, or -1
     v_sens: np.ndarray  # (P, n_nodes + 1) dV/dx, zero rows for resistor parameters
-    v_sens_col: np.ndarray  # (nR, n_nodes + 1) dV/d ln R
+    v_sens_col: np.ndarray  # (nR + nC, n_nodes + 1) dV/d ln R (0 for capacitors)
+
+    @property
+    def corner_names(self) -> tuple[str, ...]:
+        return tuple(q for q in self.quantities[: self.n_spec] if q in CORNERS)
 
 
 def build_context(
@@ -96,9 +118,10 @@ def build_context(
     mode: str,
     k_sigma: float,
 ) -> Context:
-    """Solve the built board and its sensitivities (one engine call of 1 + 2(P + nR) boards)."""
+    """Solve the built board and its sensitivities (one engine call of 1 + 2(P + nR + nC)
+    boards)."""
     spec = board.spec
-    names = tuple(spec.targets)
+    names = tuple(spec.targets) + spec_corners(board)
     extra = tuple(q for q in ("gain", "input_resistance") if q not in names)
     has_signal = circuit.input_node is not None and circuit.output_node is not None
     quantities = names + (extra if has_signal else ())
@@ -106,24 +129,28 @@ def build_context(
     if mode == "design":  # exactly the drawn values, not exp(ln R) with its float noise
         drawn = np.array([board.resistors[r].ohms for r in circuit.resistor_refs])[None, :]
         base_params = base_params.with_values(resistor_ohms=drawn)
-    n_r = len(circuit.resistor_refs)
+    n_r, n_c = len(circuit.resistor_refs), len(circuit.capacitor_refs)
     h = FD_STEP_OF_PRIOR_SD * space.prior_sd
-    probes = _probe_boards(space, x, base_params, h, n_r)
-    base, watched_parts, v_parts = None, [], []
+    probes = _probe_boards(space, x, base_params, h, n_r, n_c)
+    base, hint, watched_parts, v_parts = None, None, [], []
     for sl in chunks(probes.n_samples, boards_per_call(circuit)):
         sol = solve_batch(circuit, probes.take(sl))
+        corners = find_corners(sol.linear) if spec_corners(board) else None
         if base is None:
             base = _take(sol, 0)
-        watched_parts.append(_watched(sol, board, circuit))
+            hint = None if corners is None else take_corners(corners, np.zeros(1, np.intp))
+        watched_parts.append(_watched(sol, board, circuit, corners))
         v_parts.append(sol.state.v)
     sens, sens_col, v_sens, v_sens_col = _central_differences(
         np.concatenate(watched_parts, axis=1), np.concatenate(v_parts), circuit, space, h)
     cov_sens = covariance @ sens.T
     var0 = np.einsum("qp,pq->q", sens, cov_sens)
-    param_of_col = np.full(n_r, -1, dtype=np.intp)
+    param_of_col = np.full(n_r + n_c, -1, dtype=np.intp)
     for j, fp in enumerate(space.parameters):
         if fp.kind == "resistor":
             param_of_col[fp.column] = j
+        elif fp.kind == "capacitor":
+            param_of_col[n_r + fp.column] = j
     ratings = np.array(
         [
             np.nan if board.resistors[ref].rating_w is None else board.resistors[ref].rating_w
@@ -141,12 +168,14 @@ def build_context(
         base_params=base_params,
         base=base,
         built_ohms=base_params.resistor_ohms[0].copy(),
+        built_farads=base_params.capacitor_farads[0].copy(),
+        hint=hint,
         ratings=ratings,
         quantities=quantities,
         n_spec=len(names),
-        low=np.array([spec.targets[n].low for n in names]),
-        high=np.array([spec.targets[n].high for n in names]),
-        target=np.array([spec.targets[n].value for n in names]),
+        low=np.array([_limits(spec, n)[0] for n in names]),
+        high=np.array([_limits(spec, n)[1] for n in names]),
+        target=np.array([_limits(spec, n)[2] for n in names]),
         min_vce=spec.min_vce,
         k_sigma=k_sigma,
         sens=sens,
@@ -159,10 +188,51 @@ def build_context(
     )
 
 
+def spec_corners(board: Board) -> tuple[str, ...]:
+    """The corners ``[spec]`` limits, in :data:`CORNERS` order."""
+    spec = board.spec
+    return tuple(name for name, lim in zip(CORNERS, (spec.low_corner_max, spec.high_corner_min),
+                                           strict=True) if lim is not None)
+
+
+def _limits(spec, name: str) -> tuple[float, float, float]:
+    """(low, high, target) of a spec entry; a corner limit is one-sided, its limit the
+    target."""
+    if name == "low_corner":
+        return -math.inf, spec.low_corner_max, spec.low_corner_max
+    if name == "high_corner":
+        return spec.high_corner_min, math.inf, spec.high_corner_min
+    t = spec.targets[name]
+    return t.low, t.high, t.value
+
+
+def take_corners(corners: Corners, index: np.ndarray) -> Corners:
+    """Rows ``index`` of a :class:`~reconcile.engine.sweep.Corners`."""
+    return Corners(*(np.asarray(getattr(corners, f.name))[index]
+                     for f in dataclasses.fields(Corners)))
+
+
+def concatenate_corners(items: list[Corners]) -> Corners:
+    return Corners(*(np.concatenate([getattr(c, f.name) for c in items])
+                     for f in dataclasses.fields(Corners)))
+
+
+def corner_values(corners: Corners, names: tuple[str, ...]) -> list[np.ndarray]:
+    """The corners as trim scores them: no low corner 0 Hz, no high corner infinity."""
+    out = []
+    for name in names:
+        if name == "low_corner":
+            out.append(np.where(np.isnan(corners.low_corner), 0.0, corners.low_corner))
+        else:
+            out.append(np.where(np.isnan(corners.high_corner), math.inf, corners.high_corner))
+    return out
+
+
 def _probe_boards(space: ParameterSpace, x: np.ndarray, base_params: Parameters,
-                  h: np.ndarray, n_r: int) -> Parameters:
+                  h: np.ndarray, n_r: int, n_c: int) -> Parameters:
     """The built board, then ±h along each free parameter, then each resistor column
-    stepped by ±FD_STEP_LN_R in ln R (1 + 2P + 2nR boards)."""
+    and each capacitor column stepped by ±FD_STEP_LN_R in ln R or ln C
+    (1 + 2P + 2nR + 2nC boards)."""
     n_p = space.size
     xs = np.repeat(x[None, :], 1 + 2 * n_p, axis=0)
     for j in range(n_p):
@@ -174,7 +244,12 @@ def _probe_boards(space: ParameterSpace, x: np.ndarray, base_params: Parameters,
         r[c, c] *= math.exp(FD_STEP_LN_R)
         r[n_r + c, c] *= math.exp(-FD_STEP_LN_R)
     col_params = base_params.repeat(2 * n_r).with_values(resistor_ohms=r)
-    return Parameters.concatenate([params, col_params])
+    c = np.repeat(base_params.capacitor_farads, 2 * n_c, axis=0)
+    for k in range(n_c):
+        c[k, k] *= math.exp(FD_STEP_LN_R)
+        c[n_c + k, k] *= math.exp(-FD_STEP_LN_R)
+    cap_params = base_params.repeat(2 * n_c).with_values(capacitor_farads=c)
+    return Parameters.concatenate([params, col_params, cap_params])
 
 
 def boards_per_call(circuit: Circuit) -> int:
@@ -184,10 +259,14 @@ def boards_per_call(circuit: Circuit) -> int:
     return rows_per_chunk(bytes_per_board(circuit), share=0.5, at_most=THROUGHPUT_ROWS)
 
 
-def _watched(sol: BatchSolution, board: Board, circuit: Circuit) -> np.ndarray:
-    """The quantities trim watches (Q, N): the spec targets, then each transistor's VCE
-    (polarity-signed) when the spec limits it."""
+def _watched(sol: BatchSolution, board: Board, circuit: Circuit,
+             corners: Corners | None) -> np.ndarray:
+    """The quantities trim watches (Q, N): the spec targets, the spec'd corners, then
+    each transistor's VCE (polarity-signed) when the spec limits it."""
     watched = [np.nan_to_num(sol.quantity(name), nan=0.0) for name in board.spec.targets]
+    if corners is not None:
+        watched += [np.nan_to_num(v, nan=0.0, posinf=0.0)
+                    for v in corner_values(corners, spec_corners(board))]
     if board.spec.min_vce is not None:
         watched += list((circuit.polarity * sol.vce).T)
     return np.array(watched).reshape(len(watched), sol.state.v.shape[0])
@@ -196,16 +275,20 @@ def _watched(sol: BatchSolution, board: Board, circuit: Circuit) -> np.ndarray:
 def _central_differences(watched: np.ndarray, v: np.ndarray, circuit: Circuit,
                          space: ParameterSpace, h: np.ndarray):
     """Sensitivities of the watched quantities (Q, N) and of the node voltages (N, size),
-    per free parameter and per resistor column, from the boards of :func:`_probe_boards`."""
+    per free parameter and per part column, from the boards of :func:`_probe_boards`."""
     n_p, n_r = space.size, len(circuit.resistor_refs)
+    n_c = len(circuit.capacitor_refs)
     sens = np.zeros((len(watched), n_p))
-    sens_col = np.zeros((len(watched), n_r))
-    off = 1 + 2 * n_p
+    sens_col = np.zeros((len(watched), n_r + n_c))
+    off, off_c = 1 + 2 * n_p, 1 + 2 * n_p + 2 * n_r
     for i, q in enumerate(watched):
         sens[i] = (q[1 : 1 + n_p] - q[1 + n_p : off]) / (2.0 * h)
-        sens_col[i] = (q[off : off + n_r] - q[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
+        sens_col[i, :n_r] = (q[off : off + n_r] - q[off + n_r : off_c]) / (2.0 * FD_STEP_LN_R)
+        sens_col[i, n_r:] = (q[off_c : off_c + n_c] - q[off_c + n_c : off_c + 2 * n_c]) / (
+            2.0 * FD_STEP_LN_R)
     v_sens = (v[1 : 1 + n_p] - v[1 + n_p : off]) / (2.0 * h[:, None])
-    v_sens_col = (v[off : off + n_r] - v[off + n_r : off + 2 * n_r]) / (2.0 * FD_STEP_LN_R)
+    v_sens_col = np.zeros((n_r + n_c, v.shape[1]))
+    v_sens_col[:n_r] = (v[off : off + n_r] - v[off + n_r : off_c]) / (2.0 * FD_STEP_LN_R)
     for j, fp in enumerate(space.parameters):
         if fp.kind == "resistor":
             v_sens[j] = 0.0
@@ -241,8 +324,10 @@ def _take(sol: BatchSolution, i: int) -> BatchSolution:
             "kcl_residual",
         )
     }
+    linear = None if sol.linear is None else sol.linear.take(s)
     return BatchSolution(
-        circuit=sol.circuit, params=sol.params.take(s), state=state, small_signal=ss, **fields
+        circuit=sol.circuit, params=sol.params.take(s), state=state, small_signal=ss,
+        linear=linear, **fields
     )
 
 
@@ -265,6 +350,7 @@ class Scores:
     in_spec: np.ndarray  # (M,) every spec entry within its limits
     headroom_robust: np.ndarray  # (M,) |VCE| - k_sigma·sd >= min_vce for every transistor
     v: np.ndarray | None = None  # (M, n_nodes + 1) DC node voltages (singles only)
+    corners: Corners | None = None  # (M,) with ``keep_v`` and a corner limit in the spec
 
     @property
     def size(self) -> int:
@@ -315,6 +401,12 @@ def spec_scores(
     quantities are ``q_spec`` (M, n_spec) and |VCE| values ``headroom`` (M, nT)."""
     m = combos.shape[0]
     sd = np.sqrt(predicted_variance(ctx, singles, combos))
+    for name in ctx.corner_names:  # a corner's spread is relative (f ∝ 1/C, 1/R)
+        k = ctx.quantities.index(name)
+        base = corner_values(ctx.hint, (name,))[0][0]
+        if math.isfinite(base) and base > 0:
+            with np.errstate(invalid="ignore"):
+                sd[:, k] *= np.where(np.isfinite(q_spec[:, k]), q_spec[:, k] / base, 1.0)
     if ctx.min_vce is None or headroom is None:
         robust = np.ones(m, dtype=bool)
     else:
@@ -323,10 +415,17 @@ def spec_scores(
     if ctx.n_spec == 0:
         zero = np.zeros(m)
         return zero, zero, np.ones(m, dtype=bool), robust
-    dist = np.minimum(q_spec - ctx.low, ctx.high - q_spec)  # (M, n_spec)
-    dist = np.where(np.isfinite(dist), dist, -np.inf)
+    with np.errstate(invalid="ignore"):  # one-sided corner limits: an infinite side
+        dist = np.minimum(np.where(np.isinf(ctx.low), np.inf, q_spec - ctx.low),
+                          np.where(np.isinf(ctx.high), np.inf, ctx.high - q_spec))
+    dist = np.where(np.isnan(dist), -np.inf, dist)  # (M, n_spec)
     margin = np.min(dist / ctx.target, axis=1)
-    worst = np.min((dist - ctx.k_sigma * sd[:, : ctx.n_spec]) / ctx.target, axis=1)
+    worst_each = (dist - ctx.k_sigma * sd[:, : ctx.n_spec]) / ctx.target
+    # a one-sided limit (a corner) counts only until it is met with its worst case:
+    # more margin past it is no more merit (a smaller capacitor is as good)
+    one_sided = np.isinf(ctx.low) | np.isinf(ctx.high)
+    worst_each = np.where(one_sided, np.minimum(worst_each, 0.0), worst_each)
+    worst = np.min(worst_each, axis=1)
     in_spec = np.all(dist >= 0.0, axis=1)
     return margin, worst, in_spec, robust
 
@@ -335,21 +434,23 @@ def predicted_variance(ctx: Context, singles: Singles, combos: np.ndarray) -> np
     """First-order variance (M, n_watch) of each watched quantity after the changes.
 
     With g the sensitivities to the internal parameters and Σ their covariance, a change
-    on resistor column c scales that part's coefficient by s (0 replace, R_new/(R_b+R_new)
-    parallel) and adds the new part's term: var = g'ᵀΣg' + Σ_c ((1 − s_c)·g_c·σ_new)²,
-    g' = g − Σ_c (1 − s_c) g_c e_c.
+    on part column c scales that part's coefficient by s (0 replace, R_new/(R_b+R_new)
+    for a parallel resistor, C_b/(C_b + C_new) for a parallel capacitor) and adds the new
+    part's term: var = g'ᵀΣg' + Σ_c ((1 − s_c)·g_c·σ_new)², g' = g − Σ_c (1 − s_c) g_c e_c.
     """
     m, k = combos.shape
     var = np.repeat(ctx.var0[None, :], m, axis=0)
+    built = np.concatenate([ctx.built_ohms, ctx.built_farads])
     d_list, j_list = [], []
     for s in range(k):
         idx = combos[:, s]
         valid = idx >= 0
         safe = np.where(valid, idx, 0)
         col = singles.column[safe]
-        r_b = ctx.built_ohms[col]
-        r_new = singles.new_ohms[safe]
-        keep = np.where(singles.action[safe] == PARALLEL, r_new / (r_b + r_new), 0.0)
+        v_b = built[col]
+        v_new = singles.new_value[safe]
+        kept = np.where(singles.is_capacitor(safe), v_b, v_new) / (v_b + v_new)
+        keep = np.where(singles.action[safe] == PARALLEL, kept, 0.0)
         d = np.where(valid[:, None], (1.0 - keep)[:, None] * ctx.sens_col[:, col].T, 0.0)  # (M, nq)
         sd_new = singles.tolerance[safe] / math.sqrt(3.0)
         var += (d * sd_new[:, None]) ** 2
@@ -388,41 +489,55 @@ def evaluate(
         return parts[0]
     out = Scores.concatenate(parts)
     if keep_v:
-        out = Scores(**{**out.__dict__, "v": np.concatenate([p.v for p in parts])})
+        corners = (None if parts[0].corners is None
+                   else concatenate_corners([p.corners for p in parts]))
+        out = Scores(**{**out.__dict__, "v": np.concatenate([p.v for p in parts]),
+                        "corners": corners})
     return out
 
 
-def changed_resistors(
-    ctx: Context, singles: Singles, combos: np.ndarray, base_ohms: np.ndarray
-) -> tuple[np.ndarray, np.ndarray]:
-    """Resistor values (M, nR) after the changes and the power-share factors (M, nR).
+def changed_parts(
+    ctx: Context, singles: Singles, combos: np.ndarray, base_ohms: np.ndarray,
+    base_farads: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Resistor values (M, nR), capacitor values (M, nC) after the changes and the
+    resistors' power-share factors (M, nR).
 
-    ``base_ohms`` (M, nR) are the built values. The share factor turns the dissipation of
-    the combined resistance into that of its hotter part: R_after / min(R_built, R_new)
-    for a parallel change, 1 elsewhere.
+    ``base_ohms`` and ``base_farads`` are the built values. The share factor turns the
+    dissipation of the combined resistance into that of its hotter part:
+    R_after / min(R_built, R_new) for a parallel change, 1 elsewhere. Capacitors in
+    parallel add.
     """
-    r = base_ohms.copy()
+    r, c = base_ohms.copy(), base_farads.copy()
     share = np.ones_like(r)
     rows = np.arange(r.shape[0])
+    n_r = singles.resistor_count
     for s in range(combos.shape[1]):
         idx = combos[:, s]
         valid = idx >= 0
-        i, sel = idx[valid], rows[valid]
+        cap = np.zeros_like(valid)
+        cap[valid] = singles.is_capacitor(idx[valid])
+        i, sel = idx[valid & ~cap], rows[valid & ~cap]
         col = singles.column[i]
-        new = singles.new_ohms[i]
+        new = singles.new_value[i]
         par = singles.action[i] == PARALLEL
         built = r[sel, col]
         after = np.where(par, built * new / (built + new), new)
         r[sel, col] = after
         share[sel, col] = np.where(par, after / np.minimum(built, new), 1.0)
-    return r, share
+        i, sel = idx[cap], rows[cap]
+        col = singles.column[i] - n_r
+        new = singles.new_value[i]
+        c[sel, col] = np.where(singles.action[i] == PARALLEL, c[sel, col] + new, new)
+    return r, c, share
 
 
 def _evaluate_chunk(ctx, singles, combos, single_v, keep_v) -> Scores:
     m = combos.shape[0]
     base_r = np.repeat(ctx.base_params.resistor_ohms, m, axis=0)
-    r, share = changed_resistors(ctx, singles, combos, base_r)
-    params = ctx.base_params.repeat(m).with_values(resistor_ohms=r)
+    base_c = np.repeat(ctx.base_params.capacitor_farads, m, axis=0)
+    r, c, share = changed_parts(ctx, singles, combos, base_r, base_c)
+    params = ctx.base_params.repeat(m).with_values(resistor_ohms=r, capacitor_farads=c)
     v0 = ctx.base.state.v
     if single_v is not None:
         v = np.repeat(v0, m, axis=0)
@@ -434,7 +549,8 @@ def _evaluate_chunk(ctx, singles, combos, single_v, keep_v) -> Scores:
     else:
         initial = ctx.base.state
     sol = solve_batch(ctx.circuit, params, initial)
-    return score_solution(ctx, singles, combos, sol, share, keep_v=keep_v)
+    hint = None if ctx.hint is None else take_corners(ctx.hint, np.zeros(m, np.intp))
+    return score_solution(ctx, singles, combos, sol, share, keep_v=keep_v, hint=hint)
 
 
 def score_solution(
@@ -445,11 +561,17 @@ def score_solution(
     share: np.ndarray,
     *,
     keep_v: bool = False,
+    hint: Corners | None = None,
 ) -> Scores:
-    """Scores of solved candidates (``share``: see :func:`changed_resistors`)."""
+    """Scores of solved candidates (``share``: see :func:`changed_parts`). With corner
+    limits in the spec, ``hint`` (one row per candidate) are corners near theirs
+    (:func:`reconcile.engine.sweep.corners_near`)."""
     m = combos.shape[0]
+    corners = None
+    if ctx.corner_names:
+        corners = corners_near(sol.linear, hint)
     q = (
-        np.column_stack([sol.quantity(n) for n in ctx.quantities])
+        np.column_stack([_quantity(ctx, sol, corners, n) for n in ctx.quantities])
         if ctx.quantities
         else np.zeros((m, 0))
     )
@@ -477,15 +599,24 @@ def score_solution(
         in_spec=in_spec & conv,
         headroom_robust=robust & conv,
         v=sol.state.v if keep_v else None,
+        corners=corners if keep_v else None,
     )
+
+
+def _quantity(ctx: Context, sol: BatchSolution, corners: Corners | None,
+              name: str) -> np.ndarray:
+    if name in CORNERS:
+        return corner_values(corners, (name,))[0]
+    return sol.quantity(name)
 
 
 def first_order_state(
     ctx: Context, v_start: np.ndarray, dx: np.ndarray, dln_r: np.ndarray
 ) -> DCState:
     """A Newton seed: ``v_start`` (M, n + 1) moved by the built board's sensitivities for
-    parameter steps ``dx`` (M, P; resistor parameters ignored) and ``dln_r`` (M, nR)."""
-    v = v_start + dx @ ctx.v_sens + dln_r @ ctx.v_sens_col
+    parameter steps ``dx`` (M, P; resistor parameters ignored) and ``dln_r`` (M, nR;
+    capacitors do not move the DC state)."""
+    v = v_start + dx @ ctx.v_sens + dln_r @ ctx.v_sens_col[: dln_r.shape[1]]
     m = v.shape[0]
     return DCState(v, _junctions(ctx.circuit, v), np.ones(m, bool), np.zeros(m, np.int64))
 
@@ -515,12 +646,14 @@ def merit(scores: Scores, merit_band: float) -> tuple[np.ndarray, np.ndarray]:
     return tier, -np.floor(finite / merit_band)
 
 
-def rank_order(scores: Scores, costs: np.ndarray, merit_band: float) -> np.ndarray:
+def rank_order(scores: Scores, costs: np.ndarray, merit_band: float,
+               change: np.ndarray | None = None) -> np.ndarray:
     """Indices of ``scores`` best first.
 
     By tier (:func:`merit`); within a meeting tier fewer changed parts, then the merit
-    level, then the lower rework cost, then the exact worst-case margin. Among options
-    that miss, the merit level comes before the number of parts.
+    level, then the lower rework cost, then the exact worst-case margin, then the smaller
+    ``change`` (:func:`combo_change`; ties of the margin come from one-sided limits).
+    Among options that miss, the merit level comes before the number of parts.
     """
     tier, level = merit(scores, merit_band)
     worst = np.where(np.isfinite(scores.worst_case_margin), scores.worst_case_margin, -1e9)
@@ -528,7 +661,22 @@ def rank_order(scores: Scores, costs: np.ndarray, merit_band: float) -> np.ndarr
     failing = tier == 2
     first = np.where(failing, level, n)
     second = np.where(failing, n, level)
-    return np.lexsort((-worst, costs, second, first, tier))
+    if change is None:
+        return np.lexsort((-worst, costs, second, first, tier))
+    return np.lexsort((change, -worst, costs, second, first, tier))
+
+
+def combo_change(ctx: Context, singles: Singles, combos: np.ndarray) -> np.ndarray:
+    """How far each candidate moves its parts: Σ |ln(value after / value built)|."""
+    built = np.concatenate([ctx.built_ohms, ctx.built_farads])
+    total = np.zeros(combos.shape[0])
+    for s in range(combos.shape[1]):
+        idx = combos[:, s]
+        valid = idx >= 0
+        safe = np.where(valid, idx, 0)
+        step = np.abs(np.log(singles.combined_value[safe] / built[singles.column[safe]]))
+        total += np.where(valid, step, 0.0)
+    return total
 
 
 def combo_costs(

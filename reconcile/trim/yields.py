@@ -12,7 +12,10 @@ The same posterior draws serve every option and the unchanged board (common rand
 numbers, so that the differences between options are not sampling noise), and all of
 them are solved in one engine call. A sample meets spec when it has a DC solution, every
 transistor is forward-active with |VCE| >= ``min_vce``, no resistor (nor either half of a
-parallel pair) exceeds its rating, and every [spec] entry is within its limits.
+parallel pair) exceeds its rating, and every [spec] entry is within its limits, a corner
+limit included (each draw's corners root-found by the engine near its option's own,
+:func:`reconcile.engine.sweep.corners_near`). A capacitor added in parallel counts with
+the built one: the position's C_built + C_new, each of the two drawn.
 """
 
 from __future__ import annotations
@@ -29,9 +32,10 @@ from reconcile.trim.search import (
     Context,
     Scores,
     boards_per_call,
-    changed_resistors,
+    changed_parts,
     first_order_state,
     score_solution,
+    take_corners,
 )
 
 PERCENTILES = (5.0, 50.0, 95.0)
@@ -74,6 +78,7 @@ def yields(
     samples: int,
     rng: np.random.Generator,
     option_v: np.ndarray | None = None,
+    option_corners=None,
 ) -> list[YieldEstimate]:
     """Yield of each candidate in ``combos`` (rows of single-change indices, -1 padded;
     an all -1 row is the board unchanged): rows × samples boards, solved in groups of
@@ -81,12 +86,16 @@ def yields(
     posterior draws.
 
     ``option_v`` (rows, n + 1), the DC node voltages of each candidate as predicted, seeds
-    Newton for its draws at a first-order step from there (default: the built board).
+    Newton for its draws at a first-order step from there (default: the built board);
+    ``option_corners`` (rows), each candidate's corners, are where its draws' corners are
+    searched for (default: the built board's).
     """
     n_opt = combos.shape[0]
     x_draws = posterior_draws(ctx, samples, rng)  # the same draws for every option
     if option_v is None:
         option_v = np.repeat(ctx.base.state.v, n_opt, axis=0)
+    if option_corners is None and ctx.hint is not None:
+        option_corners = take_corners(ctx.hint, np.zeros(n_opt, np.intp))
     n_r = len(ctx.circuit.resistor_refs)
     per_option = samples * (bytes_per_board(ctx.circuit) + 64 * (n_r + combos.shape[1]))
     # Options are grouped only to fill engine calls (a few samples each): a group of about
@@ -95,28 +104,32 @@ def yields(
     group = rows_per_chunk(per_option, share=0.5, at_most=fill)
     out: list[YieldEstimate] = []
     for sl in chunks(n_opt, group):
-        out += _yields_of(ctx, singles, combos[sl], samples, x_draws, rng, option_v[sl])
+        hint = None if option_corners is None else take_corners(
+            option_corners, np.arange(sl.start, sl.stop))
+        out += _yields_of(ctx, singles, combos[sl], samples, x_draws, rng, option_v[sl], hint)
     return out
 
 
 def _yields_of(ctx: Context, singles: Singles, combos: np.ndarray, samples: int,
                x_draws: np.ndarray, rng: np.random.Generator,
-               option_v: np.ndarray) -> list[YieldEstimate]:
+               option_v: np.ndarray, hint) -> list[YieldEstimate]:
     """:func:`yields` of a group of options that fits the memory budget."""
     n_opt = combos.shape[0]
     draws = ctx.space.to_parameters(x_draws)
-    built = draws.resistor_ohms
     rows = np.repeat(combos, samples, axis=0)
-    base_r = np.tile(built, (n_opt, 1))
+    base_r = np.tile(draws.resistor_ohms, (n_opt, 1))
+    base_c = np.tile(draws.capacitor_farads, (n_opt, 1))
     # The new parts: their standard values moved within ±tolerance, one draw per board.
     jitter = (
         rng.uniform(-1.0, 1.0, size=rows.shape) * singles.tolerance[np.where(rows >= 0, rows, 0)]
     )
     moved = _with_new_values(singles, rows, jitter)
-    r, share = changed_resistors(ctx, moved, _flat_index(rows), base_r)
-    params = Parameters.concatenate([draws] * n_opt).with_values(resistor_ohms=r)
-    r_mean, _ = changed_resistors(
-        ctx, singles, combos, np.repeat(ctx.built_ohms[None, :], n_opt, axis=0)
+    r, c, share = changed_parts(ctx, moved, _flat_index(rows), base_r, base_c)
+    params = Parameters.concatenate([draws] * n_opt).with_values(
+        resistor_ohms=r, capacitor_farads=c)
+    r_mean, _, _ = changed_parts(
+        ctx, singles, combos, np.repeat(ctx.built_ohms[None, :], n_opt, axis=0),
+        np.repeat(ctx.built_farads[None, :], n_opt, axis=0),
     )
     seed = first_order_state(
         ctx,
@@ -125,11 +138,14 @@ def _yields_of(ctx: Context, singles: Singles, combos: np.ndarray, samples: int,
         np.log(r) - np.repeat(np.log(r_mean), samples, axis=0),
     )
     flat = _flat_index(rows)
+    board_hint = None if hint is None else take_corners(hint, np.repeat(np.arange(n_opt), samples))
     parts = []
     for sl in chunks(params.n_samples, boards_per_call(ctx.circuit)):
         part_seed = DCState(seed.v[sl], seed.vj[sl], seed.converged[sl], seed.iterations[sl])
         sol = solve_batch(ctx.circuit, params.take(sl), part_seed)
-        parts.append(score_solution(ctx, moved, flat[sl], sol, share[sl]))
+        parts.append(score_solution(
+            ctx, moved, flat[sl], sol, share[sl],
+            hint=None if board_hint is None else take_corners(board_hint, np.arange(sl.start, sl.stop))))
     scores = parts[0] if len(parts) == 1 else Scores.concatenate(parts)
     ok = scores.meets
     out = []
@@ -161,11 +177,12 @@ def _with_new_values(singles: Singles, rows: np.ndarray, jitter: np.ndarray) -> 
     return Singles(
         column=singles.column[safe],
         action=singles.action[safe],
-        new_ohms=singles.new_ohms[safe] * (1.0 + jitter.ravel()),
-        combined_ohms=singles.combined_ohms[safe],
+        new_value=singles.new_value[safe] * (1.0 + jitter.ravel()),
+        combined_value=singles.combined_value[safe],
         tolerance=singles.tolerance[safe],
         series=singles.series,
         refs=singles.refs,
+        n_resistors=singles.resistor_count,
     )
 
 
