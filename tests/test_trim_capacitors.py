@@ -16,11 +16,13 @@ Every board here is invented test data.
 
 from __future__ import annotations
 
+import json
 import math
 
 import eseries
 import pytest
 from boards import capacitor, resistor, supply, table, title
+from cli_support import run_cli
 
 from reconcile.engine.solution import solve
 from reconcile.model.board_loader import board_from_text
@@ -146,3 +148,20 @@ def test_self_consistency_mixed_rework_applied_to_the_board_meets_its_spec():
     assert checks["low_corner"].met and checks["gain"].met
     assert checks["low_corner"].value == pytest.approx(best.predicted["low_corner"], rel=1e-6)
     assert checks["gain"].value == pytest.approx(best.predicted["gain"], rel=1e-9)
+
+
+def test_cli_json_and_table_describe_a_capacitor_change(tmp_path):
+    path = tmp_path / "rc.toml"
+    path.write_text(_rc("high-pass", "100n", {"low_corner": {"max": 60.0}}))
+    out = run_cli("trim", str(path), "--json", "--samples", "200")
+    assert out.exit_code == 0, out.stderr
+    data = json.loads(out.stdout)
+    change = data["options"][0]["changes"][0]
+    assert change["part"] == "capacitor" and "ohms" not in change
+    assert change["combined_farads"] == pytest.approx(change["built_farads"] + change["farads"])
+    assert data["spec"]["low_corner"] == {"target": 60.0, "low": None, "high": 60.0}
+    assert data["baseline"]["predicted"]["low_corner"] == pytest.approx(_corner(100e-9))
+    table_out = run_cli("trim", str(path), "--samples", "200")
+    assert table_out.exit_code == 0, table_out.stderr
+    assert "low corner 159.2 Hz > max 60 Hz" in data["baseline"]["problems"]
+    assert "C1 ∥ 220 nF (E12) → 320 nF" in table_out.stdout  # the best, said in full

@@ -119,7 +119,8 @@ def _band(quantity: str, limits: dict) -> str:
         return f"{_short(quantity)} ≤ {_value(quantity, limits['high'])}"
     if limits["high"] is None:
         return f"{_short(quantity)} ≥ {_value(quantity, limits['low'])}"
-    return f"{_short(quantity)} {_value(quantity, limits['low'])} … {_value(quantity, limits['high'])}"
+    low, high = _value(quantity, limits["low"]), _value(quantity, limits["high"])
+    return f"{_short(quantity)} {low} … {high}"
 
 
 def print_trim(result: TrimResult, console: Console | None = None, *,

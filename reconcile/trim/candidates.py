@@ -242,12 +242,12 @@ def single_candidates(
     n_r = len(resistor_refs)
     for k, ref in enumerate(capacitor_refs):
         part = board.capacitors[ref]
-        if ref not in capacitors_to_try or not part.trim or built_farads is None:
+        c_b = math.nan if built_farads is None else float(built_farads[k])
+        if ref not in capacitors_to_try or not part.trim or not c_b > 0.0:
             series_names.append("")
             continue
         name = capacitor_series(part)
         series_names.append(name)
-        c_b = float(built_farads[k])
         rep, par = _capacitor_values(part, name, c_b, window)
         for action, values, combined in ((REPLACE, rep, rep), (PARALLEL, par, c_b + par)):
             cols.append(np.full(values.shape, n_r + k, dtype=np.intp))

@@ -12,8 +12,8 @@ in design mode). Each is solved exactly by the batched engine and scored:
 * ``margin``: for each [spec] entry min(q − low, high − q)/target at the predicted
   board, the smallest over the entries (negative when outside). A ``low_corner`` limit
   is an entry with only a high limit (the max), a ``high_corner`` limit one with only a
-  low limit (the min), the limit being the target, as :func:`reconcile.engine.solution.check_corners`
-  scores them: a board with no low corner (DC-coupled) counts 0 Hz, one with no high
+  low limit (the min), the limit being the target, as
+  :func:`reconcile.engine.solution.check_corners` scores them: a board with no low corner (DC-coupled) counts 0 Hz, one with no high
   corner infinity. The corners are root-found by the engine
   (:func:`reconcile.engine.sweep.corners_near`, from the built board's corners) in the
   same engine evaluation as the other quantities;
@@ -436,7 +436,8 @@ def predicted_variance(ctx: Context, singles: Singles, combos: np.ndarray) -> np
     With g the sensitivities to the internal parameters and Σ their covariance, a change
     on part column c scales that part's coefficient by s (0 replace, R_new/(R_b+R_new)
     for a parallel resistor, C_b/(C_b + C_new) for a parallel capacitor) and adds the new
-    part's term: var = g'ᵀΣg' + Σ_c ((1 − s_c)·g_c·σ_new)², g' = g − Σ_c (1 − s_c) g_c e_c.
+    part's term: var = g'ᵀΣg' + Σ_c ((1 − s_c)·g_c·σ_new)²,
+    g' = g − Σ_c (1 − s_c) g_c e_c.
     """
     m, k = combos.shape
     var = np.repeat(ctx.var0[None, :], m, axis=0)

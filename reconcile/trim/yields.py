@@ -143,9 +143,9 @@ def _yields_of(ctx: Context, singles: Singles, combos: np.ndarray, samples: int,
     for sl in chunks(params.n_samples, boards_per_call(ctx.circuit)):
         part_seed = DCState(seed.v[sl], seed.vj[sl], seed.converged[sl], seed.iterations[sl])
         sol = solve_batch(ctx.circuit, params.take(sl), part_seed)
-        parts.append(score_solution(
-            ctx, moved, flat[sl], sol, share[sl],
-            hint=None if board_hint is None else take_corners(board_hint, np.arange(sl.start, sl.stop))))
+        part_hint = (None if board_hint is None
+                     else take_corners(board_hint, np.arange(sl.start, sl.stop)))
+        parts.append(score_solution(ctx, moved, flat[sl], sol, share[sl], hint=part_hint))
     scores = parts[0] if len(parts) == 1 else Scores.concatenate(parts)
     ok = scores.meets
     out = []
