@@ -199,7 +199,7 @@ def _transistor_outputs(batch: _Batch, circuit: Circuit, params: Parameters, v: 
         return dict(ic=zero, ib=zero, ie=zero, vbe=zero, vce=zero,
                     region=np.zeros(shape, dtype=np.int8), gm=zero, rpi=zero, ro=zero,
                     transistor_power=zero)
-    st = batch.device_state(np.arange(params.n_samples), vbe_n, vbc_n)
+    st = batch.device_state(slice(None), vbe_n, vbc_n)
     ic = pol * st.ic
     ib = pol * st.ib
     ie = -(ic + ib)

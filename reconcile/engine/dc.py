@@ -306,9 +306,12 @@ class _Batch:
         """(N, n_fixed) current leaving each fixed node through the branches."""
         br = self.circuit.branch_nodes
         out = np.zeros((v.shape[0], len(self.fixed)))
-        if len(br):
-            i_b = self.g_branch * (v[:, br[:, 0]] - v[:, br[:, 1]])
-            self._branch_out_fixed.add_to(out, i_b)
+        for t, b, sign in self._branch_out_fixed.pairs:  # only branches at a fixed node
+            i_b = self.g_branch[:, b] * (v[:, br[b, 0]] - v[:, br[b, 1]])
+            if sign == 1.0:
+                out[:, t] += i_b
+            else:
+                out[:, t] -= i_b
         return out
 
     # ----------------------------------------------------------------- newton
