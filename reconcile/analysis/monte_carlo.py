@@ -160,7 +160,7 @@ def design_samples(
     spec_names = list(board.spec.targets)
     has_spec = bool(spec_names) or board.spec.min_vce is not None
     node_cols = [circuit.node_index(name.removeprefix("nodes.")) for name in names[len(spec_names):]]
-    values = np.empty((n, len(names)))
+    values = np.empty((len(names), n))  # one contiguous row per quantity
     n_drive = min(n, DRIVER_SAMPLES)
     drawn = np.empty((n_drive, space.size))
     passed = unsolved = 0
@@ -172,26 +172,27 @@ def design_samples(
         sol = solve_batch(circuit, space.to_parameters(x), seed_state)
         ok = sol.converged
         unsolved += int(np.count_nonzero(~ok))
-        block = values[sl]
+        block = values[:, sl]
         for j, name in enumerate(spec_names):
-            block[:, j] = _spec_quantity(sol, name)
+            block[j] = _spec_quantity(sol, name)
         for j, col in enumerate(node_cols):
-            block[:, len(spec_names) + j] = sol.node_v[:, col]
-        block[~ok] = np.nan
+            block[len(spec_names) + j] = sol.node_v[:, col]
+        block[:, ~ok] = np.nan
         if has_spec:
-            passed += int(np.count_nonzero(_meets(board, sol, block[:, : len(spec_names)])))
+            passed += int(np.count_nonzero(_meets(board, sol, block[: len(spec_names)].T)))
         if sl.start < n_drive:
             stop = min(sl.stop, n_drive)
             drawn[sl.start : stop] = x[: stop - sl.start]
         done = sl.stop
         if on_progress is not None:
             on_progress(done, n)
-    quantities = {name: _summary(values[:, j]) for j, name in enumerate(names)}
     ranked = np.stack([_ranks(col) for col in drawn.T], axis=1)
     drivers = {
-        name: _drivers(ranked, values[:n_drive, j], space.keys)
+        name: _drivers(ranked, values[j, :n_drive], space.keys)
         for j, name in enumerate(spec_names)
     }
+    # last: the summaries may reorder each row in place (the percentiles' partition)
+    quantities = {name: _summary(values[j]) for j, name in enumerate(names)}
     return DesignSamples(
         n=n,
         seed=seed,
@@ -223,14 +224,19 @@ def _meets(board: Board, sol, spec_values: np.ndarray) -> np.ndarray:
 
 
 def _summary(values: np.ndarray) -> dict[str, float]:
-    finite = values[np.isfinite(values)]
+    """Mean, sd and percentiles of the finite entries of ``values`` (contiguous; it may be
+    reordered in place: the percentiles partition it without a copy)."""
+    finite_mask = np.isfinite(values)
+    finite = values if finite_mask.all() else values[finite_mask]
     if not finite.size:
         nan = math.nan
         return {"mean": nan, "sd": nan, "p05": nan, "p50": nan, "p95": nan}
-    p05, p50, p95 = np.percentile(finite, PERCENTILES)
+    mean = float(np.mean(finite))
+    sd = float(np.std(finite, ddof=1)) if finite.size > 1 else 0.0
+    p05, p50, p95 = np.percentile(finite, PERCENTILES, overwrite_input=True)
     return {
-        "mean": float(np.mean(finite)),
-        "sd": float(np.std(finite, ddof=1)) if finite.size > 1 else 0.0,
+        "mean": mean,
+        "sd": sd,
         "p05": float(p05),
         "p50": float(p50),
         "p95": float(p95),
