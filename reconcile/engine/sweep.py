@@ -51,6 +51,8 @@ DEFAULT_POINTS = 61
 MAX_POINTS = 100_000
 NEAR_SPAN = 1.0
 """Decades either side of a hinted peak that :func:`corners_near` searches."""
+NEAR_STEP = 0.1
+"""Decades either side of a hinted peak where :func:`corners_near` first looks."""
 NEAR_POINTS = 9
 NEAR_ROUNDS = 3
 NEAR_BRACKET = 0.25
@@ -130,26 +132,33 @@ def _refine_peak(linear: LinearModel, lo: np.ndarray, hi: np.ndarray) -> tuple:
 
 def _illinois(linear: LinearModel, lo, hi, f_lo, f_hi, target) -> np.ndarray:
     """Roots of |gain| − target in [lo, hi] (log10 f), per sample; f_lo, f_hi are the
-    function's values at the ends (opposite signs)."""
+    function's values at the ends (opposite signs). Each iteration solves only the
+    samples whose bracket is still wider than :data:`ROOT_TOL_LOG`."""
     a, b, fa, fb = lo.copy(), hi.copy(), f_lo.copy(), f_hi.copy()
     side = np.zeros(len(a), dtype=np.int8)
+    x = 0.5 * (a + b)
+    active = np.arange(len(a))
     for _ in range(100):
+        if active.size == 0:
+            break
+        i = active
         with np.errstate(divide="ignore", invalid="ignore"):
-            x = (a * fb - b * fa) / (fb - fa)
-        x = np.where(np.isfinite(x), x, 0.5 * (a + b))
-        fx = _gain_at(linear, x) - target
-        same_a = np.sign(fx) == np.sign(fa)
+            xi = (a[i] * fb[i] - b[i] * fa[i]) / (fb[i] - fa[i])
+        xi = np.where(np.isfinite(xi), xi, 0.5 * (a[i] + b[i]))
+        fx = _gain_at(linear.take(i), xi) - target[i]
+        same_a = np.sign(fx) == np.sign(fa[i])
         # replace the end whose sign fx shares; halve the other end's value when the
         # same end is kept twice running (Illinois)
-        a, fa, b, fb = (np.where(same_a, x, a), np.where(same_a, fx, fa),
-                        np.where(same_a, b, x), np.where(same_a, fb, fx))
-        keep_b = same_a & (side == 1)
-        keep_a = ~same_a & (side == -1)
-        fb = np.where(keep_b, 0.5 * fb, fb)
-        fa = np.where(keep_a, 0.5 * fa, fa)
-        side = np.where(same_a, 1, -1).astype(np.int8)
-        if np.all((np.abs(b - a) < ROOT_TOL_LOG) | (fx == 0.0)):
-            return x
+        a[i], fa[i], b[i], fb[i] = (np.where(same_a, xi, a[i]), np.where(same_a, fx, fa[i]),
+                                    np.where(same_a, b[i], xi), np.where(same_a, fb[i], fx))
+        keep_b = same_a & (side[i] == 1)
+        keep_a = ~same_a & (side[i] == -1)
+        fb[i] = np.where(keep_b, 0.5 * fb[i], fb[i])
+        fa[i] = np.where(keep_a, 0.5 * fa[i], fa[i])
+        side[i] = np.where(same_a, 1, -1).astype(np.int8)
+        x[i] = xi
+        done = (np.abs(b[i] - a[i]) < ROOT_TOL_LOG) | (fx == 0.0)
+        active = i[~done]
     return x
 
 
@@ -205,11 +214,47 @@ def _vertex(x: np.ndarray, g3: np.ndarray, h: float) -> np.ndarray:
     return x + np.where((bend < 0) & np.isfinite(step), np.clip(step, -h, h), 0.0)
 
 
+def _parabola_rounds(linear, best_x, best_g, h: float, rounds: int) -> tuple:
+    """``rounds`` parabola steps around the best point so far, each 16 times finer."""
+    for _ in range(rounds):
+        x3 = best_x[:, None] + h * np.array([-1.0, 0.0, 1.0])[None, :]
+        xv = _vertex(best_x, linear.response(10.0 ** x3).gain, h)
+        gv = _gain_at(linear, xv)
+        better = np.isfinite(gv) & (gv > best_g)
+        best_x, best_g = np.where(better, xv, best_x), np.where(better, gv, best_g)
+        h /= 16.0
+    return best_x, best_g
+
+
 def _peak_near(linear: LinearModel, x_hint: np.ndarray) -> tuple:
-    """Largest |gain| within :data:`NEAR_SPAN` decades of ``x_hint`` (log10 f): a grid
-    of :data:`NEAR_POINTS`, then :data:`NEAR_ROUNDS` parabola steps around the best point,
-    each with a step 16 times finer. Also returns where the gain still rises at the
-    grid's edge (the peak may lie outside the window)."""
+    """Largest |gain| near ``x_hint`` (log10 f). Where the gain at the hint is above its
+    neighbours :data:`NEAR_STEP` decades either side, the peak lies between them: two
+    parabola steps from there (:func:`_parabola_rounds`). Elsewhere a grid of
+    :data:`NEAR_POINTS` within :data:`NEAR_SPAN` decades, then :data:`NEAR_ROUNDS`
+    parabola steps. Also returns where the gain still rises at the grid's edge (the peak
+    may lie outside the window)."""
+    n = len(x_hint)
+    h = NEAR_STEP
+    x3 = x_hint[:, None] + h * np.array([-1.0, 0.0, 1.0])[None, :]
+    g3 = linear.response(10.0 ** x3).gain
+    local = (g3[:, 1] >= g3[:, 0]) & (g3[:, 1] >= g3[:, 2]) & np.all(np.isfinite(g3), axis=1)
+    best_x, best_g, edge = x_hint.copy(), g3[:, 1].copy(), np.zeros(n, dtype=bool)
+    if np.any(local):
+        i = np.flatnonzero(local)
+        sub = linear.take(i)
+        xv = _vertex(x_hint[i], g3[i], h)
+        gv = _gain_at(sub, xv)
+        up = np.isfinite(gv) & (gv > best_g[i])
+        start_x, start_g = np.where(up, xv, x_hint[i]), np.where(up, gv, best_g[i])
+        best_x[i], best_g[i] = _parabola_rounds(sub, start_x, start_g, h / 16.0, 1)
+    if not np.all(local):
+        i = np.flatnonzero(~local)
+        best_x[i], best_g[i], edge[i] = _peak_on_grid(linear.take(i), x_hint[i])
+    return best_x, best_g, edge
+
+
+def _peak_on_grid(linear: LinearModel, x_hint: np.ndarray) -> tuple:
+    """:func:`_peak_near` where the peak is not between the hint's neighbours."""
     n = len(x_hint)
     t = np.linspace(-NEAR_SPAN, NEAR_SPAN, NEAR_POINTS)
     x = x_hint[:, None] + t[None, :]
@@ -220,21 +265,15 @@ def _peak_near(linear: LinearModel, x_hint: np.ndarray) -> tuple:
     inner = np.max(g[:, 1:-1], axis=1)
     # still rising at the window's edge (not merely flat across it)
     edge = ((j == 0) | (j == NEAR_POINTS - 1)) & ~(best_g <= inner * (1.0 + 1e-9))
-    h = float(t[1] - t[0])
-    for _ in range(NEAR_ROUNDS):
-        x3 = best_x[:, None] + h * np.array([-1.0, 0.0, 1.0])[None, :]
-        xv = _vertex(best_x, linear.response(10.0 ** x3).gain, h)
-        gv = _gain_at(linear, xv)
-        better = np.isfinite(gv) & (gv > best_g)
-        best_x, best_g = np.where(better, xv, best_x), np.where(better, gv, best_g)
-        h /= 16.0
+    best_x, best_g = _parabola_rounds(linear, best_x, best_g, float(t[1] - t[0]), NEAR_ROUNDS)
     return best_x, best_g, edge
 
 
 def _root_near(linear, x_hint, x_peak, target, side: int) -> np.ndarray:
     """The −3 dB crossing on one side of the peak (side −1: below it, +1: above it),
-    bracketed between the peak and a point past ``x_hint`` (widened up to
-    :data:`NEAR_WIDENINGS` times); NaN where no bracket was found."""
+    bracketed between a point past ``x_hint`` (widened up to :data:`NEAR_WIDENINGS`
+    times) and one :data:`NEAR_BRACKET` decades from it towards the peak where the gain
+    there is above the target, else the peak; NaN where no bracket was found."""
     w = NEAR_BRACKET
     far = x_hint + side * w
     f_far = _gain_at(linear, far) - target
@@ -249,8 +288,14 @@ def _root_near(linear, x_hint, x_peak, target, side: int) -> np.ndarray:
     ok = f_far < 0.0
     if np.any(ok):
         sub = linear.take(np.flatnonzero(ok))
-        f_peak = _gain_at(sub, x_peak[ok]) - target[ok]
-        out[ok] = _illinois(sub, far[ok], x_peak[ok], f_far[ok], f_peak, target[ok])
+        peak = x_peak[ok]
+        step = x_hint[ok] - side * NEAR_BRACKET
+        near = np.minimum(step, peak) if side < 0 else np.maximum(step, peak)
+        f_near = _gain_at(sub, near) - target[ok]
+        above = f_near > 0.0
+        near = np.where(above, near, peak)
+        f_near = np.where(above, f_near, target[ok] * (math.sqrt(2.0) - 1.0))  # at the peak
+        out[ok] = _illinois(sub, far[ok], near, f_far[ok], f_near, target[ok])
     return out
 
 
