@@ -54,10 +54,13 @@ NEAR_SPAN = 1.0
 NEAR_STEP = 0.1
 """Decades either side of a hinted peak where :func:`corners_near` first looks."""
 NEAR_POINTS = 9
+FLAT_REL = 1e-12
+"""Gains this close (relative) are level: a flat mid-band's peak value is any of them."""
 NEAR_ROUNDS = 3
-NEAR_BRACKET = 0.25
-"""Decades past a hinted corner where :func:`corners_near` starts its bracket."""
-NEAR_WIDENINGS = 4
+NEAR_BRACKET = 0.02
+"""Decades past a hinted corner where :func:`corners_near` starts its bracket (widened
+four-fold up to :data:`NEAR_WIDENINGS` times)."""
+NEAR_WIDENINGS = 5
 INV_SQRT2 = 1.0 / math.sqrt(2.0)
 
 
@@ -237,7 +240,9 @@ def _peak_near(linear: LinearModel, x_hint: np.ndarray) -> tuple:
     h = NEAR_STEP
     x3 = x_hint[:, None] + h * np.array([-1.0, 0.0, 1.0])[None, :]
     g3 = linear.response(10.0 ** x3).gain
-    local = (g3[:, 1] >= g3[:, 0]) & (g3[:, 1] >= g3[:, 2]) & np.all(np.isfinite(g3), axis=1)
+    # the hint at least as high as both neighbours, to rounding (a flat mid-band)
+    local = (g3[:, 1] >= np.maximum(g3[:, 0], g3[:, 2]) * (1.0 - FLAT_REL)) & np.all(
+        np.isfinite(g3), axis=1)
     best_x, best_g, edge = x_hint.copy(), g3[:, 1].copy(), np.zeros(n, dtype=bool)
     if np.any(local):
         i = np.flatnonzero(local)
@@ -278,12 +283,12 @@ def _root_near(linear, x_hint, x_peak, target, side: int) -> np.ndarray:
     far = x_hint + side * w
     f_far = _gain_at(linear, far) - target
     for _ in range(NEAR_WIDENINGS):
-        open_ = ~(f_far < 0.0)
-        if not np.any(open_):
+        i = np.flatnonzero(~(f_far < 0.0))
+        if i.size == 0:
             break
-        w *= 2.0
-        far = np.where(open_, x_hint + side * w, far)
-        f_far = np.where(open_, _gain_at(linear, far) - target, f_far)
+        w *= 4.0
+        far[i] = x_hint[i] + side * w
+        f_far[i] = _gain_at(linear.take(i), far[i]) - target[i]
     out = np.full(len(x_hint), np.nan)
     ok = f_far < 0.0
     if np.any(ok):
