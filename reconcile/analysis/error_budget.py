@@ -111,12 +111,9 @@ def error_budget(fit: FitResult, *, rng: np.random.Generator | None = None) -> E
     draws = np.clip(draws, space.lower, space.upper)
     centres = np.vstack([fit.x[None, :], draws])  # (1 + D, P)
     nominal = np.array([p.to_internal(p.nominal) for p in space.parameters])
-    xs = []
-    for c in centres:
-        for mask in subsets:
-            use = np.array([g >= 0 and mask[g] for g in groups], dtype=bool)
-            xs.append(np.where(use, c, nominal))
-    xs = np.array(xs)
+    # (8, P): which parameters each partial board takes from the fit
+    use = (groups[None, :] >= 0) & np.array(subsets, dtype=bool)[:, np.maximum(groups, 0)]
+    xs = np.where(use[None, :, :], centres[:, None, :], nominal).reshape(-1, space.size)
     sol = solve_batch(circuit, space.to_parameters(xs))
     weights = _shapley_weights(len(GROUPS))
     index_of = {mask: i for i, mask in enumerate(subsets)}

@@ -185,7 +185,14 @@ class FitResult:
             return self.covariance / np.outer(sd, sd)
 
     def predicted_solution(self):
-        """The solve block of the fitted board."""
+        """The solve block of the fitted board (solved once, then kept: the JSON, the
+        next reading and the plots all ask for it)."""
+        kept = self.__dict__.get("_predicted_solution")
+        if kept is None:
+            kept = self.__dict__["_predicted_solution"] = self._solve_fitted()
+        return kept
+
+    def _solve_fitted(self):
         from reconcile.engine import solve_batch
         from reconcile.engine.solution import BoardSolution, board_warnings
 

@@ -2,11 +2,20 @@
 
     python tests/benchmarks/bench_fit.py [REPEATS]
 
-prints one JSON object of timings (seconds): the median of REPEATS runs of one fit
-(the invented line receiver, 8 simulated readings), of its error budget and of the
-next-reading suggestion, each after imports and one warm-up run. :func:`run` returns the
-same dict for a project-wide benchmark runner. Target, reported and not asserted: a fit
-within 20 ms.
+prints one JSON object of timings in CPU seconds of this process (``time.process_time``,
+so other work on a shared machine inflates them less than wall time): the median of
+REPEATS runs, each after imports and one warm-up run, on the invented line receiver with
+10 simulated readings.
+
+What the issue's target covers: ``fit_s`` is :func:`reconcile.inference.fitting.fit_board`
+alone (the MAP fit by lmfit, its covariance and the readings' verdict), the same call the
+fit-growth benchmark times on the cascades; the target is a fit within 20 ms. The
+``fit`` command computes more than that in-process, and the benchmark says so apart:
+``error_budget_s`` and ``next_reading_s`` are its other two steps, and ``command_s`` is
+all the command computes once its inputs are read: the pipeline's ``run_fit`` (fit,
+error budget, next readings) and the outcome's JSON (``to_dict``, the fitted board's
+solution included). Imports and process start-up are the start-up benchmark's.
+:func:`run` returns the same dict for the project-wide runner.
 """
 
 from __future__ import annotations
@@ -25,30 +34,34 @@ from reconcile.inference.fitting import fit_board
 from reconcile.analysis.error_budget import error_budget
 from reconcile.analysis.next_reading import suggest_next
 from reconcile.inference.simulate import full_plan, simulate_readings
+from reconcile.pipeline.analyses import run_fit
 
 BOARD = Path(__file__).resolve().parents[2] / "sample_data" / "line_receiver_cb.toml"
 FIT_TARGET_S = 0.020
 
 
 def _median_time(fn: Any, repeats: int) -> tuple[float, Any]:
-    result = fn()  # warm-up
+    """The median CPU time of ``fn()`` over ``repeats`` runs after one warm-up."""
+    result = fn()
     times = []
     for _ in range(repeats):
-        start = time.perf_counter()
+        start = time.process_time()
         result = fn()
-        times.append(time.perf_counter() - start)
+        times.append(time.process_time() - start)
     return statistics.median(times), result
 
 
 def run(repeats: int = 15) -> dict[str, Any]:
-    """Time fit, error budget and next reading.
+    """Time the fit, its error budget, its next reading and the whole in-process work of
+    the ``fit`` command.
 
     Returns
     -------
     dict
-        ``fit_s``, ``error_budget_s``, ``next_reading_s`` (medians, seconds), the fit's
-        ``evaluations`` (model evaluations, Jacobian columns counted), ``readings``,
-        ``parameters``, ``repeats``, ``fit_target_s`` and ``fit_meets_target``.
+        ``fit_s``, ``error_budget_s``, ``next_reading_s``, ``command_s`` (medians, CPU
+        seconds), the fit's ``evaluations`` (model evaluations, Jacobian columns
+        counted), ``readings``, ``parameters``, ``repeats``, ``fit_target_s`` and
+        ``fit_meets_target`` (the target is the fit's alone, ``fit_s``).
     """
     board = load_board(BOARD)
     plan = full_plan(board) + [("resistance", "RE")]
@@ -59,15 +72,18 @@ def run(repeats: int = 15) -> dict[str, Any]:
         raise RuntimeError(f"benchmark fit did not converge: {fit.message}")
     budget_s, _ = _median_time(lambda: error_budget(fit), repeats)
     next_s, _ = _median_time(lambda: suggest_next(fit), repeats)
+    command_s, _ = _median_time(lambda: run_fit(board, readings).to_dict(), repeats)
     return {
         "board": BOARD.name,
         "readings": len(readings),
         "parameters": fit.space.size,
         "evaluations": fit.evaluations,
         "repeats": repeats,
+        "clock": "process CPU seconds",
         "fit_s": round(fit_s, 5),
         "error_budget_s": round(budget_s, 5),
         "next_reading_s": round(next_s, 5),
+        "command_s": round(command_s, 5),
         "fit_target_s": FIT_TARGET_S,
         "fit_meets_target": fit_s <= FIT_TARGET_S,
     }
