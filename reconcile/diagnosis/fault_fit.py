@@ -524,10 +524,7 @@ def fit_faults(
         group = base.expanded(start_owner)
         found, pruned = _minimise(group, x0, max_iterations, start_owner, reference_chi2)
         x, jac, iterations = found.x, found.jacobian, found.iterations
-        owner = np.arange(len(start_owner))
-        pred, sol_all = group.evaluate(x, owner, small_signal=True)
-        finite = np.all(np.isfinite(pred), axis=1)
-        cost = group.cost(x, pred, owner)
+        pred, cost, finite, sols = _end_points(group, x, start_owner, pruned)
         # Of a hypothesis's starts keep the best usable end point (a pruned start only
         # when it is all there is).
         usable = np.where(finite & ~pruned, cost, np.inf)
@@ -536,18 +533,14 @@ def fit_faults(
             rows = np.nonzero(start_owner == m)[0]
             pick = usable[rows] if np.isfinite(usable[rows]).any() else cost[rows]
             picked.append(int(rows[int(np.argmin(pick))]))
-        # The engine solution of each picked row: from the call above when it fitted in
-        # one, else the picked rows solved again in budget chunks.
-        if sol_all is not None:
-            sols = {k: (sol_all, k) for k in picked}
-        else:
-            sols = {}
-            picked_rows = np.array(picked, dtype=np.intp)
-            for sl in chunks(len(picked_rows), group.model.rows_per_call()):
-                sub = picked_rows[sl]
-                _, sol = group.evaluate(x[sub], sub, small_signal=True)
-                for j, k in enumerate(sub):
-                    sols[int(k)] = (sol, j)
+        # The engine solution of each picked row: from the calls above when they fitted
+        # in one, else the picked rows solved again in budget chunks.
+        missing = np.array([k for k in picked if k not in sols], dtype=np.intp)
+        for sl in chunks(len(missing), group.model.rows_per_call()):
+            sub = missing[sl]
+            _, sol = group.evaluate(x[sub], sub, small_signal=True)
+            for j, k in enumerate(sub):
+                sols[int(k)] = (sol, j)
         for m, i in enumerate(members):
             k = picked[m]
             status = "no-operating-point" if not finite[k] else str(found.status[k])
@@ -555,6 +548,33 @@ def fit_faults(
             out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
                              int(iterations[k]), sol, j)
     return [o for o in out if o is not None]
+
+
+def _end_points(group: _Group, x: np.ndarray, start_owner: np.ndarray, pruned: np.ndarray):
+    """Predictions, objectives and finite-prediction flags at the end points the pick
+    of :func:`fit_faults` can use, and the engine solutions of those evaluated in one
+    call (row → (solution, position)). The starts that went on are evaluated; a pruned
+    start only where every start of its hypothesis that went on has no operating point
+    (each row's solve is its own, so the others' figures are as if all were solved);
+    the rest keep NaN predictions and an infinite objective."""
+    n = len(start_owner)
+    pred = np.full((n, len(group.measured)), np.nan)
+    cost = np.full(n, np.inf)
+    sols: dict[int, tuple[BatchSolution, int]] = {}
+
+    def run(rows: np.ndarray) -> None:
+        if not len(rows):
+            return
+        p, sol = group.evaluate(x[rows], rows, small_signal=True)
+        pred[rows], cost[rows] = p, group.cost(x[rows], p, rows)
+        if sol is not None:
+            sols.update({int(k): (sol, j) for j, k in enumerate(rows)})
+
+    run(np.flatnonzero(~pruned))
+    finite = np.all(np.isfinite(pred), axis=1)
+    lacking = [o for o in np.unique(start_owner) if not finite[(start_owner == o) & ~pruned].any()]
+    run(np.flatnonzero(pruned & np.isin(start_owner, lacking)))
+    return pred, cost, np.all(np.isfinite(pred), axis=1), sols
 
 
 def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
