@@ -34,6 +34,9 @@ prior mean) by its initial objective. A wrong value (a widened prior) starts in
 addition at every decade of its ±3-decade range, since its objective can have a
 minimum per decade and which one is lowest shows only once the other parameters have
 followed; after :data:`PRUNE_AFTER` iterations only the best :data:`KEEP_STARTS` go on.
+The best initial objective does not always lie on the quickest path: a hypothesis that
+ends ``iteration-limit`` or ``stalled`` is fitted again from each seed it did not start
+from, and keeps the lower end (:func:`_retry_stuck`).
 
 No hypothesis is dropped. Each is minimised until the core's convergence test holds,
 :data:`MAX_ITERATIONS` run out, or it is *bounded*: the one early stop. The core keeps
@@ -348,7 +351,8 @@ class _Group:
 def _seed_starts(
     group: _Group, seeds: list[np.ndarray], own_seeds: list[list[np.ndarray]] | None = None
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Starting points and the hypothesis each belongs to.
+    """Starting points, the hypothesis each belongs to, and which seed each hypothesis
+    starts from (its index in ``seeds``, then its own seeds).
 
     Every hypothesis starts from its best seed by initial objective (for a widened
     parameter, over a half-decade grid too). One with a widened parameter (a wrong
@@ -361,26 +365,31 @@ def _seed_starts(
     keys = group.space.keys
     cands: list[np.ndarray] = []
     owners: list[int] = []
+    origin: list[int] = []  # the seed (index into seeds, then own seeds) of each candidate
     for i, f in enumerate(group.faults):
         widened = [keys.index(k) for k, _ in f.widened]
-        for seed in seeds + (own_seeds[i] if own_seeds else []):
+        for n, seed in enumerate(seeds + (own_seeds[i] if own_seeds else [])):
             cands.append(seed)
             owners.append(i)
+            origin.append(n)
             for j in widened:
                 for off in GRID_HALF_DECADES:
                     x = seed.copy()
                     x[j] = group.mu[i, j] + off
                     cands.append(x)
                     owners.append(i)
+                    origin.append(n)
     xs = np.clip(np.array(cands), group.lower, group.upper)
     own = np.array(owners)
     pred, _ = group.evaluate(xs, own, record=False, small_signal=False)
     cost = group.cost(xs, pred, own)
     cost = np.where(np.isfinite(cost), cost, np.inf)
-    starts, start_owner = [], []
+    starts, start_owner, chosen = [], [], []
     for i, f in enumerate(group.faults):
         rows = np.nonzero(own == i)[0]
-        best = xs[int(rows[int(np.argmin(cost[rows]))])]
+        top = int(rows[int(np.argmin(cost[rows]))])
+        best = xs[top]
+        chosen.append(origin[top])
         starts.append(best)
         start_owner.append(i)
         for key, _ in f.widened:
@@ -391,7 +400,7 @@ def _seed_starts(
                 if abs(x[j] - best[j]) > 0.5 * np.log(10.0):
                     starts.append(x)
                     start_owner.append(i)
-    return np.array(starts), np.array(start_owner)
+    return np.array(starts), np.array(start_owner), chosen
 
 
 def _stops(start_owner: np.ndarray, reference: float):
@@ -484,6 +493,7 @@ def fit_faults(
     max_iterations: int = MAX_ITERATIONS,
     own_seeds: list[list[np.ndarray]] | None = None,
     reference_chi2: float = np.inf,
+    retry: bool = True,
 ) -> list[FaultFit]:
     """Fit every hypothesis in ``faults`` to the observations.
 
@@ -506,6 +516,10 @@ def fit_faults(
     reference_chi2
         The best objective known from outside these hypotheses (the ``none`` fit's),
         against which a hypothesis may be bounded (:data:`BOUND_MARGIN`).
+    retry
+        With several ``seeds``, a hypothesis that ran out of iterations or stalled is
+        fitted again from each seed on its own (:func:`_retry_stuck`), and keeps the
+        better end.
 
     Returns
     -------
@@ -517,10 +531,13 @@ def fit_faults(
     for i, f in enumerate(faults):
         order.setdefault(id(f.board), []).append(i)
     out: list[FaultFit | None] = [None] * len(faults)
+    seed_of: dict[int, int] = {}  # the seed each hypothesis started from
     for members in order.values():
         base = _Group(faults[members[0]].board, [faults[i] for i in members], observations, space)
         mine = [own_seeds[i] for i in members] if own_seeds else None
-        x0, start_owner = _seed_starts(base, [np.asarray(s, dtype=float) for s in seeds], mine)
+        x0, start_owner, chosen = _seed_starts(
+            base, [np.asarray(s, dtype=float) for s in seeds], mine)
+        seed_of.update(zip(members, chosen, strict=True))
         group = base.expanded(start_owner)
         found, pruned = _minimise(group, x0, max_iterations, start_owner, reference_chi2)
         x, jac, iterations = found.x, found.jacobian, found.iterations
@@ -547,7 +564,37 @@ def fit_faults(
             sol, j = sols[k]
             out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
                              int(iterations[k]), sol, j)
-    return [o for o in out if o is not None]
+    done = [o for o in out if o is not None]
+    if retry and len(seeds) > 1:
+        done = _retry_stuck(done, [seed_of[i] for i in range(len(done))], observations,
+                            space, seeds, max_iterations, reference_chi2)
+    return done
+
+
+STUCK = ("iteration-limit", "stalled")
+"""End states of a hypothesis that say only that its minimum lies at or below its χ²."""
+
+
+def _retry_stuck(fits: list[FaultFit], seed_of: list[int], observations, space, seeds,
+                 max_iterations, reference_chi2) -> list[FaultFit]:
+    """Each hypothesis of ``fits`` that ended :data:`STUCK` fitted again from each of the
+    other ``seeds`` (not the one it started from, ``seed_of``), keeping whichever end is
+    lower. A hypothesis starts from the seed with the lowest initial objective, and that
+    is not always the one whose path reaches the minimum within the iterations: with
+    sharp readings a hypothesis started from the ``none`` fit can crawl to a χ² of
+    hundreds where one started from the drawing converges to a few."""
+    out = list(fits)
+    for n, seed in enumerate(seeds):
+        again_of = [i for i, ft in enumerate(fits) if ft.status in STUCK and seed_of[i] != n]
+        if not again_of:
+            continue
+        again = fit_faults([fits[i].fault for i in again_of], observations, space,
+                           seeds=[seed], max_iterations=max_iterations,
+                           reference_chi2=reference_chi2, retry=False)
+        for i, ft in zip(again_of, again, strict=True):
+            if ft.chi_square < out[i].chi_square:
+                out[i] = ft
+    return out
 
 
 def _end_points(group: _Group, x: np.ndarray, start_owner: np.ndarray, pruned: np.ndarray):
