@@ -14,6 +14,8 @@ Figures:
   board in chunks, yield, spreads, rank correlations), with the numpy path and with the
   compiled ``[fast]`` kernel (``RECONCILE_KERNEL=numba``; null without numba); best of 2
   after a warm-up (which also loads the compiled code, so its load time is not counted);
+  wall and CPU seconds of this process (``boards_per_cpu_s``: what a loaded machine
+  changes least; ``fast_over_numpy_cpu`` compares the two paths by it);
 - ``floor_lapack``: ``numpy.linalg.solve`` on four 6×6 real systems per board (the
   preamp's free-node system size), N boards, the same stack shape the numpy path uses:
   the cost of the linear algebra alone, before any device equation;
@@ -54,12 +56,17 @@ TARGET_HELP_S = 0.3
 STAGES = (1, 2, 4, 8, 16)
 
 
-def _best_time(fn, repeats: int = 2) -> float:
-    times = []
+def _best_time(fn, repeats: int = 2, cpu: dict | None = None) -> float:
+    """Best wall time of ``repeats`` runs; with ``cpu``, its ``"seconds"`` gets the best
+    CPU time of this process (what a loaded machine changes least)."""
+    times, cpu_times = [], []
     for _ in range(repeats):
-        start = time.perf_counter()
+        start, start_cpu = time.perf_counter(), time.process_time()
         fn()
         times.append(time.perf_counter() - start)
+        cpu_times.append(time.process_time() - start_cpu)
+    if cpu is not None:
+        cpu["seconds"] = min(cpu_times)
     return min(times)
 
 
@@ -74,6 +81,7 @@ def bench_samples(n: int, mode: str) -> dict | None:
     board = load_board(BOARD_PATH)
     old = os.environ.get(kernel.ENV)
     os.environ[kernel.ENV] = mode
+    cpu: dict = {}
     try:
         design_samples(board, 20_000, seed=1)  # warm-up (and, for numba, the cache load)
         out = {}
@@ -81,7 +89,7 @@ def bench_samples(n: int, mode: str) -> dict | None:
         def once() -> None:
             out["r"] = design_samples(board, n, seed=0)
 
-        seconds = _best_time(once)
+        seconds = _best_time(once, cpu=cpu)
     finally:
         if old is None:
             os.environ.pop(kernel.ENV, None)
@@ -92,6 +100,8 @@ def bench_samples(n: int, mode: str) -> dict | None:
         "boards": n,
         "seconds_best_of_2": seconds,
         "boards_per_s": n / seconds,
+        "cpu_seconds_best_of_2": cpu["seconds"],
+        "boards_per_cpu_s": n / cpu["seconds"],
         "yield": r.yield_fraction,
         "unsolved": r.unsolved,
     }
@@ -107,9 +117,11 @@ def bench_floor(n: int, systems_per_board: int = 4, size: int = 6) -> dict:
         for _ in range(systems_per_board * n // chunk):
             np.linalg.solve(a, b)
 
-    seconds = _best_time(once)
+    cpu: dict = {}
+    seconds = _best_time(once, cpu=cpu)
     return {"boards": n, "systems_per_board": systems_per_board, "size": size,
-            "seconds_best_of_2": seconds, "boards_per_s": n / seconds}
+            "seconds_best_of_2": seconds, "boards_per_s": n / seconds,
+            "cpu_seconds_best_of_2": cpu["seconds"], "boards_per_cpu_s": n / cpu["seconds"]}
 
 
 # ------------------------------------------------------------------ the baseline
@@ -347,6 +359,7 @@ def run(n_samples: int = 400_000, n_loop: int = 300, n_growth: int = 10_000) -> 
         return {
             "over_loop": fig["boards_per_s"] / loop["boards_per_s"],
             "over_floor": fig["boards_per_s"] / floor["boards_per_s"],
+            "over_floor_cpu": fig["boards_per_cpu_s"] / floor["boards_per_cpu_s"],
         }
 
     return {
@@ -357,6 +370,8 @@ def run(n_samples: int = 400_000, n_loop: int = 300, n_growth: int = 10_000) -> 
         "loop_fsolve": loop,
         "ratios_numpy": ratios(numpy_path),
         "ratios_fast": ratios(fast_path),
+        "fast_over_numpy_cpu": None if fast_path is None
+        else fast_path["boards_per_cpu_s"] / numpy_path["boards_per_cpu_s"],
         "growth": growth,
         "cli_help": cli,
         "targets": {
