@@ -17,7 +17,8 @@ least :data:`COMPILED_FROM_BATCH` boards on boards under
 :data:`reconcile.engine.sparse.SPARSE_FROM_NODES` free nodes, ``numba-all`` for every
 call (the tests). Measured side by side (``tests/benchmarks/bench_engine.py``, README's
 benchmark table) it is faster but short of the 1 000 000 boards/s that would make it
-the default; loading the compiled code costs about 0.5 s per process. Compiled code is
+the default; loading the compiled code costs 0.5–0.8 s per process, so a run pays for it
+only from a few hundred thousand boards. Compiled code is
 cached in the user's cache folder (``platformdirs.user_cache_dir("reconcile")/numba``).
 """
 
