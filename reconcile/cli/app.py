@@ -473,10 +473,11 @@ def report(
     import tempfile
 
     from reconcile.pipeline.inputs import AnalysisOptions
-    from reconcile.present.report import build_report, write_report
+    from reconcile.present.report import build_report, prepare_report_path, write_report
 
     inputs = _gather(board, readings, session, store, "report",
                      AnalysisOptions(assume=tuple(assume or ())))
+    prepare_report_path(out)  # before the seconds of analysis, not after
     meta = None
     if session is not None:
         from reconcile.store.sessions import show_session

@@ -19,6 +19,7 @@ from reconcile.present import numbers
 from reconcile.pipeline.report import SECTIONS, ReportData, board_as_read, collect_report
 
 __all__ = ["CAUTIONS", "SECTIONS", "ReportData", "build_report", "draw_figures",
+           "prepare_report_path",
            "render_html", "write_report"]
 
 CAUTIONS = (
@@ -468,6 +469,27 @@ def render_html(d: ReportData) -> str:
         f"<div class='caution'><strong>Bench safety.</strong> {_e(CAUTIONS)}</div>"
         f"{body}</body></html>"
     )
+
+
+def prepare_report_path(path: Path) -> Path:
+    """Make the report's folder before the analysis runs (it takes seconds), so a path
+    that cannot be written fails at once, with the same one-line error as the write.
+
+    Raises
+    ------
+    OSError
+        The folder cannot be made (a file stands in its way), the path is a folder, or
+        the folder is not writable.
+    """
+    import errno
+    import os
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    if path.is_dir():
+        raise IsADirectoryError(errno.EISDIR, "is a folder, not a file", str(path))
+    if not os.access(path.parent, os.W_OK):
+        raise PermissionError(errno.EACCES, "cannot write in this folder", str(path.parent))
+    return path
 
 
 def write_report(d: ReportData, path: Path) -> Path:
