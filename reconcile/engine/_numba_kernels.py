@@ -36,6 +36,20 @@ def _limit(v_new, v_old, n_vt, v_crit):
 
 
 @numba.njit(**_OPTS)
+def _back_substitute(a, b):
+    """b ← U⁻¹ b in place, U the upper triangle of ``a`` after elimination."""
+    n = a.shape[0]
+    k = b.shape[1]
+    for col in range(n - 1, -1, -1):
+        inv = 1.0 / a[col, col]
+        for j in range(k):
+            s = b[col, j]
+            for c in range(col + 1, n):
+                s -= a[col, c] * b[c, j]
+            b[col, j] = s * inv
+
+
+@numba.njit(**_OPTS)
 def _lu_solve(a, b):
     """Solve a x = b in place (a: n×n, b: n×k), partial pivoting; False if singular."""
     n = a.shape[0]
@@ -67,13 +81,7 @@ def _lu_solve(a, b):
                     a[r, j] -= f * a[col, j]
                 for j in range(k):
                     b[r, j] -= f * b[col, j]
-    for col in range(n - 1, -1, -1):
-        inv = 1.0 / a[col, col]
-        for j in range(k):
-            s = b[col, j]
-            for c in range(col + 1, n):
-                s -= a[col, c] * b[c, j]
-            b[col, j] = s * inv
+    _back_substitute(a, b)
     return True
 
 
@@ -96,13 +104,7 @@ def _lu_solve_diagonal(a, b):
                     a[r, j] -= f * a[col, j]
                 for j in range(k):
                     b[r, j] -= f * b[col, j]
-    for col in range(n - 1, -1, -1):
-        inv = 1.0 / a[col, col]
-        for j in range(k):
-            s = b[col, j]
-            for c in range(col + 1, n):
-                s -= a[col, c] * b[c, j]
-            b[col, j] = s * inv
+    _back_substitute(a, b)
     return True
 
 
