@@ -139,6 +139,13 @@ def test_lot_sweeps_with_absurd_vbe_ic_or_uncertainty_are_refused(tmp_path, colu
     _refused("lot", str(path), names=f"{path}:{first + 1}:")
 
 
+@pytest.mark.parametrize("current", ["1e308", "11", "0", "-1m"])
+def test_a_matching_current_beyond_the_current_range_is_refused(current):
+    # the quantity registry's current range (±10 A) bounds a matching current too; 1e308
+    # once overflowed in VBE's ln(I/IS)
+    _refused("lot", str(SWEEPS), "--current", current, "--json", names="[--current]")
+
+
 def test_reading_uncertainty_1e_200_is_refused_at_load(tmp_path):
     path = tmp_path / "bench.csv"
     path.write_text(READINGS.read_text(encoding="utf-8").replace("voltage,b,1.2458,V,,",

@@ -44,6 +44,7 @@ import numpy as np
 from reconcile.lot import stats as lot_stats
 from reconcile.model.board import Board
 from reconcile.model.kinds import LotMode, Polarity
+from reconcile.model.quantities import REGISTRY
 from reconcile.errors import InputError, InputErrors
 from reconcile.data.readings import Reading
 from reconcile.data.sweep_file import SweepSet
@@ -85,6 +86,10 @@ def parse_bins(value: str | Sequence[float] | None) -> tuple[float, ...] | None:
     return edges
 
 
+_MAX_AMPS = REGISTRY["current"].value_range[1]
+"""The largest current a reading may hold (the quantity registry's range)."""
+
+
 @dataclass(frozen=True)
 class LotOptions:
     """How the lot is judged.
@@ -113,8 +118,8 @@ class LotOptions:
              "the VBE limit must be a positive voltage"),
             ("--beta-ratio", self.beta_ratio >= 1 and math.isfinite(self.beta_ratio),
              "the beta ratio limit must be at least 1"),
-            ("--current", self.current_a > 0 and math.isfinite(self.current_a),
-             "the matching current must be a positive current"),
+            ("--current", 0 < self.current_a <= _MAX_AMPS,
+             f"the matching current must be a positive current up to {_MAX_AMPS:g} A"),
             ("--set-size", isinstance(self.set_size, int) and self.set_size >= 2,
              "a matched set has at least two devices"),
             ("--device-name", bool(_NAME.match(self.device_name)),
