@@ -50,18 +50,22 @@ def _back_substitute(a, b):
 
 
 @numba.njit(**_OPTS)
-def _lu_solve(a, b):
-    """Solve a x = b in place (a: n×n, b: n×k), partial pivoting; False if singular."""
+def _lu_solve(a, b, pivot):
+    """Solve a x = b in place (a: n×n, b: n×k); False at a pivot that is zero or not
+    finite. With ``pivot`` partial pivoting; without, the pivots are taken on the
+    diagonal with no row exchanges (the numpy path's fixed-pattern order,
+    :mod:`reconcile.engine.sparse`; a caller falls back to pivoting when it fails)."""
     n = a.shape[0]
     k = b.shape[1]
     for col in range(n):
         piv = col
         best = abs(a[col, col])
-        for r in range(col + 1, n):
-            m = abs(a[r, col])
-            if m > best:
-                best = m
-                piv = r
+        if pivot:
+            for r in range(col + 1, n):
+                m = abs(a[r, col])
+                if m > best:
+                    best = m
+                    piv = r
         if not best > 0.0 or not math.isfinite(best):
             return False
         if piv != col:
@@ -86,29 +90,6 @@ def _lu_solve(a, b):
 
 
 @numba.njit(**_OPTS)
-def _lu_solve_diagonal(a, b):
-    """As :func:`_lu_solve` with the pivots taken on the diagonal, no row exchanges (the
-    numpy path's fixed-pattern order, :mod:`reconcile.engine.sparse`); False at a pivot
-    that is zero or not finite (the caller then solves with :func:`_lu_solve`)."""
-    n = a.shape[0]
-    k = b.shape[1]
-    for col in range(n):
-        piv = a[col, col]
-        if not abs(piv) > 0.0 or not math.isfinite(abs(piv)):
-            return False
-        inv = 1.0 / piv
-        for r in range(col + 1, n):
-            f = a[r, col] * inv
-            if f != 0.0:
-                for j in range(col + 1, n):
-                    a[r, j] -= f * a[col, j]
-                for j in range(k):
-                    b[r, j] -= f * b[col, j]
-    _back_substitute(a, b)
-    return True
-
-
-@numba.njit(**_OPTS)
 def solve_stack(a, b, out):
     """out[i] = solve(a[i], b[i]) for a stack (M, n, n) and (M, n, k); NaN where singular.
     ``a`` and ``b`` are left unchanged."""
@@ -116,7 +97,7 @@ def solve_stack(a, b, out):
     for i in range(m):
         ai = a[i].copy()
         bi = b[i].copy()
-        if _lu_solve(ai, bi):
+        if _lu_solve(ai, bi, True):
             out[i] = bi
         else:
             out[i] = np.nan
@@ -232,10 +213,10 @@ def newton_dc(
                     limited = limited or l1 or l2
             _assemble(s, vbe, vbc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, a, b)
             it += 1
-            if not _lu_solve_diagonal(a, b):
+            if not _lu_solve(a, b, False):
                 _assemble(s, vbe, vbc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va,
                           a, b)
-                if not _lu_solve(a, b):
+                if not _lu_solve(a, b, True):
                     break
             small = True
             finite = True
@@ -321,7 +302,7 @@ def two_port(board_of, omega, jac, cap_rows, cap_f, dev_rows, c_mu, c_pi, probe_
                 rhs[i, 1] = 0.0
             rhs[i_in, 0] = 1.0
             rhs[i_out, 1] = 1.0
-            solved = _lu_solve_diagonal(y, rhs) if attempt == 0 else _lu_solve(y, rhs)
+            solved = _lu_solve(y, rhs, attempt > 0)
             if solved:
                 break
         if solved:
