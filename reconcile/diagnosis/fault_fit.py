@@ -232,7 +232,6 @@ class _Group:
         """``params`` with each row's hypothesis applied (its engine overrides), ``owner``
         (one per row of ``params``) saying whose row it is."""
         changed: dict[str, np.ndarray] = {}
-        within = np.arange(len(owner)) % self.model.group  # each row's place in its group
         for i in np.unique(owner):
             ovr = self.faults[int(i)].overrides
             if not ovr:
@@ -243,11 +242,6 @@ class _Group:
                 if arr is None:
                     arr = changed[name] = getattr(params, name).copy()
                 arr[rows, col] = value
-                if name == "resistor_ohms":
-                    # the ammeter stays in series with the held resistor on its own board
-                    meter = self.model.ammeter_row(self.model.circuit.resistor_refs[col])
-                    if meter is not None:
-                        arr[rows & (within == meter), col] += self.model.board.bench.ammeter_ohms
         return replace(params, **changed) if changed else params
 
     def _solve(self, x: np.ndarray, owner: np.ndarray, small_signal: bool):
@@ -258,7 +252,10 @@ class _Group:
         has rpi = 1/0): the engine's infinities pass quietly; callers handle non-finite
         predictions."""
         g = self.model.group
-        params = self._with_faults(self.model.parameters(x), np.repeat(owner, g))
+        # the hypothesis changes the boards, then the meters go on (an ammeter stays in
+        # series with a held resistor)
+        rows_owner = np.repeat(owner, g)
+        params = self.model.parameters(x, lambda p: self._with_faults(p, rows_owner))
         rows = np.arange(len(x)) * g if small_signal else False
         with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
             return solve_batch(self.model.circuit, params, self._initial(owner),

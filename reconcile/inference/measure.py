@@ -193,10 +193,16 @@ class MeasurementModel:
         :attr:`group` boards; the solution is held while the predictions are read)."""
         return rows_per_chunk(self.group * bytes_per_board(self.circuit), share=0.5)
 
-    def parameters(self, x: np.ndarray):
-        """Engine parameters for M internal vectors: M·group rows."""
+    def parameters(self, x: np.ndarray, board_change=None):
+        """Engine parameters for M internal vectors: M·group rows.
+
+        ``board_change(p)``, if given, changes the boards themselves (M·group rows, e.g.
+        a fault hypothesis holding a resistor) before the meters are attached, so the
+        voltmeter and the ammeter's burden are added to the board as changed."""
         x = np.atleast_2d(x)
         p = self.space.to_parameters(x, self.base).repeat(self.group)
+        if board_change is not None:
+            p = board_change(p)
         if self.probes:
             g = 1.0 / self.board.bench.voltmeter_ohms
             probe = np.zeros((x.shape[0] * self.group, len(self.probes)))
@@ -212,15 +218,6 @@ class MeasurementModel:
                 ohms[rows, self.circuit.resistor_refs.index(ref)] += self.board.bench.ammeter_ohms
             p = p.with_values(resistor_ohms=ohms)
         return p
-
-    def ammeter_row(self, ref: str) -> int | None:
-        """The row within each group of the board with the ammeter in series with
-        resistor ``ref`` (its burden ``bench.ammeter_ohms`` added to that resistor), or
-        None when no current is read through ``ref``. A caller that overrides the
-        resistor's value (a fault hypothesis) adds the burden back on this row."""
-        if ref not in self.ammeters:
-            return None
-        return 1 + len(self.probes) + self.ammeters.index(ref)
 
     def _signal_rows(self, m: int) -> np.ndarray:
         """Rows of M groups whose small-signal results a prediction reads: the board
