@@ -59,8 +59,8 @@ class JigFit:
     ``observations`` (NaN where a device lacks that reading); ``objective`` the whole
     minimised sum (readings plus prior rows); ``chi_square`` the readings' χ² alone on
     ``dof``, the device's readings less the parameters they inform, and ``p_value`` its
-    upper tail, with ``prior_penalty`` beside it: the verdict convention of
-    :mod:`reconcile.inference.readings_verdict`, the same as a board's fit.
+    upper tail: the verdict convention of :mod:`reconcile.inference.readings_verdict`,
+    the same as a board's fit.
     """
 
     board: Board
@@ -78,7 +78,6 @@ class JigFit:
     chi_square: np.ndarray
     dof: np.ndarray
     p_value: np.ndarray
-    prior_penalty: np.ndarray
     converged: np.ndarray
     at_bound: np.ndarray
     iterations: np.ndarray
@@ -250,7 +249,7 @@ def fit_jig(
         x=x, covariance=cov, measured=meas, predicted=predicted, uncertainty=unc,
         objective=cost, chi_square=np.array([v.chi_square for v in verdicts]),
         dof=np.array([v.dof for v in verdicts]), p_value=np.array([v.p_value for v in verdicts]),
-        prior_penalty=np.array([v.prior_penalty for v in verdicts]), converged=converged,
+        converged=converged,
         at_bound=at_bound, iterations=iterations, engine_calls=calls[0],
         temperature_k=float(jig.temperature),
     )
