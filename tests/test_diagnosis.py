@@ -92,14 +92,19 @@ def _inject(board: Board, ref: str, kind: str, factor: float = 1.0) -> Board:
     return board.replace_part(dataclasses.replace(q, c=q.e, e=q.c))
 
 
-def _readings(board: Board, temperature: float, plan, rng) -> list[Reading]:
-    """Readings of ``board`` with default uncertainties (gain floored) and, with
-    ``rng``, that much Gaussian noise."""
+def _default_u(r: Reading) -> float:
+    """A reading's default uncertainty, a gain's floored at ``GAIN_FLOOR``."""
+    u = default_uncertainty(r) if r.value != 0 else 1e-6
+    return math.hypot(u, GAIN_FLOOR) if r.quantity == "gain" else u
+
+
+def _readings(board: Board, temperature: float, plan, rng, uncertainty=_default_u
+              ) -> list[Reading]:
+    """Readings of ``board`` with ``uncertainty(reading)`` each (default uncertainties,
+    gain floored) and, with ``rng``, that much Gaussian noise."""
     out = []
     for r in simulate_readings(board, plan, temperature=temperature):
-        u = default_uncertainty(r) if r.value != 0 else 1e-6
-        if r.quantity == "gain":
-            u = math.hypot(u, GAIN_FLOOR)
+        u = uncertainty(r)
         value = r.value + (u * rng.standard_normal() if rng is not None else 0.0)
         if r.quantity == "gain":
             value = abs(value)  # an rms ratio reads as a magnitude: noise folds at zero

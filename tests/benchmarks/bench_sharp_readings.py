@@ -24,7 +24,6 @@ Sharp readings are what a 6½-digit bench meter and a careful gain measurement g
 
 from __future__ import annotations
 
-import dataclasses
 import json
 import math
 import sys
@@ -57,27 +56,26 @@ def _rules() -> dict:
     }
 
 
-def sharp_readings(board, temperature: float, plan, rng) -> list:
-    """Readings of ``board`` with the sharp uncertainties above and that much seeded
-    Gaussian noise (a gain reads as a magnitude: noise folds at zero)."""
+def sharp_uncertainty(r) -> float:
+    """The sharp standard uncertainty of reading ``r`` (the module docstring)."""
     from reconcile.data.readings import default_uncertainty
-    from reconcile.inference.simulate import simulate_readings
 
-    rules = _rules()
-    out = []
-    for r in simulate_readings(board, plan, temperature=temperature):
-        if r.quantity in rules:
-            u = rules[r.quantity].standard(r.value)
-        elif r.quantity == "gain":
-            u = math.hypot(GAIN_RELATIVE * r.value, GAIN_FLOOR)
-        else:
-            u = default_uncertainty(r) if r.value != 0 else 1e-6
-        u = max(u, 1e-9)
-        value = r.value + u * rng.standard_normal()
-        if r.quantity == "gain":
-            value = abs(value)
-        out.append(dataclasses.replace(r, value=value, uncertainty=u))
-    return out
+    rule = _rules().get(r.quantity)
+    if rule is not None:
+        u = rule.standard(r.value)
+    elif r.quantity == "gain":
+        u = math.hypot(GAIN_RELATIVE * r.value, GAIN_FLOOR)
+    else:
+        u = default_uncertainty(r) if r.value != 0 else 1e-6
+    return max(u, 1e-9)
+
+
+def sharp_readings(board, temperature: float, plan, rng) -> list:
+    """Readings of ``board`` with the sharp uncertainties and that much seeded Gaussian
+    noise, the fault sweep's way (``tests/test_diagnosis.py``)."""
+    import test_diagnosis as sweep
+
+    return sweep._readings(board, temperature, plan, rng, uncertainty=sharp_uncertainty)
 
 
 def run() -> dict[str, Any]:
