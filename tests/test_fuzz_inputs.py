@@ -372,8 +372,8 @@ def test_demo_and_report_refuse_an_unwritable_out_in_one_line(tmp_path, where):
     (tmp_path / "a-file\r").write_text("x")
     where = where if where.startswith("/") else str(tmp_path / where)
     report = run_cli("report", str(BOARD), str(READINGS), "--out", where + ".html", "--json")
-    _clean(report)
+    _clean(report, names="[--out]")
     assert report.exit_code == 2
     demo = run_cli("demo", "--out", where, "--json")
-    _clean(demo)
+    _clean(demo, names="[--out]")
     assert demo.exit_code == 2

@@ -66,6 +66,16 @@ def _root(
         set_budget(parse_budget(memory, key="--memory"))
 
 
+def _out_ready(prepare, path: Path):
+    """``prepare(path)`` (make an output folder, or a report file's folder), a failure
+    told as one line naming ``--out``."""
+    try:
+        return prepare(path)
+    except OSError as err:
+        where = err.filename if err.filename is not None else path
+        raise InputError(f"{where}: {err.strerror or err}", key="--out") from None
+
+
 def _value_option(text: str | None, kind: str, option: str) -> float | None:
     if text is None:
         return None
@@ -477,7 +487,7 @@ def report(
 
     inputs = _gather(board, readings, session, store, "report",
                      AnalysisOptions(assume=tuple(assume or ())))
-    prepare_report_path(out)  # before the seconds of analysis, not after
+    _out_ready(prepare_report_path, out)  # before the seconds of analysis, not after
     meta = None
     if session is not None:
         from reconcile.store.sessions import show_session
@@ -529,6 +539,8 @@ def demo(
     """Run the bench story on the bundled sample boards (invented examples)."""
     from reconcile.cli.demo import run_demo
 
+    if out is not None:
+        _out_ready(lambda p: p.mkdir(parents=True, exist_ok=True), out)
     run_demo(json_output=json, out_dir=out)
 
 
