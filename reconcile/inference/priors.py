@@ -79,6 +79,15 @@ class FreeParameter:
             return 10.0 ** np.asarray(x)
         return np.asarray(x, dtype=float)
 
+    def to_external_into(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """:meth:`to_external` of an array, written into ``out`` (the same operations)."""
+        if self.transform == "log":
+            return np.exp(x, out=out)
+        if self.transform == "log10":
+            return np.power(10.0, x, out=out)
+        out[...] = x
+        return out
+
     def to_internal(self, value: float) -> float:
         if self.transform == "log":
             return math.log(value)
@@ -150,35 +159,31 @@ class ParameterSpace:
         m = x.shape[0]
         if base is None:
             base = nominal_parameters(self.circuit, 1)
-        p = base.repeat(m) if base.n_samples == 1 else base
-        arrays = {
-            "resistor_ohms": p.resistor_ohms.copy(),
-            "capacitor_farads": p.capacitor_farads.copy(),
-            "supply_volts": p.supply_volts.copy(),
-            "IS": p.IS.copy(),
-            "beta": p.beta.copy(),
-            "VA": p.VA.copy(),
-            "n": p.n.copy(),
-            "temperature": p.temperature.copy(),
-        }
-        target = {
-            "resistor": "resistor_ohms",
-            "capacitor": "capacitor_farads",
-            "supply": "supply_volts",
-            "IS": "IS",
-            "beta": "beta",
-            "VA": "VA",
-            "n": "n",
-        }
-        ext = self.external(x)
+        # repeat makes new arrays, written below in place; a base of M samples is copied
+        p = base.repeat(m) if base.n_samples == 1 else base.repeat(1)
+        out = np.empty(m)
         for j, fp in enumerate(self.parameters):
             if fp.kind == "calibration":
                 continue  # an instrument's factor, not the board's (inference/calibration.py)
+            fp.to_external_into(x[:, j], out)
             if fp.kind == "temperature":
-                arrays["temperature"] = ext[:, j].copy()
+                p.temperature[:] = out
             else:
-                arrays[target[fp.kind]][:, fp.column] = ext[:, j]
-        return p.with_values(**arrays)
+                getattr(p, PARAMETERS_FIELD[fp.kind])[:, fp.column] = out
+        return p
+
+
+PARAMETERS_FIELD = {
+    "resistor": "resistor_ohms",
+    "capacitor": "capacitor_farads",
+    "supply": "supply_volts",
+    "IS": "IS",
+    "beta": "beta",
+    "VA": "VA",
+    "n": "n",
+    "temperature": "temperature",
+}
+"""The :class:`Parameters` field each kind of free parameter sets."""
 
 
 def _passive(
