@@ -319,3 +319,26 @@ def test_samples_agree_with_a_high_precision_loop() -> None:
         # standard error of a median: 1.2533·σ/√n for a near-normal spread
         se_med = 1.2533 * math.sqrt(2.0 / n) * np.std(other[q])
         assert abs(result.quantities[q]["p50"] - np.median(other[q])) < 4 * se_med
+
+
+def test_prior_sampler_self_consistency_with_prior_draws_and_to_parameters() -> None:
+    # Self-consistency: the chunked sampler solve --samples draws with gives, value for
+    # value, the boards of one prior_draws call turned into parameters by to_parameters
+    # (the same generator, chunk after chunk, its buffers reused; a short last chunk).
+    from dataclasses import fields
+
+    from reconcile.inference.prior_sampler import PriorSampler
+
+    circuit = compile_board(load_board(ROOT / "sample_data" / "two_stage_npn_pnp.toml"))
+    space = build_space(circuit)
+    want_x = prior_draws(space, 700, np.random.default_rng(5))
+    want = space.to_parameters(want_x)
+    sampler, rng = PriorSampler(space, 300), np.random.default_rng(5)
+    for start in (0, 300, 600):
+        m = min(300, 700 - start)
+        x, got = sampler.draw(rng, m)
+        assert np.array_equal(x, want_x[start : start + m])
+        for f in fields(got):
+            if f.name != "extra":
+                part = getattr(want, f.name)[start : start + m]
+                assert np.array_equal(getattr(got, f.name), part), f.name
