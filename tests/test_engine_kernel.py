@@ -141,3 +141,24 @@ def test_batch_size_rule(monkeypatch) -> None:
 
     with pytest.raises(InputError, match="RECONCILE_KERNEL"):
         kernel.use_compiled(1)
+
+
+@pytest.mark.parametrize("load", ['load_ohms = "47k"', ""])
+def test_compiled_two_port_closing_agrees_with_numpy_self_consistency(load, monkeypatch) -> None:
+    # Self-consistency check: the two-port closed in the compiled kernel (gain, its
+    # phase, source gain, input and output resistance) against the numpy closing, on
+    # the same 2 000 prior draws of the preamp, with its load and with none (inf).
+    text = (ROOT / "sample_data" / "preamp_ce.toml").read_text()
+    circuit = compile_board(board_from_text(text.replace('load_ohms = "47k"', load)))
+    space = build_space(circuit)
+    params = space.to_parameters(prior_draws(space, 2000, np.random.default_rng(8)))
+    assert np.all(np.isfinite(params.load_ohms)) == bool(load)
+    out = {}
+    for mode in ("numba-all", "numpy"):
+        monkeypatch.setenv(kernel.ENV, mode)
+        out[mode] = solve_batch(circuit, params).small_signal
+    for q in ("gain", "source_gain", "input_resistance", "output_resistance"):
+        np.testing.assert_allclose(getattr(out["numba-all"], q), getattr(out["numpy"], q),
+                                   rtol=1e-11, err_msg=q)
+    np.testing.assert_allclose(out["numba-all"].gain_phase_deg, out["numpy"].gain_phase_deg,
+                               rtol=0, atol=1e-9)

@@ -175,11 +175,12 @@ def _assemble(s, vbe, vbc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va
 def newton_dc(
     g_ff, store_of, rhs_fixed, vq, q_free, pol, is_t, n_vt, beta, beta_r, va, v_crit,
     v0, vj0, max_iter, abs_tol, rel_tol,
-    v_out, vj_out, conv_out, iters_out, jac_out, rhs_out,
+    v_out, vj_out, conv_out, iters_out, jac_out, rhs_out, kcl_out,
 ):
     """Warm-started Newton for every board, from free voltages ``v0`` (M, nF) and
     junction voltages ``vj0`` (M, nT, 2) at which the first step linearises. On return
-    ``jac_out``/``rhs_out`` hold the system linearised at the final node voltages."""
+    ``jac_out``/``rhs_out`` hold the system linearised at the final node voltages and
+    ``kcl_out`` its largest |KCL error| there, max |jac·v − rhs| over the free nodes."""
     m = g_ff.shape[0]
     nf = rhs_fixed.shape[1]
     nt = q_free.shape[0]
@@ -244,10 +245,17 @@ def newton_dc(
         _junctions(s, v, vq, q_free, pol, raw_be, raw_bc)
         _assemble(s, raw_be, raw_bc, a0, b0, vq, q_free, pol, is_t, n_vt, beta, beta_r, va,
                   a, b)
+        worst = 0.0
         for i in range(nf):
             rhs_out[s, i] = b[i, 0]
+            acc = 0.0
             for j in range(nf):
                 jac_out[s, i, j] = a[i, j]
+                acc += a[i, j] * v[j]
+            err = abs(acc - b[i, 0])
+            if err > worst or err != err:  # NaN wins, as in numpy's max
+                worst = err
+        kcl_out[s] = worst
 
 
 @numba.njit(**_OPTS)
@@ -313,3 +321,25 @@ def two_port(board_of, omega, jac, cap_rows, cap_f, dev_rows, c_mu, c_pi, probe_
         else:
             for c in range(4):
                 z_out[r, c] = np.nan
+
+
+@numba.njit(**_OPTS)
+def close_two_port(z, rl, rs, out):
+    """The test set-up closed around each row's two-port ``z`` (z_ii, z_oi, z_io, z_oo)
+    with its load ``rl`` (inf: none) and source resistance ``rs``, the formulas of
+    ``LinearModel._close_two_port``: ``out[r]`` = gain, its phase in degrees, source gain,
+    input resistance, output resistance."""
+    for r in range(z.shape[0]):
+        z_ii, z_oi, z_io, z_oo = z[r, 0], z[r, 1], z[r, 2], z[r, 3]
+        if math.isfinite(rl[r]):
+            v_out = z_oi * rl[r] / (rl[r] + z_oo)
+            v_in = z_ii - z_io * z_oi / (rl[r] + z_oo)
+        else:
+            v_out = z_oi
+            v_in = z_ii
+        gain = v_out / v_in
+        out[r, 0] = abs(gain)
+        out[r, 1] = math.degrees(math.atan2(gain.imag, gain.real))
+        out[r, 2] = abs(gain * v_in / (v_in + rs[r]))
+        out[r, 3] = abs(v_in)
+        out[r, 4] = abs(z_oo - z_oi * z_io / (rs[r] + z_ii))

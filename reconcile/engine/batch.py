@@ -116,16 +116,13 @@ def solve_batch(
     state = solve_dc(circuit, params, initial, batch=batch)
     v = state.v
     vbe_n, vbc_n = batch.junctions(v)
-    jac_ff, rhs = _final_linear_system(batch, params, vbe_n, vbc_n)
-    # At the linearisation point the linear model is exact: KCL error = J·v − rhs.
-    kcl_free = (jac_ff @ v[:, circuit.free, None])[:, :, 0] - rhs
+    jac_ff, rhs, kcl = _final_linear_system(batch, params, v, vbe_n, vbc_n)
     leaving_fixed = batch.current_out_of_fixed(v)  # (N, n_fixed) through branches
     tr = _transistor_outputs(batch, circuit, params, v, vbe_n, vbc_n, leaving_fixed)
 
     rn = circuit.resistor_nodes
     dv = v[:, rn[:, 0]] - v[:, rn[:, 1]] if len(rn) else np.zeros((params.n_samples, 0))
     i_r = dv / params.resistor_ohms
-    kcl = np.max(np.abs(kcl_free), axis=1) if len(circuit.free) else np.zeros(params.n_samples)
     newton_matrix = jac_ff.copy() if len(batch.floating_rows) else jac_ff
     if len(batch.floating_rows):
         # The DC tie of floating nodes is not part of the board's small-signal model.
@@ -171,17 +168,30 @@ def _small_signal_of(linear: LinearModel, rows: bool | np.ndarray) -> SmallSigna
     return SmallSignal(**fields)
 
 
-def _final_linear_system(batch: _Batch, params: Parameters, vbe_n: np.ndarray,
-                         vbc_n: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """The Newton system at the solution: reused from the last iteration where it was
-    built at the final point, rebuilt for the rest."""
-    if batch.final_system is not None:
-        jac_ff, rhs, valid = batch.final_system
-        redo = np.flatnonzero(~valid)
-        if len(redo):
-            jac_ff[redo], rhs[redo] = batch.linear_system(redo, vbe_n[redo], vbc_n[redo])
-        return jac_ff, rhs
-    return batch.linear_system(slice(None), vbe_n, vbc_n)
+def _final_linear_system(batch: _Batch, params: Parameters, v: np.ndarray,
+                         vbe_n: np.ndarray, vbc_n: np.ndarray
+                         ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The Newton system at the solution and each sample's largest |KCL error| there:
+    reused from the compiled kernel's last iteration where it was built at the final
+    point, rebuilt for the rest."""
+    if batch.final_system is None:
+        jac_ff, rhs = batch.linear_system(slice(None), vbe_n, vbc_n)
+        return jac_ff, rhs, _kcl_error(batch, jac_ff, rhs, v)
+    jac_ff, rhs, valid, kcl = batch.final_system
+    redo = np.flatnonzero(~valid)
+    if len(redo):
+        jac_ff[redo], rhs[redo] = batch.linear_system(redo, vbe_n[redo], vbc_n[redo])
+        kcl[redo] = _kcl_error(batch, jac_ff[redo], rhs[redo], v[redo])
+    return jac_ff, rhs, kcl
+
+
+def _kcl_error(batch: _Batch, jac_ff: np.ndarray, rhs: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """(M,) the largest |KCL error| over the free nodes, A: at the linearisation point
+    the linear model is exact, so the error is J·v − rhs."""
+    if not batch.n_free:
+        return np.zeros(v.shape[0])
+    kcl_free = (jac_ff @ v[:, batch.free, None])[:, :, 0] - rhs
+    return np.max(np.abs(kcl_free), axis=1)
 
 
 def _transistor_outputs(batch: _Batch, circuit: Circuit, params: Parameters, v: np.ndarray,

@@ -157,8 +157,9 @@ class _Batch:
     """
 
     final_system = None
-    """(jac, rhs, valid) linearised at the solution, when the compiled kernel made it
-    (``valid``: the samples it solved; the others were solved by the numpy path)."""
+    """(jac, rhs, valid, kcl) linearised at the solution, with its largest |KCL error|,
+    when the compiled kernel made it (``valid``: the samples it solved; the others were
+    solved by the numpy path)."""
 
     def __init__(self, circuit: Circuit, params: Parameters) -> None:
         self.circuit = circuit
@@ -435,12 +436,12 @@ def solve_dc(
         if batch.n_free < SPARSE_FROM_NODES and kernel.use_compiled(n):
             if not shifted and n_t:
                 vj[:, :, 0], vj[:, :, 1] = batch.junctions(v)
-            v_free, vj, converged, iters, jac, rhs = kernel.newton_dc(
+            v_free, vj, converged, iters, jac, rhs, kcl = kernel.newton_dc(
                 batch, v[:, batch.free], vj, WARM_ITERATIONS, V_ABS_TOL, V_REL_TOL
             )
             v[:, batch.free] = v_free
             v[:, batch.fixed] = batch.v_fixed
-            batch.final_system = (jac, rhs, converged.copy())
+            batch.final_system = (jac, rhs, converged.copy(), kcl)
         else:
             v, vj, converged, iters = batch.newton(
                 all_idx, v, vj, max_iter=WARM_ITERATIONS, fresh=shifted

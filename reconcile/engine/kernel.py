@@ -6,7 +6,7 @@ DC Newton loop (the same stamps, junction limiting and convergence test, the dev
 equations compiled from their one copy, :func:`reconcile.engine.devices.junction_point`)
 and the small-signal two-port solve (the stamps of
 :class:`reconcile.engine.small_signal.LinearModel`, one complex solve per sample and
-frequency). Both factorise with diagonal pivots first, as the numpy path's fixed-pattern
+frequency, then closed with the load and source by its formulas). Both factorise with diagonal pivots first, as the numpy path's fixed-pattern
 factorisation does, and fall back to partial pivoting where a pivot fails. Samples the
 warm start does not bring home go through the numpy path's cold start, gmin and source
 stepping as before.
@@ -87,8 +87,9 @@ def newton_dc(batch, v0_free, vj0, max_iter: int, abs_tol: float, rel_tol: float
     """Warm-started Newton over every sample of ``batch`` (a ``dc._Batch``) from free
     voltages ``v0_free`` (N, nF) and junction voltages ``vj0`` (N, nT, 2).
 
-    Returns free voltages, junction voltages, converged mask, iteration counts, and the
-    Jacobian (N, nF, nF) and right-hand side (N, nF) linearised at the final voltages.
+    Returns free voltages, junction voltages, converged mask, iteration counts, the
+    Jacobian (N, nF, nF) and right-hand side (N, nF) linearised at the final voltages,
+    and the largest |KCL error| of each sample there (N,).
     """
     k = _load()
     n, n_f = batch.n, batch.n_free
@@ -99,14 +100,15 @@ def newton_dc(batch, v0_free, vj0, max_iter: int, abs_tol: float, rel_tol: float
     iters = np.zeros(n, dtype=np.int64)
     jac = np.empty((n, n_f, n_f))
     rhs = np.empty((n, n_f))
+    kcl = np.empty(n)
     k.newton_dc(
         batch.g_ff, batch.store_of.astype(np.int64), batch.rhs_fixed, batch.vq_fixed, batch.q_free.astype(np.int64),
         np.ascontiguousarray(batch.circuit.polarity, dtype=float),
         batch.is_t, batch.n_vt, _f(batch.beta), _f(batch.beta_r), _f(batch.va), batch.v_crit,
         np.ascontiguousarray(v0_free), np.ascontiguousarray(vj0), int(max_iter),
-        float(abs_tol), float(rel_tol), v, vj, conv, iters, jac, rhs,
+        float(abs_tol), float(rel_tol), v, vj, conv, iters, jac, rhs, kcl,
     )
-    return v, vj, conv, iters, jac, rhs
+    return v, vj, conv, iters, jac, rhs, kcl
 
 
 def two_port(circuit, params, jac_ff: np.ndarray, c_pi: np.ndarray, board_of: np.ndarray,
@@ -126,6 +128,20 @@ def two_port(circuit, params, jac_ff: np.ndarray, c_pi: np.ndarray, board_of: np
         int(pos[circuit.input_node]), int(pos[circuit.output_node]), z,
     )
     return z
+
+
+CLOSED_QUANTITIES = ("gain", "gain_phase_deg", "source_gain", "input_resistance",
+                     "output_resistance")
+"""The columns :func:`close_two_port` gives, in order."""
+
+
+def close_two_port(z: np.ndarray, load_ohms: np.ndarray, source_ohms: np.ndarray) -> dict:
+    """The small-signal quantities of :data:`CLOSED_QUANTITIES` of each row's two-port
+    ``z`` (rows, 4) closed with its load and source resistance, compiled (the formulas
+    of :class:`reconcile.engine.small_signal.LinearModel`)."""
+    out = np.empty((z.shape[0], len(CLOSED_QUANTITIES)))
+    _load().close_two_port(np.ascontiguousarray(z), _f(load_ohms), _f(source_ohms), out)
+    return {name: out[:, k] for k, name in enumerate(CLOSED_QUANTITIES)}
 
 
 def _f(x: np.ndarray) -> np.ndarray:

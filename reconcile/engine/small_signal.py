@@ -182,7 +182,7 @@ class LinearModel:
         pos = c.free_position
         rows, m = len(freq), len(c.free)
         i_in, i_out = pos[c.input_node], pos[c.output_node]
-        if m < SPARSE_FROM_NODES and min(i_in, i_out) >= 0 and kernel.use_compiled(rows):
+        if self._compiled(rows):
             board_of = np.arange(self.params.n_samples)[s_idx]
             return kernel.two_port(c, self.params, self.jac_ff, self.c_pi(), board_of, freq)
         y = self._matrices(s_idx, freq)
@@ -192,11 +192,23 @@ class LinearModel:
         z = solve_small(y, rhs, factorisation_for(c, capacitors=True, n_samples=rows))
         return np.stack([z[:, i_in, 0], z[:, i_out, 0], z[:, i_in, 1], z[:, i_out, 1]], axis=1)
 
+    def _compiled(self, rows: int) -> bool:
+        """Whether an AC solve of ``rows`` rows runs on the compiled kernel: a board under
+        :data:`SPARSE_FROM_NODES` free nodes whose signal nodes are free, when in use."""
+        c = self.circuit
+        pos = c.free_position
+        return (len(c.free) < SPARSE_FROM_NODES
+                and min(pos[c.input_node], pos[c.output_node]) >= 0
+                and kernel.use_compiled(rows))
+
     def _close_two_port(self, s_idx: np.ndarray, freq: np.ndarray) -> dict[str, np.ndarray]:
         p = self.params
-        z_ii, z_oi, z_io, z_oo = self._two_port(s_idx, freq).T
+        z = self._two_port(s_idx, freq)
         rl = p.load_ohms[s_idx]
         rs = p.source_ohms[s_idx]
+        if self._compiled(len(freq)):
+            return kernel.close_two_port(z, rl, rs)
+        z_ii, z_oi, z_io, z_oo = z.T
         no_load = ~np.isfinite(rl)
         with np.errstate(divide="ignore", invalid="ignore"):
             rl_f = np.where(no_load, 1.0, rl)
