@@ -96,6 +96,24 @@ _DEVICE_PATTERN = {
 }
 
 
+_STAMPS: dict = {}
+_STAMPS_KEPT = 256
+
+
+def _stamps_once(build, *args):
+    """``build(*args)``, built once per topology: a board's stamps depend only on its
+    index arrays and sizes, so they are kept by their bytes (a :class:`_Scatter` is never
+    changed after it is made) and a batch of the same board, as every chunk of
+    ``solve --samples`` and every call of a fit is, does not build them again."""
+    key = (build.__name__,) + tuple(
+        (a.shape, a.dtype.str, a.tobytes()) if isinstance(a, np.ndarray) else a for a in args)
+    if key not in _STAMPS:
+        if len(_STAMPS) >= _STAMPS_KEPT:
+            _STAMPS.clear()
+        _STAMPS[key] = build(*args)
+    return _STAMPS[key]
+
+
 def _branch_stamps(branch: np.ndarray, pos_free: np.ndarray, pos_fixed: np.ndarray,
                    slot_of: np.ndarray, n_f: int, n_x: int) -> tuple[_Scatter, _Scatter, _Scatter]:
     """The branch stamps: conductances into the free-node matrix slots, the fixed nodes'
@@ -191,7 +209,7 @@ class _Batch:
         self.store_of = slot_of
         self.n_store = n_f * n_f if self.sparse is None else self.sparse.n_slots
         self.diag_store = slot_of[np.arange(n_f) * (n_f + 1)]
-        self._branch_ff, self._branch_fx, self._branch_out_fixed = _branch_stamps(
+        self._branch_ff, self._branch_fx, self._branch_out_fixed = _stamps_once(_branch_stamps,
             branch, pos_free, pos_fixed, slot_of, n_f, n_x)
         self.g_ff = np.zeros((n, self.n_store))
         self._branch_ff.add_to(self.g_ff, g)
@@ -223,7 +241,8 @@ class _Batch:
         n_t = q.shape[0]
         self.q_free = pos_free[q] if n_t else np.zeros((0, 3), dtype=np.intp)
         self.q_fixed = pos_fixed[q] if n_t else np.zeros((0, 3), dtype=np.intp)
-        self._device_jac, self._device_cur = _device_stamps(self.q_free, slot_of, n_f)
+        self._device_jac, self._device_cur = _stamps_once(_device_stamps, self.q_free, slot_of,
+                                                          n_f)
         # Fixed voltage at each transistor terminal (0 where the terminal is free).
         self.vq_fixed = np.zeros((n, n_t, 3))
         for tr in range(n_t):
