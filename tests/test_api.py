@@ -117,14 +117,15 @@ def _printed(result) -> str:
 
 
 def _cli(*args: str) -> str:
-    import os
-    import subprocess
-    import sys
+    """What ``reconcile ARGS`` prints on a terminal 100 columns wide: the real entry
+    point, in this process (``cli_support.run_cli``)."""
+    from cli_support import run_cli
 
-    env = {**os.environ, "COLUMNS": "100"}
-    done = subprocess.run([sys.executable, "-m", "reconcile", *args], capture_output=True,
-                          text=True, timeout=300, env=env, cwd=SAMPLES.parent)
-    assert done.returncode == 0, done.stderr
+    with pytest.MonkeyPatch.context() as patch:
+        patch.chdir(SAMPLES.parent)
+        patch.setenv("COLUMNS", "100")
+        done = run_cli(*args)
+    assert done.exit_code == 0 and done.crash is None, done.crash or done.stderr
     return done.stdout
 
 
