@@ -12,16 +12,29 @@ multiplied by it. Every column of :meth:`MeasurementModel.jacobian` is then comp
 with a central difference of those predictions with a step of 1e-12 (truncation error
 about 1e-24, rounding about 1e-22), to 1e-6 of the largest derivative of that reading.
 
+Small-signal readings are predicted here from the mpmath operating point as the
+contract defines them (docs/formats.md §2.2 and §6.3): the board's exact linearisation
+(branch conductances, each transistor's four conductances by mpmath's own numerical
+differentiation of the device equations at the operating point, ``mpmath.diff``),
+capacitors as jωC, the hybrid-π Cπ = gm/(2π·ft) − c_mu (clipped at 0) and c_mu, the
+probe on the input and output nodes, supplies as AC ground; then three complex solves
+of the whole network: the load on the output and 1 A into the input (input resistance
+|v_in| and gain |v_out/v_in|), the generator's Norton equivalent added (source gain
+|v_out| for 1 V open-circuit), and the source resistance on the input with 1 A into the
+output and no load (output resistance). No two-port algebra of the engine is reused.
+
 The readings cover voltages with the meter attached (one node, a node pair, a repeat),
 a supply current, a resistor current, a part read out of circuit and calibration factors
-shared by repeated readings of one instrument, on DC-only boards and on a board with a
-small-signal set-up. A resistor's current is read with the ammeter's burden
-(``bench.ammeter_ohms``) in series with that resistor, on a board of its own.
+shared by repeated readings of one instrument, on DC-only boards and on boards with a
+small-signal set-up (gain, source gain, input and output resistance at the [signal]
+frequency and at a reading's own). A resistor's current is read with the ammeter's
+burden (``bench.ammeter_ohms``) in series with that resistor, on a board of its own.
 """
 
 from __future__ import annotations
 
 import dataclasses
+import math
 
 import mpmath as mp
 import numpy as np
@@ -30,17 +43,16 @@ import pytest
 from reconcile.data.readings import Reading
 from reconcile.engine import compile_board
 from reconcile.inference.calibration import calibration_parameters
-from reconcile.inference.dc_jacobian import analytic_rows
 from reconcile.inference.measure import MeasurementModel, observations_from
 from reconcile.inference.priors import build_space
 from reconcile.inference.simulate import simulate_readings
-from reconcile.model.board import Signal
+from reconcile.model.board import DeviceParam, Signal
 from tests.test_sensitivity import MpBoard, random_board
 
 mp.mp.dps = 34
 REL_TOL = 1e-6
 FIELD = {"resistor": "resistor_ohms", "supply": "supply_volts", "IS": "IS", "beta": "beta",
-         "VA": "VA", "n": "n"}
+         "VA": "VA", "n": "n", "capacitor": "capacitor_farads"}
 
 
 class MpProbeBoard(MpBoard):
@@ -76,9 +88,10 @@ def _plan(board) -> list[tuple[str, str, str]]:
 
 
 def _model(board, plan) -> MeasurementModel:
-    readings = simulate_readings(board, [(q, at) for q, at, _ in plan])
-    readings = [dataclasses.replace(r, instrument=inst)
-                for r, (_, _, inst) in zip(readings, plan, strict=True)]
+    """The model of readings (quantity, at, instrument[, frequency]) of ``board``."""
+    readings = simulate_readings(board, [(e[0], e[1], *e[3:]) for e in plan])
+    readings = [dataclasses.replace(r, instrument=e[2])
+                for r, e in zip(readings, plan, strict=True)]
     space = build_space(compile_board(board), calibration=calibration_parameters(readings))
     return MeasurementModel(board, observations_from(readings), space)
 
@@ -103,6 +116,14 @@ class Reference:
             self.burden[len(self.boards)] = (circuit.resistor_refs.index(ref),
                                              mp.mpf(model.board.bench.ammeter_ohms))
             self.boards.append(MpProbeBoard(circuit, base))
+        farads = [mp.mpf(float(f)) for f in base.capacitor_farads[0]]
+        for mpb in self.boards:  # a capacitance enters the small-signal network only
+            mpb.vals["capacitor_farads"] = list(farads)
+        self.signal = {name: float(getattr(base, name)[0]) for name in
+                       ("frequency", "source_ohms", "load_ohms", "probe_ac_siemens",
+                        "probe_ac_farads")}
+        self.ft = [mp.mpf(float(f)) if math.isfinite(f) else mp.inf for f in base.ft[0]]
+        self.c_mu = [mp.mpf(float(f)) for f in base.c_mu[0]]
         self.inverses: list = [None] * len(self.boards)
         self._cache: tuple | None = None
 
@@ -156,12 +177,85 @@ class Reference:
                 out.append((v[a] - v[b]) / vals["resistor_ohms"][what])
             elif kind == "parameter":
                 out.append(ext[what])
-            else:  # small signal: not an analytic row, not compared here
-                out.append(mp.mpf(0))
+            elif kind == "small_signal":
+                out.append(self.small_signal(vals, v, self.signal["frequency"])[what])
+            else:  # small_signal_at: (quantity, index into the model's frequencies)
+                name, j = what
+                out.append(self.small_signal(vals, v, model.frequencies[j])[name])
             c = model.calibration_index[k]
             if c >= 0:
                 out[-1] *= ext[c]
         return out
+
+    def _network(self, vals, v, omega):
+        """The complex nodal matrix over the free nodes at angular frequency omega, and
+        the free row of each node (AC ground: supplies and gnd have none)."""
+        c = self.model.circuit
+        row = {int(node): i for i, node in enumerate(c.free)}
+        y = mp.matrix(len(row), len(row))
+
+        def stamp(a, b, value):
+            for r, k, sign in ((a, a, 1), (b, b, 1), (a, b, -1), (b, a, -1)):
+                if r in row and k in row:
+                    y[row[r], row[k]] += sign * value
+
+        for j in range(len(c.resistor_refs)):
+            stamp(*(int(n) for n in c.resistor_nodes[j]), 1 / vals["resistor_ohms"][j])
+        for j in range(len(c.capacitor_refs)):
+            stamp(*(int(n) for n in c.capacitor_nodes[j]), vals["capacitor_leak_siemens"][j]
+                  + 1j * omega * vals["capacitor_farads"][j])
+        mpb = self.boards[0]
+        for k in range(len(c.transistor_refs)):
+            s = int(c.polarity[k])
+            nc, nb, ne = (int(n) for n in c.transistor_nodes[k])
+            vbe, vbc = s * (v[nb] - v[ne]), s * (v[nb] - v[nc])
+            g = {}
+            for i, name in enumerate(("ic", "ib")):
+                def f(u, w, i=i):
+                    return mpb.device(vals, k, u, w)[i]
+                g[name] = (mp.diff(f, (vbe, vbc), (1, 0)), mp.diff(f, (vbe, vbc), (0, 1)))
+            # current into a terminal by node voltage (c, b, e); polarity squared is 1
+            rows = {nc: g["ic"], nb: g["ib"]}
+            for node, (d_be, d_bc) in rows.items():
+                for col, d in ((nc, -d_bc), (nb, d_be + d_bc), (ne, -d_be)):
+                    if node in row and col in row:
+                        y[row[node], row[col]] += d
+                    if ne in row and col in row:
+                        y[row[ne], row[col]] -= d
+            gm = g["ic"][0] + g["ic"][1]  # dIC/dVBE at fixed VCE
+            c_pi = max(gm / (2 * mp.pi * self.ft[k]) - self.c_mu[k], mp.mpf(0))
+            stamp(nb, nc, 1j * omega * self.c_mu[k])
+            stamp(nb, ne, 1j * omega * c_pi)
+        probe = self.signal["probe_ac_siemens"] + 1j * omega * self.signal["probe_ac_farads"]
+        for node in {c.input_node, c.output_node}:
+            if node in row:
+                y[row[node], row[node]] += probe
+        return y, row
+
+    def small_signal(self, vals, v, frequency) -> dict:
+        """Gain, source gain, input and output resistance at ``frequency``."""
+        c = self.model.circuit
+        y, row = self._network(vals, v, 2 * mp.pi * mp.mpf(frequency))
+        i_in, i_out = row[c.input_node], row[c.output_node]
+        rs, rl = mp.mpf(self.signal["source_ohms"]), self.signal["load_ohms"]
+
+        def solve(matrix, at, amps):
+            rhs = mp.matrix(len(row), 1)
+            rhs[at] = amps
+            return mp.lu_solve(matrix, rhs)
+
+        loaded = y.copy()
+        if math.isfinite(rl):
+            loaded[i_out, i_out] += 1 / mp.mpf(rl)
+        x = solve(loaded, i_in, 1)
+        driven = loaded.copy()
+        driven[i_in, i_in] += 1 / rs
+        x_gen = solve(driven, i_in, 1 / rs)  # 1 V open-circuit behind rs
+        sourced = y.copy()
+        sourced[i_in, i_in] += 1 / rs
+        x_out = solve(sourced, i_out, 1)
+        return {"gain": abs(x[i_out] / x[i_in]), "input_resistance": abs(x[i_in]),
+                "source_gain": abs(x_gen[i_out]), "output_resistance": abs(x_out[i_out])}
 
     def columns(self, x: np.ndarray) -> np.ndarray:
         """Central differences (R, P) in internal coordinates, step 1e-12."""
@@ -185,8 +279,7 @@ def _check(model: MeasurementModel, seed: int) -> np.ndarray:
     x = space.prior_mean + 0.7 * space.prior_sd * rng.standard_normal(space.size)
     _, ours = model.jacobian(x)
     ref = Reference(model, x).columns(x)
-    rows = analytic_rows(model)
-    for k in np.flatnonzero(rows):
+    for k in range(len(model.observations)):
         scale = np.max(np.abs(ref[k]))
         err = np.max(np.abs(ours[k] - ref[k]))
         assert err <= REL_TOL * scale, (seed, model.observations[k].quantity,
@@ -200,9 +293,7 @@ def test_analytic_columns_match_mpmath_on_dc_boards():
     for seed in (11, 12, 13):
         board = random_board(np.random.default_rng(seed))
         assert board.signal.input is None  # no small-signal set-up: DC only
-        model = _model(board, _plan(board))
-        assert analytic_rows(model).all()
-        _check(model, seed)
+        _check(_model(board, _plan(board)), seed)
 
 
 @pytest.mark.slow
@@ -214,28 +305,41 @@ def test_analytic_columns_match_mpmath_many_boards(block):
         _check(_model(board, _plan(board)), seed)
 
 
-def test_analytic_rows_beside_small_signal_rows_and_their_self_consistency():
-    """mpmath reference for the DC rows of a board with a [signal] set-up and a gain
-    reading; the gain row (forward differences) against a central difference of the
-    engine's own predictions (self_consistency of the difference step, 1e-4)."""
-    rng = np.random.default_rng(21)
+def _signal_board(seed: int):
+    """A random cascade with a [signal] set-up from the first base to the last
+    collector, a finite load, a probe, and devices with ft and c_mu (so Cπ moves with
+    gm), and the readings of :func:`_plan` plus small-signal ones at the [signal]
+    frequency and at a reading's own."""
+    rng = np.random.default_rng(seed)
     board = random_board(rng)
     last = max(int(ref[1:]) for ref in board.transistors)
-    board = dataclasses.replace(board, signal=Signal(input="b0", output=f"c{last}"))
-    plan = _plan(board) + [("gain", "", "scope")]
+    devices = {name: dataclasses.replace(d, ft=DeviceParam(float(rng.uniform(50e6, 400e6))),
+                                         c_mu=DeviceParam(float(rng.uniform(1e-12, 6e-12))))
+               for name, d in board.devices.items()}
+    board = dataclasses.replace(
+        board, devices=devices,
+        signal=Signal(input="b0", output=f"c{last}", source_ohms=float(rng.uniform(50, 2e3)),
+                      load_ohms=float(rng.uniform(2e3, 50e3)),
+                      frequency=float(rng.uniform(200.0, 20e3))),
+        bench=dataclasses.replace(board.bench, probe_ohms=10e6, probe_farads=12e-12))
+    plan = _plan(board) + [("gain", "", "scope"), ("input_resistance", "", ""),
+                           ("output_resistance", "", ""), ("gain", "", "scope", 3e6),
+                           ("input_resistance", "", "", 40.0)]
+    if board.capacitors:
+        plan.append(("capacitance", next(iter(board.capacitors)), "lcr"))
+    return board, plan
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("seed", (21, 22, 23))
+def test_small_signal_rows_match_mpmath(seed):
+    """mpmath reference for every row of boards with a [signal] set-up: gain, input and
+    output resistance at the [signal] frequency, gain high up where Cπ and c_mu and the
+    probe's capacitance matter, input resistance low down where the coupling capacitors
+    do; every column (parts, capacitors, supply, devices, temperature, calibration)."""
+    board, plan = _signal_board(seed)
     model = _model(board, plan)
-    rows = analytic_rows(model)
-    assert rows[:-1].all() and not rows[-1]
-    x = _check(model, 21)
-    _, ours = model.jacobian(x)
-    h = 1e-5
-    central = np.empty(ours.shape[1])
-    for j in range(ours.shape[1]):
-        xp, xm = x.copy(), x.copy()
-        xp[j] += h
-        xm[j] -= h
-        central[j] = (model.predict(xp[None])[0, -1] - model.predict(xm[None])[0, -1]) / (2 * h)
-    assert np.max(np.abs(ours[-1] - central)) <= 1e-4 * np.max(np.abs(central))
+    _check(model, seed)
 
 
 def test_jacobian_keeps_its_shape_and_predictions():

@@ -111,24 +111,28 @@ class MpBoard:
             i = g * (v[a] - v[b])
             f[a] += i
             f[b] -= i
-        t = vals["temperature"][0]
         for k in range(len(c.transistor_refs)):
             s = int(c.polarity[k])
             nc, nb, ne = (int(x) for x in c.transistor_nodes[k])
-            is_t = vals["IS"][k] * (t / T0) ** self.xti[k] * mp.exp(
-                self.eg[k] / K_OVER_Q * (1 / T0 - 1 / t))
-            nvt = vals["n"][k] * K_OVER_Q * t
-            vbe, vbc = s * (v[nb] - v[ne]), s * (v[nb] - v[nc])
-            i_f = is_t * (mp.exp(vbe / nvt) - 1)
-            i_r = is_t * (mp.exp(vbc / nvt) - 1)
-            va = vals["VA"][k]
-            q = 1 - (0 if va == mp.inf else vbc / va)
-            ic = (i_f - i_r) * q - i_r / self.beta_r[k]
-            ib = i_f / vals["beta"][k] + i_r / self.beta_r[k]
+            ic, ib = self.device(vals, k, s * (v[nb] - v[ne]), s * (v[nb] - v[nc]))
             f[nc] += s * ic
             f[nb] += s * ib
             f[ne] -= s * (ic + ib)
         return f
+
+    def device(self, vals, k, vbe, vbc):
+        """Collector and base currents of transistor k in the npn frame at (vbe, vbc)."""
+        t = vals["temperature"][0]
+        is_t = vals["IS"][k] * (t / T0) ** self.xti[k] * mp.exp(
+            self.eg[k] / K_OVER_Q * (1 / T0 - 1 / t))
+        nvt = vals["n"][k] * K_OVER_Q * t
+        i_f = is_t * (mp.exp(vbe / nvt) - 1)
+        i_r = is_t * (mp.exp(vbc / nvt) - 1)
+        va = vals["VA"][k]
+        q = 1 - (0 if va == mp.inf else vbc / va)
+        ic = (i_f - i_r) * q - i_r / self.beta_r[k]
+        ib = i_f / vals["beta"][k] + i_r / self.beta_r[k]
+        return ic, ib
 
     def solve(self, vals, v0, inverse=None):
         """Node voltages and node currents at the solution, by Newton's iteration from

@@ -16,18 +16,15 @@ convergence test are stated there), every start of every hypothesis of the group
 of one batch. Each hypothesis keeps the DC operating point of its last evaluated point
 as the engine's warm start.
 
-Jacobian: the measurement model's own (:mod:`reconcile.inference.dc_jacobian`), batched
-over the rows. DC readings and parts read out of circuit are analytic, from one engine
-pass at the accepted points with each hypothesis applied to the engine parameters (an
-open's 1 TΩ, a missing capacitor's 0 F, a shorted capacitor's 100 S leak: the
-sensitivities are taken on the board as the hypothesis has it; a held part's column is
-zero, a wrong value's is its resistor's own column); small-signal readings are forward
-differences of the boards alone (no probe boards) with the one step rule,
-:func:`reconcile.inference.optimiser.difference_steps`, each perturbed board with its
-hypothesis applied and started at its linearised operating point. A reading the
-hypothesis decides (an open resistor's resistance) has a zero row. A Jacobian costs one
-engine pass of M groups plus M·(P + 1) boards alone when small-signal readings are
-present, instead of M·P groups.
+Jacobian: the measurement model's own (:meth:`MeasurementModel.raw_jacobian`), batched
+over the rows and analytic in every row, from one engine pass at the accepted points
+with each hypothesis applied to the engine parameters (an open's 1 TΩ, a missing
+capacitor's 0 F, a shorted capacitor's 100 S leak: the sensitivities are taken on the
+board as the hypothesis has it; a held part's column is zero, a wrong value's is its
+resistor's own column). A reading the hypothesis decides (an open resistor's
+resistance) has a zero row. A Jacobian costs one engine pass of M groups, the DC
+sensitivities of their boards and, with small-signal readings, four complex solves per
+board alone and frequency.
 
 Starts: each hypothesis starts from the best of a few seeds (the ``none`` fit, the
 prior mean) by its initial objective. A wrong value (a widened prior) starts in
@@ -68,7 +65,8 @@ from reconcile.engine.budget import chunks
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
-from reconcile.inference.dc_jacobian import analytic_rows, apply_calibration, dc_jacobian
+from reconcile.inference.dc_jacobian import apply_calibration
+from reconcile.inference.signal_jacobian import signal_rows
 from reconcile.inference.optimiser import CONVERGED, minimise
 from reconcile.inference.priors import ParameterSpace
 from reconcile.inference.threads import small_problem_threads
@@ -189,7 +187,7 @@ class _Group:
         self.measured = self.model.measured
         self.uncertainty = self.model.uncertainty
         #: whether some reading is small-signal (predictions need the AC solution)
-        self.has_signal = bool((~analytic_rows(self.model)).any())
+        self.has_signal = bool(signal_rows(self.model))
         obs_index = {(ob.quantity, ob.at): k for k, ob in enumerate(observations)}
         self.reading_fix = [
             [(obs_index[(q, at)], v) for q, at, v in f.part_readings if (q, at) in obs_index]
@@ -309,33 +307,20 @@ class _Group:
         """The Jacobian (M, R, P) of the predictions at x (M, P), f0 (M, R) being the
         predictions there (their owners' operating points at x are the warm start).
 
-        The measurement model's own rows (:mod:`reconcile.inference.dc_jacobian`):
-        analytic for every DC reading and part read out of circuit, from one engine
-        pass at x with each hypothesis' overrides in the engine parameters (a held
-        part's column is zero, a widened part's is its resistor's column); forward
-        differences of the boards alone for small-signal rows, each perturbed board
-        with the hypothesis applied. A reading the hypothesis decides
-        (``part_readings``) has a zero row. Rows at a time as the memory budget
-        allows. ``solution``, if given, is the engine solution at x (M groups), spared
-        solving again."""
+        The measurement model's own rows (:meth:`MeasurementModel.raw_jacobian`),
+        analytic, from one engine pass at x with each hypothesis' overrides in the
+        engine parameters (a held part's column is zero, a widened part's is its
+        resistor's column). A reading the hypothesis decides (``part_readings``) has a
+        zero row. Rows at a time as the memory budget allows. ``solution``, if given, is
+        the engine solution at x (M groups), spared solving again."""
         m, p = x.shape
-        g = self.model.group
-        numeric = ~analytic_rows(self.model)
-        boards = g + (p + 1 if numeric.any() else 0)
-        per_call = max(1, self.model.rows_per_call() * g // boards)
+        per_call = max(1, self.model.rows_per_call())
         if m > per_call:
             return np.concatenate([self.jacobian(x[sl], f0[sl], owner[sl])
                                    for sl in chunks(m, per_call)])
         sol = self._solve(x, owner, small_signal=False) if solution is None else solution
         with np.errstate(all="ignore"):
-            jac, dv = dc_jacobian(self.model, x, sol, node_derivatives=bool(numeric.any()))
-            if numeric.any():
-                def faulted(xs, own):
-                    return self._with_faults(self.space.to_parameters(xs, self.model.base),
-                                             owner[own])
-
-                ss = self.model.small_signal_differences(x, sol, dv, board_parameters=faulted)
-                jac[:, numeric] = ss[:, numeric]
+            jac = self.model.raw_jacobian(x, sol)
             apply_calibration(self.model, x, f0, jac)
         for i in np.unique(owner):
             fixed = [k for k, _ in self.reading_fix[int(i)]]

@@ -275,7 +275,7 @@ def _ac_matrix(s, w, jac, cap_rows, cap_f, dev_rows, c_mu, c_pi, probe_rows, g_p
                c_probe, y):
     """Board ``s``'s complex nodal matrix at angular frequency ``w``: the DC Jacobian,
     the capacitors, the hybrid-pi capacitances (c_mu base-collector, c_pi base-emitter)
-    and the AC probe on the signal nodes (the stamps of ``LinearModel._matrices``)."""
+    and the AC probe on the signal nodes (the stamps of ``LinearModel.admittance``)."""
     nf = y.shape[0]
     for i in range(nf):
         for j in range(nf):

@@ -68,6 +68,19 @@ class BatchSolution:
         return replace(self, params=self.params.take(index), state=state, small_signal=None,
                        linear=None, **arrays)
 
+    def linear_at(self, index: np.ndarray) -> LinearModel:
+        """The linear model of some samples: the solve's own, or, when it made none
+        (``small_signal=False``), the Newton matrix at the solution without the DC tie
+        of floating nodes, which is the same matrix."""
+        if self.linear is not None:
+            return self.linear.take(index)
+        jac_ff = self.newton_matrix[index]
+        floating = self.circuit.free_position[self.circuit.dc_floating]
+        if len(floating):
+            jac_ff = jac_ff.copy()
+            jac_ff[:, floating, floating] -= FLOAT_SIEMENS
+        return LinearModel(self.circuit, self.params.take(index), jac_ff, self.gm[index])
+
     @property
     def n_samples(self) -> int:
         return self.params.n_samples

@@ -145,6 +145,47 @@ def junction_point(vbe, vbc, is_t, beta, beta_r, va, n_vt):
     return ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc
 
 
+def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt) -> dict[str, np.ndarray]:
+    """Derivatives of the four conductances of :func:`junction_point` (npn frame).
+
+    Returns arrays (..., 4), the last axis being (dic_dvbe, dic_dvbc, dib_dvbe,
+    dib_dvbc) differentiated by ``vbe``, ``vbc`` (the second derivatives of the terminal
+    currents), and at fixed junction voltages by ``is_t``, ``beta``, ``inv_va`` (1/VA)
+    and ``n_vt``. Worked out by hand from the equations above, the exponential's linear
+    continuation included (its slope does not move above :data:`EXP_LIMIT`); the small-
+    signal sensitivities (:mod:`reconcile.engine.small_signal_sensitivity`) use them, and
+    a test holds those to a high-precision difference of the equations themselves.
+    """
+    x_f, x_r = vbe / n_vt, vbc / n_vt
+    ef, def_ = _exp_continued(x_f)
+    er, der = _exp_continued(x_r)
+    below_f, below_r = x_f < EXP_LIMIT, x_r < EXP_LIMIT
+    g_f, g_r = is_t * def_ / n_vt, is_t * der / n_vt
+    i_f, i_r = is_t * (ef - 1.0), is_t * (er - 1.0)
+    inv_va = 1.0 / va
+    q_early = 1.0 - vbc * inv_va
+    k_f = np.where(below_f, g_f / n_vt, 0.0)  # dg_f/dvbe
+    k_r = np.where(below_r, g_r / n_vt, 0.0)
+    zero = np.zeros_like(g_f)
+    # d g / d n_vt and d i / d n_vt at fixed junction voltages
+    gn_f = -(np.where(below_f, x_f, 0.0) + 1.0) * g_f / n_vt
+    gn_r = -(np.where(below_r, x_r, 0.0) + 1.0) * g_r / n_vt
+    in_f, in_r = -g_f * x_f, -g_r * x_r
+    conductances = np.stack([g_f * q_early, -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r,
+                             g_f / beta, g_r / beta_r], axis=-1)
+    return {
+        "vbe": np.stack([k_f * q_early, -g_f * inv_va, k_f / beta, zero], axis=-1),
+        "vbc": np.stack([-g_f * inv_va, -k_r * q_early + 2.0 * g_r * inv_va - k_r / beta_r,
+                         zero, k_r / beta_r], axis=-1),
+        "is_t": conductances / np.asarray(is_t)[..., None],
+        "beta": np.stack([zero, zero, -g_f / beta**2, zero], axis=-1),
+        "inv_va": np.stack([-g_f * vbc, g_r * vbc - (i_f - i_r), zero, zero], axis=-1),
+        "n_vt": np.stack([gn_f * q_early,
+                          -gn_r * q_early - (in_f - in_r) * inv_va - gn_r / beta_r,
+                          gn_f / beta, gn_r / beta_r], axis=-1),
+    }
+
+
 def critical_voltage(is_t: np.ndarray, n_vt: np.ndarray) -> np.ndarray:
     """The junction voltage above which Newton steps are limited (V).
 

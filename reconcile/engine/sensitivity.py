@@ -84,14 +84,35 @@ class DCSensitivity:
     resistor_current: np.ndarray
 
 
+@dataclass(frozen=True)
+class DeviceTerms:
+    """Every transistor's IS(T) and n·VT at the board's temperature (N, nT), and their
+    derivatives by IS at 25 C, n and the temperature:
+    IS(T) = IS·(T/T0)^xti·exp(Eg/(k/q)·(1/T0 − 1/T)); n·VT = n·(k/q)·T."""
+
+    vt: np.ndarray
+    n_vt: np.ndarray
+    is_t: np.ndarray
+    dis_dIS: np.ndarray
+    dis_dT: np.ndarray
+    dnvt_dT: np.ndarray
+
+
+def device_terms(params: Parameters) -> DeviceTerms:
+    t = params.temperature[:, None]
+    vt = devices.thermal_voltage(t)
+    is_t = devices.saturation_current(params.IS, t, params.xti, params.bandgap)
+    return DeviceTerms(vt=vt, n_vt=params.n * vt, is_t=is_t, dis_dIS=is_t / params.IS,
+                       dis_dT=is_t * (params.xti / t + params.bandgap / (devices.K_OVER_Q * t**2)),
+                       dnvt_dT=params.n * devices.K_OVER_Q)
+
+
 def _device_partials(circuit: Circuit, params: Parameters, vbe: np.ndarray, vbc: np.ndarray):
     """Partial derivatives (npn frame) of ic and ib, at fixed junction voltages, with
     respect to IS (25 C), beta, VA, n and the temperature: dict name -> (dic, dib),
     each (N, nT)."""
-    t = params.temperature[:, None]
-    vt = devices.thermal_voltage(t)
-    n_vt = params.n * vt
-    is_t = devices.saturation_current(params.IS, t, params.xti, params.bandgap)
+    terms = device_terms(params)
+    vt, n_vt, is_t = terms.vt, terms.n_vt, terms.is_t
     beta, beta_r, va = params.beta, params.beta_r, params.VA
     ef, def_ = devices._exp_continued(vbe / n_vt)
     er, der = devices._exp_continued(vbc / n_vt)
@@ -106,10 +127,7 @@ def _device_partials(circuit: Circuit, params: Parameters, vbe: np.ndarray, vbc:
     dir_dnvt = -is_t * der * vbc / n_vt**2
     dic_dnvt = (dif_dnvt - dir_dnvt) * q_early - dir_dnvt / beta_r
     dib_dnvt = dif_dnvt / beta + dir_dnvt / beta_r
-    # IS(T) = IS·(T/T0)^xti·exp(Eg/(k/q)·(1/T0 − 1/T)); n·VT = n·(k/q)·T
-    dis_dIS = is_t / params.IS
-    dis_dT = is_t * (params.xti / t + params.bandgap / (devices.K_OVER_Q * t**2))
-    dnvt_dT = params.n * devices.K_OVER_Q
+    dis_dIS, dis_dT, dnvt_dT = terms.dis_dIS, terms.dis_dT, terms.dnvt_dT
     return {
         "IS": (dic_dis * dis_dIS, dib_dis * dis_dIS),
         "beta": (np.zeros_like(i_f), -i_f / beta**2),
@@ -232,7 +250,7 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols,
     return out_v, d_sup, d_res
 
 
-def _junction_voltages(circuit: Circuit, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def junction_voltages(circuit: Circuit, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """npn-frame vbe, vbc (N, nT) from full node voltages."""
     q = circuit.transistor_nodes
     pol = circuit.polarity
@@ -252,7 +270,7 @@ def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: 
     dv_fixed = np.zeros((n, size, p))
     q = circuit.transistor_nodes
     pol = circuit.polarity
-    vbe, vbc = _junction_voltages(circuit, v)
+    vbe, vbc = junction_voltages(circuit, v)
     partials = _device_partials(circuit, params, vbe, vbc) if len(q) else {}
     for k, (name, j) in enumerate(cols):
         if name in ("resistor_ohms", "capacitor_leak_siemens"):
@@ -289,7 +307,7 @@ def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarra
         for rows, cols, sign in ((a, a, 1.0), (b, b, 1.0), (a, b, -1.0), (b, a, -1.0)):
             np.add.at(flat.T, rows * size + cols, sign * g.T)
     if len(q):
-        vbe, vbc = _junction_voltages(circuit, v)
+        vbe, vbc = junction_voltages(circuit, v)
         t_ = params.temperature[:, None]
         n_vt = params.n * devices.thermal_voltage(t_)
         is_t = devices.saturation_current(params.IS, t_, params.xti, params.bandgap)

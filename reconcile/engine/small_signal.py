@@ -123,7 +123,7 @@ class LinearModel:
                            self.gm[index])
 
     # ------------------------------------------------------------------ solves
-    def _matrices(self, s_idx: np.ndarray | slice, freq: np.ndarray) -> np.ndarray:
+    def admittance(self, s_idx: np.ndarray | slice, freq: np.ndarray) -> np.ndarray:
         """Complex nodal matrices (rows, nF, nF) of samples ``s_idx`` at ``freq``."""
         c, p = self.circuit, self.params
         pos = c.free_position
@@ -185,7 +185,7 @@ class LinearModel:
         if self._compiled(rows):
             board_of = np.arange(self.params.n_samples)[s_idx]
             return kernel.two_port(c, self.params, self.jac_ff, self.c_pi(), board_of, freq)
-        y = self._matrices(s_idx, freq)
+        y = self.admittance(s_idx, freq)
         rhs = np.zeros((rows, m, 2), dtype=complex)
         rhs[:, i_in, 0] = 1.0
         rhs[:, i_out, 1] = 1.0

@@ -21,8 +21,9 @@ returned are those of the raw, unscaled predictions, and
 :func:`apply_calibration` then scales each row of a reading predicted times its
 instrument's factor c (c·df/dx) and fills the factor's own column (f·dc/dx).
 
-Small-signal readings (gain, input and output resistance) are not covered here: their
-rows are zero, and :meth:`MeasurementModel.jacobian` fills them by forward differences.
+Small-signal readings (gain, source gain, input and output resistance) are not covered
+here: their rows are zero, and :mod:`reconcile.inference.signal_jacobian` fills them,
+analytically too, from the node derivatives dV/dx this module returns.
 """
 
 from __future__ import annotations
@@ -53,16 +54,16 @@ class MeasurementModel(Protocol):
 #: parameter kinds whose external value is an engine DC parameter, and its field
 DC_FIELD = {"resistor": "resistor_ohms", "supply": "supply_volts", "IS": "IS",
             "beta": "beta", "VA": "VA", "n": "n", "temperature": "temperature"}
-#: measurement-plan kinds whose rows are solved analytically here
-ANALYTIC_KINDS = frozenset({"voltage", "supply_current", "resistor_current", "parameter",
-                            "fixed"})
 #: plan kinds read from the engine's DC solution (the rest are parameters or constants)
 DC_KINDS = frozenset({"voltage", "supply_current", "resistor_current"})
 
 
-def analytic_rows(model: MeasurementModel) -> np.ndarray:
-    """Mask (R,) of the readings whose Jacobian rows are analytic."""
-    return np.array([kind in ANALYTIC_KINDS for kind, _, _ in model.plan], dtype=bool)
+def external_slopes(model: MeasurementModel, x: np.ndarray) -> np.ndarray:
+    """d(external value)/dx (M, P) of every parameter at internal x (M, P)."""
+    slope = np.empty(x.shape)
+    for j, fp in enumerate(model.space.parameters):
+        slope[:, j] = fp.external_slope(x[:, j])
+    return slope
 
 
 def _engine_columns(model: MeasurementModel) -> tuple[list[tuple[str, int]], np.ndarray]:
@@ -111,8 +112,8 @@ def _probe_derivatives(model: MeasurementModel, solution: BatchSolution,
 
 def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution, *,
                 node_derivatives: bool = False) -> tuple[np.ndarray, np.ndarray | None]:
-    """The Jacobian (R, P) of the raw (unscaled) predictions at internal x (P,), analytic
-    in the rows of :func:`analytic_rows` (other rows zero); ``solution`` is the model's
+    """The Jacobian (R, P) of the raw (unscaled) predictions at internal x (P,) in the
+    rows of the DC readings and the parts read out of circuit (small-signal rows zero); ``solution`` is the model's
     engine solution at x (one group of boards: the board alone, one board per probe,
     one per ammeter). With ``node_derivatives``, also dV/dx (n_nodes + 1, P) of every node of the
     board alone (gnd last, 0), else None.
@@ -131,9 +132,7 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
         jac, dv = dc_jacobian(model, x[None, :], solution, node_derivatives=node_derivatives)
         return jac[0], None if dv is None else dv[0]
     m, p = x.shape
-    slope = np.empty((m, p))
-    for j, fp in enumerate(model.space.parameters):
-        slope[:, j] = fp.external_slope(x[:, j])
+    slope = external_slopes(model, x)
     jac = np.zeros((m, len(model.observations), p))
     cols, owners = _engine_columns(model)
     cols = tuple(cols)

@@ -27,13 +27,12 @@ the number of distinct probe positions and A the resistors whose current is read
 of each group is the board alone, row k the board with probe k attached, row K + a the
 board with the ammeter in series with resistor a.
 
-The Jacobian (:meth:`MeasurementModel.jacobian`) is analytic for every DC reading and
-every part read out of circuit (:mod:`reconcile.inference.dc_jacobian`: the engine's
-implicit-function sensitivities of the one solved group, taken to the internal
-coordinates by the chain rule), and for the calibration factors' columns. Small-signal
-rows (gain, input and output resistance, at any frequency) stay forward differences:
-one batched engine call of the board alone (no probe boards) at P_board + 1 vectors,
-warm-started from the solved point.
+The Jacobian (:meth:`MeasurementModel.jacobian`) is analytic in every row, from the
+one solved group: DC readings and parts read out of circuit by the engine's
+implicit-function sensitivities (:mod:`reconcile.inference.dc_jacobian`), small-signal
+readings at any frequency by the adjoint of the board's complex nodal matrix with the
+operating point's movement (:mod:`reconcile.inference.signal_jacobian`), both taken to
+the internal coordinates by the chain rule; the calibration factors' columns are exact.
 """
 
 from __future__ import annotations
@@ -48,8 +47,8 @@ from reconcile.engine import BatchSolution, DCState, compile_board, nominal_para
 from reconcile.engine.batch import bytes_per_board
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.inference.calibration import calibration_map
-from reconcile.inference.dc_jacobian import analytic_rows, apply_calibration, dc_jacobian
-from reconcile.inference.optimiser import DERIVATIVE_STEP, difference_steps
+from reconcile.inference.dc_jacobian import apply_calibration, dc_jacobian
+from reconcile.inference.signal_jacobian import fill_signal_rows, signal_rows
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
@@ -315,97 +314,30 @@ class MeasurementModel:
                 out[:, i] = getattr(at_freq, name)[:, j]
         return out
 
-    def jacobian(self, x: np.ndarray, *,
-                 step: float = DERIVATIVE_STEP) -> tuple[np.ndarray, np.ndarray]:
+    def jacobian(self, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Predictions at x (R,) and their Jacobian (R, P) in internal coordinates.
 
-        DC rows and parts read out of circuit are analytic, from the one engine solve of
-        the predictions (:mod:`reconcile.inference.dc_jacobian`); small-signal rows, if
-        any, are forward differences of ``step`` (:meth:`small_signal_differences`);
-        calibration columns are exact (a scaled reading is linear in its factor)."""
+        Every row is analytic, from the one engine solve of the predictions: DC
+        readings and parts read out of circuit by :mod:`reconcile.inference.dc_jacobian`,
+        small-signal readings by :mod:`reconcile.inference.signal_jacobian` from the
+        same board's node derivatives; calibration columns are exact (a scaled reading
+        is linear in its factor)."""
         x = np.asarray(x, dtype=float).ravel()
         sol = self.solve(x[None, :])
         f0 = self.predict(x[None, :], solution=sol)[0]
-        numeric = ~analytic_rows(self)
-        jac, dv = dc_jacobian(self, x, sol, node_derivatives=bool(numeric.any()))
-        if numeric.any():
-            jac[numeric] = self.small_signal_differences(x, sol, dv, step=step)[numeric]
+        jac = self.raw_jacobian(x[None, :], sol)[0]
         apply_calibration(self, x, f0, jac)
         bad = ~np.isfinite(f0)
         jac[bad] = np.nan
         return f0, jac
 
-    def _seed(self, solution: BatchSolution, m: int, reps: int, offsets: np.ndarray | None
-              ) -> DCState:
-        """Starting points of the boards alone of :meth:`small_signal_differences`:
-        each of the M groups' board alone repeated ``reps`` times, moved by ``offsets``
-        (M·reps, n_nodes + 1) to its linearised operating point when given."""
-        st = solution.state
-        alone = np.repeat(np.arange(m) * self.group, reps)
-        v = st.v[alone].copy()
-        if offsets is None:
-            return DCState(v=v, vj=st.vj[alone], converged=st.converged[alone],
-                           iterations=st.iterations[alone])
-        v += offsets
-        q, pol = self.circuit.transistor_nodes, self.circuit.polarity
-        vj = np.empty((v.shape[0], len(pol), 2))
-        if len(pol):
-            vj[:, :, 0] = pol * (v[:, q[:, 1]] - v[:, q[:, 2]])
-            vj[:, :, 1] = pol * (v[:, q[:, 1]] - v[:, q[:, 0]])
-        n = v.shape[0]
-        return DCState(v=v, vj=vj, converged=np.ones(n, dtype=bool),
-                       iterations=np.zeros(n, dtype=np.int64))
-
-    def small_signal_differences(self, x: np.ndarray, solution: BatchSolution,
-                                 node_derivatives: np.ndarray | None = None, *,
-                                 step: float = DERIVATIVE_STEP,
-                                 board_parameters=None) -> np.ndarray:
-        """Forward-difference rows (R, P) of the raw (unscaled) small-signal predictions
-        at x; other rows and the calibration columns are zero. The board alone is solved
-        at x and at x + h·e_j for every board parameter j (the one step rule,
-        :func:`reconcile.inference.optimiser.difference_steps`), in one batched call
-        (chunked under the memory budget), seeded from ``solution`` (the model's solve
-        at x) or, given ``node_derivatives`` (dV/dx of the board alone, n_nodes + 1 by
-        P), each from its linearised operating point V + h·dV/dx_j, so Newton starts
-        converged to first order.
-
-        Batched: x (M, P), a solution of M groups and node derivatives (M, n_nodes + 1,
-        P) give (M, R, P). ``board_parameters(xs, owner)``, if given, makes the engine
-        parameters of the boards alone at internal vectors xs, ``owner`` saying which
-        of the M points each belongs to (a fault hypothesis changes some); by default
-        :meth:`ParameterSpace.to_parameters`."""
-        x = np.asarray(x, dtype=float)
-        if x.ndim == 1:
-            dv = None if node_derivatives is None else node_derivatives[None]
-            return self.small_signal_differences(x[None, :], solution, dv, step=step,
-                                                 board_parameters=board_parameters)[0]
-        m, p = x.shape
-        cols = np.array([j for j, fp in enumerate(self.space.parameters)
-                         if fp.kind != "calibration"], dtype=np.intp)
-        kinds = [self.space.parameters[j].kind for j in cols]
-        h = difference_steps(kinds, x[:, cols], step=step)  # (M, C)
-        reps = cols.size + 1
-        xs = np.repeat(x, reps, axis=0)
-        moved = (np.arange(m)[:, None] * reps + 1 + np.arange(cols.size)[None, :]).ravel()
-        xs[moved, np.tile(cols, m)] += h.ravel()
-        offsets = None
-        if node_derivatives is not None:
-            offsets = np.zeros((m, reps, node_derivatives.shape[1]))
-            offsets[:, 1:] = (node_derivatives[:, :, cols] * h[:, None, :]).transpose(0, 2, 1)
-            offsets = offsets.reshape(m * reps, -1)
-        seed = self._seed(solution, m, reps, offsets)
-        owner = np.repeat(np.arange(m), reps)
-        make = board_parameters or (lambda xv, _own: self.space.to_parameters(xv, self.base))
-        rows = self._signal_plan
-        values = np.empty((xs.shape[0], len(rows)))
-        for sl in chunks(xs.shape[0], rows_per_chunk(bytes_per_board(self.circuit), share=0.5)):
-            part = DCState(v=seed.v[sl], vj=seed.vj[sl], converged=seed.converged[sl],
-                           iterations=seed.iterations[sl])
-            sol = solve_batch(self.circuit, make(xs[sl], owner[sl]), part)
-            values[sl] = self._small_signal_values(sol, np.arange(sl.stop - sl.start), rows)
-            values[sl][~sol.converged] = np.nan
-        values = values.reshape(m, reps, len(rows))
-        jac = np.zeros((m, len(self.observations), p))
-        jac[:, np.asarray(rows)[:, None], cols[None, :]] = (
-            (values[:, 1:] - values[:, :1]) / h[:, :, None]).transpose(0, 2, 1)
+    def raw_jacobian(self, x: np.ndarray, solution: BatchSolution) -> np.ndarray:
+        """The Jacobian (M, R, P) of the raw (unscaled) predictions at internal x (M, P),
+        ``solution`` being the engine solution there (M groups; its engine parameters
+        are used as they are, so a caller may have changed some, as a fault hypothesis
+        does)."""
+        signal = bool(signal_rows(self))
+        jac, dv = dc_jacobian(self, x, solution, node_derivatives=signal)
+        if signal:
+            fill_signal_rows(self, x, solution, dv, jac)
         return jac
