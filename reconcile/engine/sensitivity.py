@@ -202,25 +202,82 @@ def _functional_chunk(circuit: Circuit, params: Parameters, state: DCState,
     g = np.concatenate(
         [1.0 / params.resistor_ohms, params.capacitor_leak_siemens, params.probe_siemens], axis=1
     )
-    dfdp, dv_fixed = _parameter_partials(circuit, params, v, g, cols)
     free = circuit.free
-    fixed = circuit.supply_nodes.astype(np.intp)
     w = weights.copy()
     if len(circuit.dc_floating):
         w[:, circuit.dc_floating] = 0.0  # no DC voltage to speak of
-    out = np.einsum("ni,nip->np", w[:, fixed], dv_fixed[:, fixed, :])
+    out = np.zeros((len(v), len(cols)))
+    for k, (name, j) in enumerate(cols):  # w_fixed · dv_fixed/dp: a supply's own node
+        if name == "supply_volts":
+            out[:, k] = w[:, circuit.supply_nodes[j]]
     if len(free):
         if j_free is None:
             j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
-        rhs = dfdp[:, free, :]
-        if len(fixed):
-            j_rows = _node_rows(circuit, params, v, g)
-            rhs = rhs + np.einsum("nij,njp->nip", j_rows[:, free][:, :, fixed],
-                                  dv_fixed[:, fixed, :])
+        lam = np.zeros_like(v)
         with np.errstate(all="ignore"):
-            lam = solve_small(np.swapaxes(j_free, 1, 2), w[:, free, None])[:, :, 0]
-        out -= np.einsum("ni,nip->np", lam, rhs)
+            lam[:, free] = solve_small(np.swapaxes(j_free, 1, 2), w[:, free, None])[:, :, 0]
+        out -= _adjoint_terms(circuit, params, v, g, cols, lam)
     out[~np.asarray(state.converged, dtype=bool)] = np.nan
+    return out
+
+
+def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarray, cols,
+                   lam: np.ndarray) -> np.ndarray:
+    """λᵀ·(∂F/∂p + ∂F/∂v_fixed·dv_fixed/dp) (N, P) for λ over every node (0 off the free
+    ones), term by term: each column touches the few nodes of its own part, so ∂F/∂p
+    (N, size, P) is never built (what :func:`_parameter_partials` and
+    :func:`_node_rows` hold, read here one entry at a time)."""
+    out = np.zeros((len(v), len(cols)))
+    branch = circuit.branch_nodes
+    n_r = len(circuit.resistor_refs)
+    q, pol = circuit.transistor_nodes, circuit.polarity
+    partials = js = None
+    if len(q):
+        vbe, vbc = junction_voltages(circuit, v)
+        partials = _device_partials(circuit, params, vbe, vbc)
+    for k, (name, j) in enumerate(cols):
+        if name in ("resistor_ohms", "capacitor_leak_siemens"):
+            b = j if name == "resistor_ohms" else n_r + j
+            a_node, b_node = branch[b]
+            dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
+            out[:, k] = dg * (v[:, a_node] - v[:, b_node]) * (lam[:, a_node] - lam[:, b_node])
+        elif name == "supply_volts":
+            if js is None and len(q):
+                js = _conductances(circuit, params, v)
+            out[:, k] = _column_contraction(circuit, g, js, lam, int(circuit.supply_nodes[j]))
+        elif name == "temperature" or name in DEVICE_FIELDS:
+            dic, dib = partials[name]
+            for t in (range(len(q)) if name == "temperature" else (j,)):
+                nc, nb, ne = q[t]
+                out[:, k] += pol[t] * (dic[:, t] * (lam[:, nc] - lam[:, ne])
+                                       + dib[:, t] * (lam[:, nb] - lam[:, ne]))
+        else:
+            raise KeyError(f"no DC sensitivity for parameter field {name!r} (one of {FIELDS})")
+    return out
+
+
+def _conductances(circuit: Circuit, params: Parameters, v: np.ndarray) -> devices.JunctionState:
+    terms = device_terms(params)
+    vbe, vbc = junction_voltages(circuit, v)
+    return devices.junction_currents(vbe, vbc, terms.is_t, params.beta, params.beta_r,
+                                     params.VA, terms.n_vt)
+
+
+def _column_contraction(circuit: Circuit, g: np.ndarray, js, lam: np.ndarray,
+                        node: int) -> np.ndarray:
+    """λᵀ·∂F/∂v(node) (N,): the branches and transistors that reach ``node``."""
+    out = np.zeros(len(lam))
+    for b, (a_node, b_node) in enumerate(circuit.branch_nodes.tolist()):
+        if node in (a_node, b_node):
+            sign = 1.0 if node == a_node else -1.0
+            out += sign * g[:, b] * (lam[:, a_node] - lam[:, b_node])
+    for t, (nc, nb, ne) in enumerate(circuit.transistor_nodes.tolist()):
+        d_be = float(node == nb) - float(node == ne)  # d(v_b − v_e)/dv(node)
+        d_bc = float(node == nb) - float(node == nc)
+        if d_be or d_bc:
+            out += ((lam[:, nc] - lam[:, ne]) * (js.dic_dvbe[:, t] * d_be + js.dic_dvbc[:, t] * d_bc)
+                    + (lam[:, nb] - lam[:, ne]) * (js.dib_dvbe[:, t] * d_be
+                                                   + js.dib_dvbc[:, t] * d_bc))
     return out
 
 
