@@ -199,6 +199,10 @@ class _Group:
         self.state_v = np.zeros((h, g, size))
         self.state_vj = np.zeros((h, g, n_t, 2))
         self.has_state = np.zeros(h, dtype=bool)
+        #: where each warm start was solved, and dV/dx of its board alone at the last
+        #: Jacobian (None until one is taken): the next start is moved to first order
+        self.state_x = np.zeros((h, self.space.size))
+        self.state_dv: np.ndarray | None = None
 
     def expanded(self, index: np.ndarray) -> _Group:
         """The same group with its hypotheses repeated or reordered as ``index`` says
@@ -210,16 +214,30 @@ class _Group:
         out.reading_fix = [self.reading_fix[int(i)] for i in index]
         out.state_v, out.state_vj = self.state_v[index], self.state_vj[index]
         out.has_state = self.has_state[index]
+        out.state_x = self.state_x[index]
+        out.state_dv = None if self.state_dv is None else self.state_dv[index]
         return out
 
     # ---------------------------------------------------------------- engine
-    def _initial(self, owner: np.ndarray) -> DCState | None:
+    def _initial(self, owner: np.ndarray, x: np.ndarray) -> DCState | None:
+        """Warm starts of rows ``owner`` at internal x (M, P): each row's last solved
+        operating point, moved to first order by dV/dx of its last Jacobian,
+        V + dV/dx·(x − x_solved) (every board of the group by its board alone's
+        derivatives: a voltmeter or an ammeter's burden moves them by parts per
+        million). The junction voltages stay those solved, so Newton's junction
+        limiting measures its first step from a point it has solved."""
         if not self.has_state.any():
             return None
         g = self.model.group
         fill = int(np.nonzero(self.has_state)[0][0])
         src = np.where(self.has_state[owner], owner, fill)
-        v = self.state_v[src].reshape(len(owner) * g, -1)
+        v = self.state_v[src]
+        if self.state_dv is not None:
+            moved = self.has_state[owner]
+            shift = np.einsum("mnp,mp->mn", self.state_dv[src], x - self.state_x[src])
+            shift[~moved | ~np.isfinite(shift).all(axis=1)] = 0.0
+            v = v + shift[:, None, :]
+        v = v.reshape(len(owner) * g, -1)
         vj = self.state_vj[src].reshape(len(owner) * g, *self.state_vj.shape[2:])
         n = len(owner) * g
         return DCState(
@@ -256,7 +274,7 @@ class _Group:
         params = self.model.parameters(x, lambda p: self._with_faults(p, rows_owner))
         rows = np.arange(len(x)) * g if small_signal else False
         with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-            return solve_batch(self.model.circuit, params, self._initial(owner),
+            return solve_batch(self.model.circuit, params, self._initial(owner, x),
                                small_signal=rows)
 
     def evaluate(
@@ -289,6 +307,7 @@ class _Group:
                 vj = sol.state.vj.reshape(len(owner), g, *self.state_vj.shape[2:])
                 self.state_v[owner[ok]] = v[ok]
                 self.state_vj[owner[ok]] = vj[ok]
+                self.state_x[owner[ok]] = x[ok]
                 self.has_state[owner[ok]] = True
         return pred, sol
 
@@ -301,6 +320,12 @@ class _Group:
         r = self.weighted(pred)
         prior = np.where(self.free[owner], (x - self.mu[owner]) / self.sd[owner], 0.0)
         return np.sum(r**2, axis=1) + np.sum(prior**2, axis=1)
+
+    def _keep_derivatives(self, owner: np.ndarray, dv: np.ndarray) -> None:
+        """dV/dx of rows ``owner``'s boards alone, for their next warm starts."""
+        if self.state_dv is None:
+            self.state_dv = np.zeros((len(self.faults), *dv.shape[1:]))
+        self.state_dv[owner] = np.where(np.isfinite(dv), dv, 0.0)
 
     def jacobian(self, x: np.ndarray, f0: np.ndarray, owner: np.ndarray,
                  solution: BatchSolution | None = None) -> np.ndarray:
@@ -320,8 +345,9 @@ class _Group:
                                    for sl in chunks(m, per_call)])
         sol = self._solve(x, owner, small_signal=False) if solution is None else solution
         with np.errstate(all="ignore"):
-            jac = self.model.raw_jacobian(x, sol)
+            jac, dv = self.model.raw_jacobian(x, sol)
             apply_calibration(self.model, x, f0, jac)
+        self._keep_derivatives(owner, dv)
         for i in np.unique(owner):
             fixed = [k for k, _ in self.reading_fix[int(i)]]
             if fixed:

@@ -48,7 +48,7 @@ from reconcile.engine.batch import bytes_per_board
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.inference.calibration import calibration_map
 from reconcile.inference.dc_jacobian import apply_calibration, dc_jacobian
-from reconcile.inference.signal_jacobian import fill_signal_rows, signal_rows
+from reconcile.inference.signal_jacobian import fill_signal_rows
 from reconcile.inference.priors import ParameterSpace, build_space
 from reconcile.data.readings import Reading, standard_uncertainty
 
@@ -325,19 +325,18 @@ class MeasurementModel:
         x = np.asarray(x, dtype=float).ravel()
         sol = self.solve(x[None, :])
         f0 = self.predict(x[None, :], solution=sol)[0]
-        jac = self.raw_jacobian(x[None, :], sol)[0]
+        jac = self.raw_jacobian(x[None, :], sol)[0][0]
         apply_calibration(self, x, f0, jac)
         bad = ~np.isfinite(f0)
         jac[bad] = np.nan
         return f0, jac
 
-    def raw_jacobian(self, x: np.ndarray, solution: BatchSolution) -> np.ndarray:
+    def raw_jacobian(self, x: np.ndarray, solution: BatchSolution
+                     ) -> tuple[np.ndarray, np.ndarray]:
         """The Jacobian (M, R, P) of the raw (unscaled) predictions at internal x (M, P),
         ``solution`` being the engine solution there (M groups; its engine parameters
         are used as they are, so a caller may have changed some, as a fault hypothesis
-        does)."""
-        signal = bool(signal_rows(self))
-        jac, dv = dc_jacobian(self, x, solution, node_derivatives=signal)
-        if signal:
-            fill_signal_rows(self, x, solution, dv, jac)
-        return jac
+        does), and dV/dx (M, n_nodes + 1, P) of each group's board alone."""
+        jac, dv = dc_jacobian(self, x, solution, node_derivatives=True)
+        fill_signal_rows(self, x, solution, dv, jac)
+        return jac, dv
