@@ -154,7 +154,8 @@ def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt) -> dict[str, np.n
     and ``n_vt``. Worked out by hand from the equations above, the exponential's linear
     continuation included (its slope does not move above :data:`EXP_LIMIT`); the small-
     signal sensitivities (:mod:`reconcile.engine.small_signal_sensitivity`) use them, and
-    a test holds those to a high-precision difference of the equations themselves.
+    tests/test_measurement_jacobian.py holds the rows they make to mpmath differences of
+    a small-signal network built from the equations themselves.
     """
     x_f, x_r = vbe / n_vt, vbc / n_vt
     ef, def_ = _exp_continued(x_f)

@@ -6,8 +6,8 @@ every reading, (predicted − measured)/u, stacked with one prior row per free p
 Parameters named from the keys (``Q1.IS`` → ``Q1_IS``; the mapping is
 ``FitResult.names``). lmfit's ``least_squares`` method (scipy's trust-region reflective,
 with the hard bounds native) minimises it, with the measurement model's Jacobian
-(:meth:`MeasurementModel.jacobian`: analytic for DC readings, forward differences of the
-board alone for small-signal ones) as ``Dfun``. ``scale_covar=False``: the uncertainties
+(:meth:`MeasurementModel.jacobian`: analytic in every row, DC and small-signal) as
+``Dfun``. ``scale_covar=False``: the uncertainties
 are real, so lmfit's own covariance, inv(JᵀJ) of the whole weighted system at the
 solution, unscaled, is the linearised posterior. Only where lmfit gives none (a singular
 JᵀJ) is it recomputed here, by pseudo-inverse, and ``FitResult.covariance_source`` says
