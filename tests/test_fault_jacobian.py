@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import mpmath as mp
 import numpy as np
+import pytest
 from benchmarks.bench_diagnosis import BENCH_PLAN, bench_board
 
 from reconcile.diagnosis.fault_fit import _Group
@@ -67,6 +68,7 @@ def _group():
     return _Group(board, faults, observations_from(readings), space)
 
 
+@pytest.mark.slow
 def test_hypothesis_jacobian_matches_mpmath():
     """mpmath reference: every row (DC and small-signal) of every hypothesis, at a
     random point of each hypothesis' own space."""

@@ -14,8 +14,8 @@ about 1e-24, rounding about 1e-22), to 1e-6 of the largest derivative of that re
 
 Small-signal readings are predicted here from the mpmath operating point as the
 contract defines them (docs/formats.md §2.2 and §6.3): the board's exact linearisation
-(branch conductances, each transistor's four conductances by mpmath's own numerical
-differentiation of the device equations at the operating point, ``mpmath.diff``),
+(branch conductances, each transistor's four conductances by the complex step of the
+device equations at the operating point: :class:`tests.test_sensitivity.MpSignal`),
 capacitors as jωC, the hybrid-π Cπ = gm/(2π·ft) − c_mu (clipped at 0) and c_mu, the
 probe on the input and output nodes, supplies as AC ground; then three complex solves
 of the whole network: the load on the output and 1 A into the input (input resistance
@@ -47,7 +47,7 @@ from reconcile.inference.measure import MeasurementModel, observations_from
 from reconcile.inference.priors import build_space
 from reconcile.inference.simulate import simulate_readings
 from reconcile.model.board import DeviceParam, Signal
-from tests.test_sensitivity import MpBoard, random_board
+from tests.test_sensitivity import MpBoard, MpSignal, random_board
 
 mp.mp.dps = 34
 REL_TOL = 1e-6
@@ -119,11 +119,7 @@ class Reference:
         farads = [mp.mpf(float(f)) for f in base.capacitor_farads[0]]
         for mpb in self.boards:  # a capacitance enters the small-signal network only
             mpb.vals["capacitor_farads"] = list(farads)
-        self.signal = {name: float(getattr(base, name)[0]) for name in
-                       ("frequency", "source_ohms", "load_ohms", "probe_ac_siemens",
-                        "probe_ac_farads")}
-        self.ft = [mp.mpf(float(f)) if math.isfinite(f) else mp.inf for f in base.ft[0]]
-        self.c_mu = [mp.mpf(float(f)) for f in base.c_mu[0]]
+        self.signal = MpSignal(circuit, self.boards[0], base)
         self.inverses: list = [None] * len(self.boards)
         self._cache: tuple | None = None
 
@@ -178,84 +174,14 @@ class Reference:
             elif kind == "parameter":
                 out.append(ext[what])
             elif kind == "small_signal":
-                out.append(self.small_signal(vals, v, self.signal["frequency"])[what])
+                out.append(self.signal.quantities(vals, v, self.signal.frequency)[what])
             else:  # small_signal_at: (quantity, index into the model's frequencies)
                 name, j = what
-                out.append(self.small_signal(vals, v, model.frequencies[j])[name])
+                out.append(self.signal.quantities(vals, v, model.frequencies[j])[name])
             c = model.calibration_index[k]
             if c >= 0:
                 out[-1] *= ext[c]
         return out
-
-    def _network(self, vals, v, omega):
-        """The complex nodal matrix over the free nodes at angular frequency omega, and
-        the free row of each node (AC ground: supplies and gnd have none)."""
-        c = self.model.circuit
-        row = {int(node): i for i, node in enumerate(c.free)}
-        y = mp.matrix(len(row), len(row))
-
-        def stamp(a, b, value):
-            for r, k, sign in ((a, a, 1), (b, b, 1), (a, b, -1), (b, a, -1)):
-                if r in row and k in row:
-                    y[row[r], row[k]] += sign * value
-
-        for j in range(len(c.resistor_refs)):
-            stamp(*(int(n) for n in c.resistor_nodes[j]), 1 / vals["resistor_ohms"][j])
-        for j in range(len(c.capacitor_refs)):
-            stamp(*(int(n) for n in c.capacitor_nodes[j]), vals["capacitor_leak_siemens"][j]
-                  + 1j * omega * vals["capacitor_farads"][j])
-        mpb = self.boards[0]
-        for k in range(len(c.transistor_refs)):
-            s = int(c.polarity[k])
-            nc, nb, ne = (int(n) for n in c.transistor_nodes[k])
-            vbe, vbc = s * (v[nb] - v[ne]), s * (v[nb] - v[nc])
-            g = {}
-            for i, name in enumerate(("ic", "ib")):
-                def f(u, w, i=i):
-                    return mpb.device(vals, k, u, w)[i]
-                g[name] = (mp.diff(f, (vbe, vbc), (1, 0)), mp.diff(f, (vbe, vbc), (0, 1)))
-            # current into a terminal by node voltage (c, b, e); polarity squared is 1
-            rows = {nc: g["ic"], nb: g["ib"]}
-            for node, (d_be, d_bc) in rows.items():
-                for col, d in ((nc, -d_bc), (nb, d_be + d_bc), (ne, -d_be)):
-                    if node in row and col in row:
-                        y[row[node], row[col]] += d
-                    if ne in row and col in row:
-                        y[row[ne], row[col]] -= d
-            gm = g["ic"][0] + g["ic"][1]  # dIC/dVBE at fixed VCE
-            c_pi = max(gm / (2 * mp.pi * self.ft[k]) - self.c_mu[k], mp.mpf(0))
-            stamp(nb, nc, 1j * omega * self.c_mu[k])
-            stamp(nb, ne, 1j * omega * c_pi)
-        probe = self.signal["probe_ac_siemens"] + 1j * omega * self.signal["probe_ac_farads"]
-        for node in {c.input_node, c.output_node}:
-            if node in row:
-                y[row[node], row[node]] += probe
-        return y, row
-
-    def small_signal(self, vals, v, frequency) -> dict:
-        """Gain, source gain, input and output resistance at ``frequency``."""
-        c = self.model.circuit
-        y, row = self._network(vals, v, 2 * mp.pi * mp.mpf(frequency))
-        i_in, i_out = row[c.input_node], row[c.output_node]
-        rs, rl = mp.mpf(self.signal["source_ohms"]), self.signal["load_ohms"]
-
-        def solve(matrix, at, amps):
-            rhs = mp.matrix(len(row), 1)
-            rhs[at] = amps
-            return mp.lu_solve(matrix, rhs)
-
-        loaded = y.copy()
-        if math.isfinite(rl):
-            loaded[i_out, i_out] += 1 / mp.mpf(rl)
-        x = solve(loaded, i_in, 1)
-        driven = loaded.copy()
-        driven[i_in, i_in] += 1 / rs
-        x_gen = solve(driven, i_in, 1 / rs)  # 1 V open-circuit behind rs
-        sourced = y.copy()
-        sourced[i_in, i_in] += 1 / rs
-        x_out = solve(sourced, i_out, 1)
-        return {"gain": abs(x[i_out] / x[i_in]), "input_resistance": abs(x[i_in]),
-                "source_gain": abs(x_gen[i_out]), "output_resistance": abs(x_out[i_out])}
 
     def columns(self, x: np.ndarray) -> np.ndarray:
         """Central differences (R, P) in internal coordinates, step 1e-12."""

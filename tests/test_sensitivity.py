@@ -21,9 +21,11 @@ import pytest
 from reconcile.engine import compile_board, nominal_parameters, solve_batch
 from reconcile.engine.dc import jacobian_at
 from reconcile.engine.sensitivity import all_columns, dc_sensitivity
+from reconcile.engine.small_signal_sensitivity import small_signal_sensitivity
 from reconcile.model.board import (
     Board, Capacitor, Device, DeviceParam, Resistor, Signal, Supply, Transistor,
 )
+import dataclasses
 
 mp.mp.dps = 34
 K_OVER_Q = mp.mpf("1.380649e-23") / mp.mpf("1.602176634e-19")  # CODATA 2018, exact SI values
@@ -182,6 +184,133 @@ class MpBoard:
         return v, self.currents(vals, v), inverse
 
 
+class MpSignal:
+    """The small-signal quantities of a circuit in mpmath, as the contract defines them
+    (docs/formats.md §2.2 and §6.3), at an operating point solved by :class:`MpBoard`:
+    the exact linearisation (branch conductances, each transistor's four conductances
+    by the complex step of the device equations at the operating point),
+    capacitors as jωC, the hybrid-π Cπ = gm/(2π·ft) − c_mu (clipped at 0) and c_mu, the
+    probe on the input and output nodes, supplies as AC ground; then three complex
+    solves of the whole network: the load on the output and 1 A into the input (input
+    resistance |v_in|, gain |v_out/v_in|), the generator's Norton equivalent added
+    (source gain |v_out| for 1 V open-circuit), and the source resistance on the input,
+    1 A into the output and no load (output resistance). No two-port algebra of the
+    engine is used. ``vals`` must hold ``capacitor_farads``."""
+
+    def __init__(self, circuit, board: MpBoard, params) -> None:
+        self.circuit, self.board = circuit, board
+        self.frequency = float(params.frequency[0])
+        self.source_ohms = float(params.source_ohms[0])
+        self.load_ohms = float(params.load_ohms[0])
+        self.probe_siemens = mp.mpf(float(params.probe_ac_siemens[0]))
+        self.probe_farads = mp.mpf(float(params.probe_ac_farads[0]))
+        self.ft = [mp.mpf(float(f)) if math.isfinite(f) else mp.inf for f in params.ft[0]]
+        self.c_mu = [mp.mpf(float(f)) for f in params.c_mu[0]]
+
+    def _network(self, vals, v, omega):
+        """The complex nodal matrix over the free nodes at angular frequency omega, and
+        the free row of each node (AC ground: supplies and gnd have none)."""
+        c = self.circuit
+        row = {int(node): i for i, node in enumerate(c.free)}
+        y = mp.matrix(len(row), len(row))
+
+        def stamp(a, b, value):
+            for r, k, sign in ((a, a, 1), (b, b, 1), (a, b, -1), (b, a, -1)):
+                if r in row and k in row:
+                    y[row[r], row[k]] += sign * value
+
+        for j in range(len(c.resistor_refs)):
+            stamp(*(int(n) for n in c.resistor_nodes[j]), 1 / vals["resistor_ohms"][j])
+        for j in range(len(c.capacitor_refs)):
+            stamp(*(int(n) for n in c.capacitor_nodes[j]), vals["capacitor_leak_siemens"][j]
+                  + 1j * omega * vals["capacitor_farads"][j])
+        mpb = self.board
+        for k in range(len(c.transistor_refs)):
+            s = int(c.polarity[k])
+            nc, nb, ne = (int(n) for n in c.transistor_nodes[k])
+            vbe, vbc = s * (v[nb] - v[ne]), s * (v[nb] - v[nc])
+            # the four conductances by the complex step: d f/dx = Im f(x + i·h)/h, exact
+            # to the working precision (no difference is taken); the device equations
+            # are analytic in both junction voltages
+            h = mp.mpf("1e-40")
+            by_be = mpb.device(vals, k, vbe + 1j * h, vbc)
+            by_bc = mpb.device(vals, k, vbe, vbc + 1j * h)
+            g = {name: (mp.im(by_be[i]) / h, mp.im(by_bc[i]) / h)
+                 for i, name in enumerate(("ic", "ib"))}
+            # current into a terminal by node voltage (c, b, e); polarity squared is 1
+            rows = {nc: g["ic"], nb: g["ib"]}
+            for node, (d_be, d_bc) in rows.items():
+                for col, d in ((nc, -d_bc), (nb, d_be + d_bc), (ne, -d_be)):
+                    if node in row and col in row:
+                        y[row[node], row[col]] += d
+                    if ne in row and col in row:
+                        y[row[ne], row[col]] -= d
+            gm = g["ic"][0] + g["ic"][1]  # dIC/dVBE at fixed VCE
+            c_pi = max(gm / (2 * mp.pi * self.ft[k]) - self.c_mu[k], mp.mpf(0))
+            stamp(nb, nc, 1j * omega * self.c_mu[k])
+            stamp(nb, ne, 1j * omega * c_pi)
+        probe = self.probe_siemens + 1j * omega * self.probe_farads
+        for node in {c.input_node, c.output_node}:
+            if node in row:
+                y[row[node], row[node]] += probe
+        return y, row
+
+    def quantities(self, vals, v, frequency, *, whole: bool = True) -> dict:
+        """Gain, source gain, input and output resistance at ``frequency``.
+
+        ``whole``: three solves of the whole network, each with its own terminations;
+        else one factorisation of the unterminated network and its open-circuit
+        impedance parameters z11, z12, z21, z22 between input and output, closed by the
+        terminated two-port's relations (any network-analysis textbook, e.g. Hayt &
+        Kemmerly, *Engineering Circuit Analysis*, two-port networks; from memory):
+        Zin = z11 − z12·z21/(z22 + ZL), v2/v1 = z21·ZL/(z11·(z22 + ZL) − z12·z21),
+        Zout = z22 − z12·z21/(z11 + Rs), v2/v_gen = v2/v1 · Zin/(Zin + Rs)."""
+        c = self.circuit
+        y, row = self._network(vals, v, 2 * mp.pi * mp.mpf(frequency))
+        i_in, i_out = row[c.input_node], row[c.output_node]
+        rs, rl = mp.mpf(self.source_ohms), self.load_ohms
+
+        def solve(matrix, at, amps):
+            rhs = mp.matrix(len(row), 1)
+            rhs[at] = amps
+            return mp.lu_solve(matrix, rhs)
+
+        if not whole:
+            lu, perm = mp.mp.LU_decomp(y.copy())  # one factorisation, two right-hand sides
+            x1, x2 = ([mp.mp.U_solve(lu, mp.mp.L_solve(lu, _unit(len(row), at), perm))]
+                      for at in (i_in, i_out))
+            x1, x2 = x1[0], x2[0]
+            z11, z21, z12, z22 = x1[i_in], x1[i_out], x2[i_in], x2[i_out]
+            if math.isfinite(rl):
+                zl = mp.mpf(rl)
+                z_in = z11 - z12 * z21 / (z22 + zl)
+                gain = z21 * zl / (z11 * (z22 + zl) - z12 * z21)
+            else:
+                z_in, gain = z11, z21 / z11
+            z_out = z22 - z12 * z21 / (z11 + rs)
+            return {"gain": abs(gain), "input_resistance": abs(z_in),
+                    "source_gain": abs(gain * z_in / (z_in + rs)),
+                    "output_resistance": abs(z_out)}
+        loaded = y.copy()
+        if math.isfinite(rl):
+            loaded[i_out, i_out] += 1 / mp.mpf(rl)
+        x = solve(loaded, i_in, 1)
+        driven = loaded.copy()
+        driven[i_in, i_in] += 1 / rs
+        x_gen = solve(driven, i_in, 1 / rs)  # 1 V open-circuit behind rs
+        sourced = y.copy()
+        sourced[i_in, i_in] += 1 / rs
+        x_out = solve(sourced, i_out, 1)
+        return {"gain": abs(x[i_out] / x[i_in]), "input_resistance": abs(x[i_in]),
+                "source_gain": abs(x_gen[i_out]), "output_resistance": abs(x_out[i_out])}
+
+
+def _unit(n: int, at: int):
+    e = mp.matrix(n, 1)
+    e[at] = 1
+    return e
+
+
 def reference_columns(circuit, params, v0, columns):
     """Central differences (node voltages, supply currents, resistor currents) per column."""
     mpb = MpBoard(circuit, params)
@@ -249,6 +378,102 @@ def _check_board(seed: int) -> None:
             scale = max(np.max(np.abs(s_ref[sl])), 1e-3)
             err = np.max(np.abs(s_ours[sl] - s_ref[sl]))
             assert err <= REL_TOL * scale, (seed, name, j, err / scale)
+
+
+SIGNAL_QUANTITIES = ("gain", "source_gain", "input_resistance", "output_resistance")
+
+
+def with_signal(board: Board, rng: np.random.Generator) -> Board:
+    """The board with a [signal] set-up from the first base to the last collector (a
+    random source, a load or none, a frequency), a probe, and ft and c_mu on every
+    device, so that Cπ moves with gm."""
+    last = max(int(ref[1:]) for ref in board.transistors)
+    devices = {name: dataclasses.replace(d, ft=DeviceParam(float(rng.uniform(50e6, 400e6))),
+                                         c_mu=DeviceParam(float(rng.uniform(1e-12, 6e-12))))
+               for name, d in board.devices.items()}
+    load = float(rng.uniform(2e3, 50e3)) if rng.random() < 0.7 else math.inf
+    signal = Signal(input="b0", output=f"c{last}", source_ohms=float(rng.uniform(50, 2e3)),
+                    load_ohms=load, frequency=float(rng.uniform(200.0, 20e3)))
+    bench = dataclasses.replace(board.bench, probe_ohms=float(rng.uniform(1e6, 10e6)),
+                                probe_farads=float(rng.uniform(5e-12, 20e-12)))
+    return dataclasses.replace(board, devices=devices, signal=signal, bench=bench)
+
+
+def small_signal_reference_columns(circuit, params, v0, columns, frequencies):
+    """Central differences (quantity × frequency, P) of the small-signal quantities of
+    :class:`MpSignal`, each column's DC point solved again by :class:`MpBoard`."""
+    mpb = MpBoard(circuit, params)
+    mpb.vals["capacitor_farads"] = [mp.mpf(float(x)) for x in params.capacitor_farads[0]]
+    signal = MpSignal(circuit, mpb, params)
+    v_base, _, inverse = mpb.solve(mpb.vals, v0)
+
+    def outputs(vals, v):
+        out = []
+        for f in frequencies:
+            found = signal.quantities(vals, v, f, whole=False)
+            out += [found[q] for q in SIGNAL_QUANTITIES]
+        return out
+
+    cols = []
+    for name, j in columns:
+        base = mpb.vals[name][j]
+        if base == mp.inf:  # VA = inf: nothing depends on it
+            cols.append([0.0] * (len(frequencies) * len(SIGNAL_QUANTITIES)))
+            continue
+        h = abs(base) * mp.mpf("1e-12") if base != 0 else mp.mpf("1e-18")
+        outs = []
+        for sign in (1, -1):
+            vals = {k: list(x) for k, x in mpb.vals.items()}
+            vals[name][j] = base + sign * h
+            v = v_base if name == "capacitor_farads" else mpb.solve(vals, v_base, inverse)[0]
+            outs.append(outputs(vals, v))
+        cols.append([float((p - m) / (2 * h)) for p, m in zip(outs[0], outs[1], strict=True)])
+    return np.array(cols).T
+
+
+def _check_small_signal(seed: int) -> None:
+    """Every column of the analytic small-signal sensitivities of one random board with a
+    [signal] set-up, at a frequency drawn log-uniform from 100 Hz to 5 MHz (low, the
+    coupling capacitors matter; high, Cπ, c_mu and the probe's capacitance), against
+    :func:`small_signal_reference_columns`."""
+    rng = np.random.default_rng(seed)
+    board = with_signal(random_board(rng), rng)
+    circuit = compile_board(board)
+    params = random_parameters(circuit, rng)
+    sol = solve_batch(circuit, params)
+    assert sol.converged[0]
+    dc_cols = all_columns(circuit)
+    columns = list(dc_cols) + [("capacitor_farads", j) for j in range(len(circuit.capacitor_refs))]
+    node_dv = np.zeros((1, circuit.n_nodes + 1, len(columns)))
+    node_dv[:, :-1, :len(dc_cols)] = dc_sensitivity(circuit, params, sol.state, dc_cols).node_v
+    frequencies = (float(10 ** rng.uniform(2.0, 6.7)),)
+    ours = small_signal_sensitivity(sol.linear, sol.state.v, np.array([frequencies]), columns,
+                                    node_dv)
+    ref = small_signal_reference_columns(circuit, params, sol.state.v[0], columns, frequencies)
+    values = sol.linear.response(np.array(frequencies))
+    row = 0
+    for f in range(len(frequencies)):
+        for q in SIGNAL_QUANTITIES:
+            # normalised sensitivities (p / y)·dy/dp, to 1e-6 of the row's largest
+            p_scale = np.array([abs(float(np.atleast_1d(getattr(params, n)[0])[j])) or 1e-6
+                                for n, j in columns])
+            finite = np.isfinite(p_scale)
+            y = abs(float(getattr(values, q)[0, f]))
+            s_ours = ours[q][0, f, finite] * p_scale[finite] / y
+            s_ref = ref[row, finite] * p_scale[finite] / y
+            err = np.max(np.abs(s_ours - s_ref))
+            assert err <= REL_TOL * max(np.max(np.abs(s_ref)), 1e-3), (seed, q, f, err)
+            assert np.all(ours[q][0, f, ~finite] == 0.0)
+            row += 1
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("block", range(10))
+def test_small_signal_columns_match_mpmath_central_differences(block):
+    """mpmath reference: 100 random boards with a [signal] set-up (ten blocks of ten),
+    every column, every small-signal quantity, 1e-6."""
+    for seed in range(2000 + block * 10, 2000 + block * 10 + 10):
+        _check_small_signal(seed)
 
 
 @pytest.mark.slow
