@@ -82,3 +82,43 @@ def test_large_board_sparse_and_dense_paths_agree_self_consistency(monkeypatch) 
     for q in ("gain", "input_resistance", "output_resistance"):
         np.testing.assert_allclose(fast.quantity(q), dense.quantity(q), rtol=1e-9)
     assert float(np.max(fast.kcl_residual)) < 1e-12
+
+
+def test_pays_off_follows_matrices_times_nodes() -> None:
+    # The rule of reconcile/engine/sparse.py (measured there): the fixed pattern for
+    # many matrices, dense LAPACK for few, the break-even falling as the board grows.
+    lu = sparse.SparseLU(sparse.free_pattern(
+        compile_board(board_from_text(stages_board_toml(8))), capacitors=False))
+    assert not lu.pays_off(1)
+    assert lu.pays_off(sparse.SPARSE_FROM_WORK // lu.n + 1)
+    assert not lu.pays_off(sparse.SPARSE_FROM_WORK // lu.n - 1)
+
+
+def test_large_board_jacobian_sparse_and_dense_solves_agree_self_consistency(
+        monkeypatch) -> None:
+    # Self-consistency check: the measurement model's analytic Jacobian (DC node
+    # derivatives, the probe boards' adjoint solves, the small-signal adjoint) of an
+    # 8-stage board at 100 parameter vectors, its solves on the fixed pattern where that
+    # pays off, and with every solve dense LAPACK: the same rows. Each path is held to
+    # mpmath on small boards in tests/test_sensitivity.py.
+    from reconcile.inference.measure import MeasurementModel, observations_from
+    from reconcile.inference.simulate import full_plan, simulate_readings
+
+    board = board_from_text(stages_board_toml(8))
+    plan = [key for key in full_plan(board) if key[0] != "gain"]  # 8 stages: gain ~1e8
+    readings = simulate_readings(board, plan, rng=np.random.default_rng(5))
+    model = MeasurementModel(board, observations_from(readings, board))
+    x = prior_draws(model.space, 100, np.random.default_rng(6))
+
+    def rows():
+        sol = model.solve(x, warm=False)
+        jac, dv = model.raw_jacobian(x, sol)
+        return jac, dv
+
+    fast, fast_dv = rows()
+    monkeypatch.setattr(sparse.SparseLU, "pays_off", lambda self, m: False)
+    dense, dense_dv = rows()
+    assert np.isfinite(fast).all()
+    scale = np.maximum(np.max(np.abs(dense), axis=(0, 2), keepdims=True), 1e-300)
+    np.testing.assert_allclose(fast / scale, dense / scale, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(fast_dv, dense_dv, rtol=1e-8, atol=1e-12)

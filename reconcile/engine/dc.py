@@ -297,8 +297,10 @@ class _Batch:
         return out.reshape(m, n_f, n_f)
 
     def solve_stored(self, a: np.ndarray, rhs: np.ndarray) -> np.ndarray:
-        """Solve systems in storage form; a singular one gives NaN."""
-        if self.sparse is None:
+        """Solve systems in storage form; a singular one gives NaN. Stored on the fixed
+        pattern, they are solved on it where that pays off (many systems; see
+        :meth:`reconcile.engine.sparse.SparseLU.pays_off`), else by dense LAPACK."""
+        if self.sparse is None or not self.sparse.pays_off(len(a)):
             return _solve(self.dense(a), rhs)
         x = self.sparse.solve_slots(a, rhs[..., None])[..., 0]
         bad = np.flatnonzero(~np.isfinite(x).all(axis=1))

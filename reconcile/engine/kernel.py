@@ -152,11 +152,12 @@ def solve_small(a: np.ndarray, b: np.ndarray, sparse=None) -> np.ndarray:
     """Solve a stack of systems a (M, n, n) x = b (M, n, k); NaN where singular.
 
     With ``sparse`` (a :class:`reconcile.engine.sparse.SparseLU` of the matrices'
-    pattern, given for large boards) the fixed-pattern factorisation; else the compiled
+    pattern, given for large boards) the fixed-pattern factorisation where it pays off
+    (:meth:`~reconcile.engine.sparse.SparseLU.pays_off`); else the compiled
     LU for large stacks when the kernel is in use, else :func:`numpy.linalg.solve` (one
     matrix at a time only if the stack has a singular one).
     """
-    if sparse is not None:
+    if sparse is not None and sparse.pays_off(a.shape[0]):
         x = sparse.solve(a, b)
         bad = np.flatnonzero(~np.isfinite(x).reshape(x.shape[0], -1).all(axis=1))
         if len(bad):  # a failed static pivot: dense LAPACK with row exchanges

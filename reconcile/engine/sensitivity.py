@@ -50,6 +50,7 @@ from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.engine.circuit import FLOAT_SIEMENS, Circuit, Parameters
 from reconcile.engine.dc import DCState, jacobian_at
 from reconcile.engine.kernel import solve_small
+from reconcile.engine.sparse import factorisation_for
 
 FIELDS = ("resistor_ohms", "capacitor_leak_siemens", "supply_volts", "IS", "beta", "VA", "n",
           "temperature")
@@ -215,7 +216,8 @@ def _functional_chunk(circuit: Circuit, params: Parameters, state: DCState,
             j_free = jacobian_at(circuit, params, state)  # (N, nF, nF)
         lam = np.zeros_like(v)
         with np.errstate(all="ignore"):
-            lam[:, free] = solve_small(np.swapaxes(j_free, 1, 2), w[:, free, None])[:, :, 0]
+            lam[:, free] = solve_small(np.swapaxes(j_free, 1, 2), w[:, free, None],
+                                       _pattern(circuit, len(v)))[:, :, 0]
         out -= _adjoint_terms(circuit, params, v, g, cols, lam)
     out[~np.asarray(state.converged, dtype=bool)] = np.nan
     return out
@@ -307,6 +309,13 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols,
     return out_v, d_sup, d_res
 
 
+def _pattern(circuit: Circuit, n_samples: int):
+    """The fixed-pattern factorisation of the DC Jacobian for a large board or batch
+    (its pattern is symmetric, so it serves the transposed systems of the adjoint too),
+    or None; :func:`reconcile.engine.kernel.solve_small` uses it where it pays off."""
+    return factorisation_for(circuit, capacitors=False, n_samples=n_samples)
+
+
 def junction_voltages(circuit: Circuit, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """npn-frame vbe, vbc (N, nT) from full node voltages."""
     q = circuit.transistor_nodes
@@ -396,14 +405,7 @@ def _node_derivatives(circuit: Circuit, params: Parameters, state: DCState, dfdp
     dv = dv_fixed.copy()
     if len(free):
         with np.errstate(all="ignore"):
-            try:
-                dv[:, free, :] = -np.linalg.solve(j_free, rhs)
-            except np.linalg.LinAlgError:
-                for i in range(n):
-                    try:
-                        dv[i, free, :] = -np.linalg.solve(j_free[i], rhs[i])
-                    except np.linalg.LinAlgError:
-                        dv[i, free, :] = np.nan
+            dv[:, free, :] = -solve_small(j_free, rhs, _pattern(circuit, n))
     dv[:, circuit.gnd, :] = 0.0
     if len(circuit.dc_floating):
         dv[:, circuit.dc_floating, :] = 0.0  # no DC voltage to speak of

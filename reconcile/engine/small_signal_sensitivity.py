@@ -42,6 +42,7 @@ import numpy as np
 from reconcile.engine import devices
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.engine.kernel import solve_small
+from reconcile.engine.sparse import factorisation_for
 from reconcile.engine.sensitivity import device_terms, junction_voltages
 from reconcile.engine.small_signal import LinearModel, SmallSignal
 
@@ -97,8 +98,10 @@ def _solves(linear: LinearModel, s: np.ndarray, freq: np.ndarray):
     e = np.zeros((rows, m, 2), dtype=complex)
     e[:, pos[c.input_node], 0] = 1.0
     e[:, pos[c.output_node], 1] = 1.0
-    x_free = solve_small(y, e)
-    u_free = solve_small(np.ascontiguousarray(y.transpose(0, 2, 1)), e)
+    # the pattern (capacitors in) is symmetric: it serves the transposed systems too
+    lu = factorisation_for(c, capacitors=True, n_samples=rows)
+    x_free = solve_small(y, e, lu)
+    u_free = solve_small(np.ascontiguousarray(y.transpose(0, 2, 1)), e, lu)
     x = np.zeros((rows, c.n_nodes + 1, 2), dtype=complex)
     u = np.zeros_like(x)
     x[:, c.free] = x_free

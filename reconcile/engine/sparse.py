@@ -37,6 +37,14 @@ step is one vector operation over the samples, which beats LAPACK's per-matrix o
 even on a 6-node board (measured side by side: 20 000 systems of the sample preamp in
 2 ms against 33 ms for ``numpy.linalg.solve``); on a handful of samples the Python-level
 steps cost more than LAPACK."""
+SPARSE_FROM_WORK = 3000
+"""Matrices × free nodes from which one solve runs on the fixed pattern rather than by
+dense LAPACK (:meth:`SparseLU.pays_off`). The pattern's steps cost about 20 µs per node
+whatever the number of matrices (Python-level vector operations), dense LAPACK about
+0.0066·n² µs per matrix; measured side by side on the cascades of the growth benchmark
+(10, 18, 34 and 66 free nodes, 8 to 1 024 matrices, one core) the two break even at 280,
+170, 100 and 45 matrices, i.e. at matrices × nodes ≈ 3 000. Newton's last steps, where
+only the samples still moving are solved, fall below it."""
 
 
 def free_pattern(circuit, *, capacitors: bool) -> np.ndarray:
@@ -107,6 +115,11 @@ class SparseLU:
         """Whether the elimination runs in the caller's own node order."""
         self.diagonal = np.array([step[0] for step in self.steps], dtype=np.intp)
         """The slots of the pivots, in elimination order."""
+
+    def pays_off(self, m: int) -> bool:
+        """Whether solving ``m`` matrices on the pattern beats dense LAPACK
+        (:data:`SPARSE_FROM_WORK`)."""
+        return m * self.n >= SPARSE_FROM_WORK
 
     @property
     def fill(self) -> int:
