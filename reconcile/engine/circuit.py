@@ -12,7 +12,8 @@ is taken). Supplies fix the voltage of their node; every other node is free.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field, fields, replace
+from dataclasses import dataclass, field, fields
+from functools import cached_property
 
 import numpy as np
 
@@ -57,18 +58,23 @@ class Circuit:
             return self.gnd
         return self.node_names.index(name)
 
-    @property
+    @cached_property
     def branch_nodes(self) -> np.ndarray:
-        """(nB, 2) nodes of every conductance branch: resistors, capacitor leaks, probes."""
-        return np.concatenate(
+        """(nB, 2) nodes of every conductance branch: resistors, capacitor leaks, probes
+        (worked out once per circuit, read-only: the topology never changes)."""
+        out = np.concatenate(
             [self.resistor_nodes, self.capacitor_nodes, self.probe_nodes], axis=0
         ).astype(np.intp)
+        out.flags.writeable = False
+        return out
 
-    @property
+    @cached_property
     def free_position(self) -> np.ndarray:
-        """For each node (and gnd), its row in the free-node system, or -1."""
+        """For each node (and gnd), its row in the free-node system, or -1 (once per
+        circuit, read-only)."""
         pos = np.full(self.n_nodes + 1, -1, dtype=np.intp)
         pos[self.free] = np.arange(len(self.free))
+        pos.flags.writeable = False
         return pos
 
 
@@ -183,43 +189,42 @@ class Parameters:
     def n_samples(self) -> int:
         return int(self.temperature.shape[0])
 
+    def _with_arrays(self, arrays: dict) -> Parameters:
+        """A copy with the given fields replaced (the constructor straight from the
+        field names, :data:`_PARAMETER_ARRAYS`, as :func:`dataclasses.replace` would
+        do after looking them up again on every call)."""
+        return Parameters(**arrays, extra=self.extra)
+
     def take(self, index: np.ndarray | slice) -> Parameters:
-        """The parameters of a subset of samples."""
-        return replace(
-            self,
-            **{f.name: getattr(self, f.name)[index] for f in fields(self) if f.name != "extra"},
-        )
+        """The parameters of a subset of samples (every sample in order, a slice of the
+        whole axis: this same object, whose arrays such a slice would only view)."""
+        if isinstance(index, slice) and index.indices(self.n_samples) == (
+                0, self.n_samples, 1):
+            return self
+        return self._with_arrays({name: getattr(self, name)[index] for name in _PARAMETER_ARRAYS})
 
     def repeat(self, n: int) -> Parameters:
         """Each sample repeated ``n`` times, consecutively (sample i -> rows i*n..i*n+n-1)."""
-        return replace(
-            self,
-            **{
-                f.name: np.repeat(getattr(self, f.name), n, axis=0)
-                for f in fields(self)
-                if f.name != "extra"
-            },
-        )
+        return self._with_arrays({name: np.repeat(getattr(self, name), n, axis=0)
+                                  for name in _PARAMETER_ARRAYS})
 
     def with_values(self, **arrays: np.ndarray) -> Parameters:
         """A copy with some fields replaced (broadcast to the sample axis)."""
-        out = {}
+        out = {name: getattr(self, name) for name in _PARAMETER_ARRAYS}
         for name, value in arrays.items():
-            current = getattr(self, name)
+            current = out[name]
             out[name] = np.broadcast_to(np.asarray(value, dtype=float), current.shape).copy()
-        return replace(self, **out)
+        return self._with_arrays(out)
 
     @staticmethod
     def concatenate(items: list[Parameters]) -> Parameters:
-        first = items[0]
-        return replace(
-            first,
-            **{
-                f.name: np.concatenate([getattr(p, f.name) for p in items], axis=0)
-                for f in fields(first)
-                if f.name != "extra"
-            },
-        )
+        return items[0]._with_arrays({
+            name: np.concatenate([getattr(p, name) for p in items], axis=0)
+            for name in _PARAMETER_ARRAYS})
+
+
+_PARAMETER_ARRAYS = tuple(f.name for f in fields(Parameters) if f.name != "extra")
+"""The array fields of :class:`Parameters` (every field but ``extra``), in order."""
 
 
 def nominal_parameters(
