@@ -129,9 +129,11 @@ def solve_batch(
     state = solve_dc(circuit, params, initial, batch=batch)
     v = state.v
     vbe_n, vbc_n = batch.junctions(v)
-    jac_ff, rhs, kcl = _final_linear_system(batch, params, v, vbe_n, vbc_n)
+    # the devices at the solution, once: the final linear system and the outputs read them
+    st = batch.device_state(slice(None), vbe_n, vbc_n) if len(circuit.transistor_refs) else None
+    jac_ff, rhs, kcl = _final_linear_system(batch, params, v, vbe_n, vbc_n, st)
     leaving_fixed = batch.current_out_of_fixed(v)  # (N, n_fixed) through branches
-    tr = _transistor_outputs(batch, circuit, params, v, vbe_n, vbc_n, leaving_fixed)
+    tr = _transistor_outputs(batch, circuit, params, v, vbe_n, vbc_n, leaving_fixed, st)
 
     rn = circuit.resistor_nodes
     dv = v[:, rn[:, 0]] - v[:, rn[:, 1]] if len(rn) else np.zeros((params.n_samples, 0))
@@ -145,7 +147,7 @@ def solve_batch(
     if wanted and circuit.input_node is not None and circuit.output_node is not None:
         linear = LinearModel(circuit, params, jac_ff, tr["gm"])
         ss = _small_signal_of(linear, small_signal)
-        if not np.all(state.converged):
+        if not state.converged.all():
             bad = ~state.converged
             for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
                 getattr(ss, name)[bad] = np.nan
@@ -182,13 +184,15 @@ def _small_signal_of(linear: LinearModel, rows: bool | np.ndarray) -> SmallSigna
 
 
 def _final_linear_system(batch: _Batch, params: Parameters, v: np.ndarray,
-                         vbe_n: np.ndarray, vbc_n: np.ndarray
+                         vbe_n: np.ndarray, vbc_n: np.ndarray,
+                         st: devices.JunctionState | None = None,
                          ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """The Newton system at the solution and each sample's largest |KCL error| there:
     reused from the compiled kernel's last iteration where it was built at the final
-    point, rebuilt for the rest."""
+    point, rebuilt for the rest; ``st`` is every sample's device state at the solution
+    (None without transistors)."""
     if batch.final_system is None:
-        jac_ff, rhs = batch.linear_system(slice(None), vbe_n, vbc_n)
+        jac_ff, rhs = batch.linear_system(slice(None), vbe_n, vbc_n, state=st)
         return jac_ff, rhs, _kcl_error(batch, jac_ff, rhs, v)
     jac_ff, rhs, valid, kcl = batch.final_system
     redo = np.flatnonzero(~valid)
@@ -209,10 +213,12 @@ def _kcl_error(batch: _Batch, jac_ff: np.ndarray, rhs: np.ndarray, v: np.ndarray
 
 def _transistor_outputs(batch: _Batch, circuit: Circuit, params: Parameters, v: np.ndarray,
                         vbe_n: np.ndarray, vbc_n: np.ndarray,
-                        leaving_fixed: np.ndarray) -> dict[str, np.ndarray]:
+                        leaving_fixed: np.ndarray,
+                        st: devices.JunctionState | None = None) -> dict[str, np.ndarray]:
     """Terminal currents, junction voltages, region, gm, rπ, ro and power of every
     transistor (the BatchSolution fields of that name); adds the terminal currents that
-    leave the fixed nodes to ``leaving_fixed`` in place."""
+    leave the fixed nodes to ``leaving_fixed`` in place. ``st``: the device state at the
+    solution (:meth:`_Batch.device_state`), worked out here when not given."""
     q = circuit.transistor_nodes
     pol = circuit.polarity
     n_t = q.shape[0]
@@ -222,7 +228,8 @@ def _transistor_outputs(batch: _Batch, circuit: Circuit, params: Parameters, v: 
         return dict(ic=zero, ib=zero, ie=zero, vbe=zero, vce=zero,
                     region=np.zeros(shape, dtype=np.int8), gm=zero, rpi=zero, ro=zero,
                     transistor_power=zero)
-    st = batch.device_state(slice(None), vbe_n, vbc_n)
+    if st is None:
+        st = batch.device_state(slice(None), vbe_n, vbc_n)
     ic = pol * st.ic
     ib = pol * st.ib
     ie = -(ic + ib)

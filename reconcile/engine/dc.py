@@ -68,15 +68,38 @@ class _Scatter:
             )
         )
 
+        self._by_width: dict[int, list[tuple[int, int, int, float]]] = {}
+
     def add_to(self, out: np.ndarray, src: np.ndarray) -> None:
         """Add the mapped ``src`` (M, n_src) into ``out`` (M, n_out) in place."""
-        for t, s, g in self.pairs:
-            if g == 1.0:
-                out[:, t] += src[:, s]
-            elif g == -1.0:
-                out[:, t] -= src[:, s]
-            else:
-                out[:, t] += g * src[:, s]
+        _add_pairs(out, [src], [(t, 0, s, g) for t, s, g in self.pairs])
+
+    def add_columns(self, out: np.ndarray, sources: tuple[np.ndarray, ...]) -> None:
+        """As :meth:`add_to` for ``src`` the K arrays ``sources`` (M, n) interleaved,
+        source column s being ``sources[s % K][:, s // K]`` (what stacking them on a last
+        axis and flattening it would give, without making that array)."""
+        width = len(sources)
+        plan = self._by_width.get(width)
+        if plan is None:
+            plan = [(t, s % width, s // width, g) for t, s, g in self.pairs]
+            self._by_width[width] = plan
+        _add_pairs(out, sources, plan)
+
+
+def _add_pairs(out: np.ndarray, sources, plan) -> None:
+    """``out[:, t] += g·sources[k][:, c]`` for each (t, k, c, g) of ``plan``, in order,
+    each column added in place through the transposed views (one ufunc call a pair)."""
+    o_t = out.T
+    cols = [src.T for src in sources]
+    add, subtract = np.add, np.subtract
+    for t, k, c, g in plan:
+        target = o_t[t]
+        if g == 1.0:
+            add(target, cols[k][c], out=target)
+        elif g == -1.0:
+            subtract(target, cols[k][c], out=target)
+        else:
+            add(target, g * cols[k][c], out=target)
 
 
 # The device stamp in the npn frame, per transistor: which of its four partial
@@ -264,13 +287,16 @@ class _Batch:
             vbe, vbc, self.is_t[idx], self.beta[idx], self.beta_r[idx], self.va[idx], self.n_vt[idx]
         )
 
-    def linear_system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float = 1.0):
+    def linear_system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float = 1.0,
+                      state: devices.JunctionState | None = None):
         """Free-space matrix (M, nF, nF) and right-hand side (M, nF) of the Newton step,
-        every transistor linearised at (vbe, vbc)."""
-        a, rhs = self._system(idx, vbe, vbc, gmin=gmin, scale=scale)
+        every transistor linearised at (vbe, vbc); ``state``, when given, is
+        :meth:`device_state` there (the caller has it already)."""
+        a, rhs = self._system(idx, vbe, vbc, gmin=gmin, scale=scale, state=state)
         return self.dense(a), rhs
 
-    def _system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float | np.ndarray = 1.0):
+    def _system(self, idx, vbe, vbc, *, gmin: float = 0.0, scale: float | np.ndarray = 1.0,
+                state: devices.JunctionState | None = None):
         """As :meth:`linear_system`, the matrix in storage form (M, n_store); ``scale``
         multiplies the supplies, one factor for all samples or one per sample (M,)."""
         a = self.g_ff[idx].copy() if isinstance(idx, slice) else self.g_ff[idx]
@@ -282,7 +308,7 @@ class _Batch:
         if gmin:
             a[:, self.diag_store] += gmin
         if len(self.circuit.transistor_refs):
-            st = self.device_state(idx, vbe, vbc)
+            st = self.device_state(idx, vbe, vbc) if state is None else state
             vq = self.vq_fixed[idx] * (s[:, :, None] if per_sample else s)
             self._stamp_devices(a, rhs, st, vbe, vbc, vq)
         return a, rhs
@@ -312,8 +338,7 @@ class _Batch:
         """Add the linearised transistors: their partials into ``a`` (M, nF·nF) and their
         equivalent currents (with the part that flows from fixed terminals) into ``rhs``."""
         pol = self.circuit.polarity
-        d = np.stack([st.dic_dvbe, st.dic_dvbc, st.dib_dvbe, st.dib_dvbc], axis=2)
-        self._device_jac.add_to(a, d.reshape(len(a), -1))
+        self._device_jac.add_columns(a, (st.dic_dvbe, st.dic_dvbc, st.dib_dvbe, st.dib_dvbc))
         ic0 = pol * (st.ic - st.dic_dvbe * vbe - st.dic_dvbc * vbc)
         ib0 = pol * (st.ib - st.dib_dvbe * vbe - st.dib_dvbc * vbc)
         vc, vb, ve = vq[:, :, 0], vq[:, :, 1], vq[:, :, 2]
@@ -321,8 +346,7 @@ class _Batch:
         fc = st.dic_dvbe * (vb - ve) + st.dic_dvbc * (vb - vc)
         fb = st.dib_dvbe * (vb - ve) + st.dib_dvbc * (vb - vc)
         cc, cb = ic0 + fc, ib0 + fb
-        cur = np.stack([cc, cb, -(cc + cb)], axis=2)
-        self._device_cur.add_to(rhs, cur.reshape(len(a), -1))
+        self._device_cur.add_columns(rhs, (cc, cb, -(cc + cb)))
 
     def current_out_of_fixed(self, v: np.ndarray) -> np.ndarray:
         """(N, n_fixed) current leaving each fixed node through the branches."""
@@ -380,7 +404,7 @@ class _Batch:
                 n_vt, v_crit = self.n_vt[sub], self.v_crit[sub]
                 vbe_l, lim_be = devices.limit_junction(vbe_raw, vj[at, :, 0], n_vt, v_crit)
                 vbc_l, lim_bc = devices.limit_junction(vbc_raw, vj[at, :, 1], n_vt, v_crit)
-                limited = np.any(lim_be | lim_bc, axis=1)
+                limited = (lim_be | lim_bc).any(axis=1)
             else:
                 vbe_l = vbc_l = np.zeros((len(active), 0))
                 limited = np.zeros(len(active), dtype=bool)
@@ -389,8 +413,8 @@ class _Batch:
                                   scale=scale_of[at] if per_sample else scale)
             v_free = self.solve_stored(a, rhs)
             old = va[:, free]
-            ok_num = np.all(np.isfinite(v_free), axis=1)
-            small = np.all(np.abs(v_free - old) <= V_ABS_TOL + V_REL_TOL * np.abs(v_free), axis=1)
+            ok_num = np.isfinite(v_free).all(axis=1)
+            small = (np.abs(v_free - old) <= V_ABS_TOL + V_REL_TOL * np.abs(v_free)).all(axis=1)
             va[:, free] = v_free if ok_num.all() else np.where(ok_num[:, None], v_free, old)
             if not full:
                 v[active] = va

@@ -208,7 +208,7 @@ def limit_junction(
     limit was applied.
     """
     big_step = (v_new > v_crit) & (np.abs(v_new - v_old) > 2.0 * n_vt)
-    if not np.any(big_step):
+    if not big_step.any():
         return v_new, big_step
     arg = 1.0 + (v_new - v_old) / n_vt
     with np.errstate(invalid="ignore", divide="ignore"):

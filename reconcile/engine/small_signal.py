@@ -139,12 +139,12 @@ class LinearModel:
             c_pi = self.c_pi()[s_idx]
             c_mu = p.c_mu[s_idx]
             for t, (nc, nb, ne) in enumerate(c.transistor_nodes.tolist()):
-                if np.any(c_mu[:, t] > 0.0):
+                if (c_mu[:, t] > 0.0).any():
                     _stamp(yi, pos[nb], pos[nc], omega * c_mu[:, t])
-                if np.any(c_pi[:, t] > 0.0):
+                if (c_pi[:, t] > 0.0).any():
                     _stamp(yi, pos[nb], pos[ne], omega * c_pi[:, t])
         g_probe, c_probe = p.probe_ac_siemens[s_idx], p.probe_ac_farads[s_idx]
-        if np.any(g_probe > 0.0) or np.any(c_probe > 0.0):
+        if (g_probe > 0.0).any() or (c_probe > 0.0).any():
             for node in {c.input_node, c.output_node}:
                 r = pos[node]
                 if r >= 0:
