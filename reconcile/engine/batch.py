@@ -173,7 +173,7 @@ def _small_signal_of(linear: LinearModel, rows: bool | np.ndarray) -> SmallSigna
     if rows is True:
         return linear.at_signal_frequency()
     rows = np.asarray(rows, dtype=np.intp)
-    part = linear.take(rows).at_signal_frequency()
+    part = linear.take(_evenly_spaced(rows)).at_signal_frequency()
     n = linear.params.n_samples
     fields = {"frequency": linear.params.frequency.copy()}
     for name in SmallSignal.QUANTITIES + ("gain_phase_deg",):
@@ -181,6 +181,21 @@ def _small_signal_of(linear: LinearModel, rows: bool | np.ndarray) -> SmallSigna
         full[rows] = getattr(part, name)
         fields[name] = full
     return SmallSignal(**fields)
+
+
+def _evenly_spaced(rows: np.ndarray) -> np.ndarray | slice:
+    """``rows`` as the slice that selects the same rows when they are evenly spaced and
+    increasing (one row, or a group's first row of each group: views instead of copies
+    of the parameters), else ``rows``."""
+    if len(rows) == 0 or rows[0] < 0:
+        return rows
+    if len(rows) == 1:
+        return slice(int(rows[0]), int(rows[0]) + 1)
+    if len(rows) > 1:
+        step = int(rows[1] - rows[0])
+        if step > 0 and np.array_equal(np.diff(rows), np.full(len(rows) - 1, step)):
+            return slice(int(rows[0]), int(rows[-1]) + 1, step)
+    return rows
 
 
 def _final_linear_system(batch: _Batch, params: Parameters, v: np.ndarray,

@@ -208,6 +208,13 @@ class Parameters:
         return self._with_arrays({name: np.repeat(getattr(self, name), n, axis=0)
                                   for name in _PARAMETER_ARRAYS})
 
+    def with_arrays(self, **arrays: np.ndarray) -> Parameters:
+        """A copy with some fields replaced by the given arrays as they are (each of its
+        field's shape; no copy, no broadcast: the caller's own new arrays)."""
+        out = {name: getattr(self, name) for name in _PARAMETER_ARRAYS}
+        out.update(arrays)
+        return self._with_arrays(out)
+
     def with_values(self, **arrays: np.ndarray) -> Parameters:
         """A copy with some fields replaced (broadcast to the sample axis)."""
         out = {name: getattr(self, name) for name in _PARAMETER_ARRAYS}

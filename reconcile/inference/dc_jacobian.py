@@ -104,6 +104,8 @@ def _probe_derivatives(model: MeasurementModel, solution: BatchSolution,
         weights[i, c.node_index(b)] -= 1.0
     weights[:, c.gnd] = 0.0
     rows = (np.arange(m)[:, None] * model.group + np.arange(1, 1 + k)[None, :]).ravel()
+    if m == 1:
+        rows = slice(1, 1 + k)  # the same boards, viewed rather than copied
     newton = None if solution.newton_matrix is None else solution.newton_matrix[rows]
     out = dc_functional_sensitivity(c, solution.params.take(rows), _rows(solution.state, rows),
                                     np.tile(weights, (m, 1)), cols, newton)
@@ -143,7 +145,7 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
                if kind == "resistor_current" and row > 0]
     dv = np.zeros((m, model.circuit.n_nodes + 1, p)) if node_derivatives else None
     if cols and (base or node_derivatives):
-        alone = np.arange(m) * model.group
+        alone = slice(0, m * model.group, model.group)  # row 0 of each group, as views
         sens = dc_sensitivity(model.circuit, solution.params.take(alone),
                               _rows(solution.state, alone), cols,
                               None if solution.newton_matrix is None

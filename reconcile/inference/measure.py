@@ -202,21 +202,22 @@ class MeasurementModel:
         p = self.space.to_parameters(x, self.base).repeat(self.group)
         if board_change is not None:
             p = board_change(p)
+        meters = {}  # new arrays of the fields the meters change, set in one copy of p
         if self.probes:
             g = 1.0 / self.board.bench.voltmeter_ohms
             probe = np.zeros((x.shape[0] * self.group, len(self.probes)))
             k = len(self.probes)
             rows = np.arange(x.shape[0])[:, None] * self.group + np.arange(1, 1 + k)[None, :]
             probe[rows, np.arange(len(self.probes))[None, :]] = g
-            p = p.with_values(probe_siemens=probe)
+            meters["probe_siemens"] = probe
         if self.ammeters:
             ohms = p.resistor_ohms.copy()
             first = 1 + len(self.probes)
             for a, ref in enumerate(self.ammeters):
                 rows = np.arange(x.shape[0]) * self.group + first + a
                 ohms[rows, self.circuit.resistor_refs.index(ref)] += self.board.bench.ammeter_ohms
-            p = p.with_values(resistor_ohms=ohms)
-        return p
+            meters["resistor_ohms"] = ohms
+        return p.with_arrays(**meters) if meters else p
 
     def _signal_rows(self, m: int) -> np.ndarray:
         """Rows of M groups whose small-signal results a prediction reads: the board
@@ -304,7 +305,8 @@ class MeasurementModel:
         out = np.empty((len(base_rows), len(rows)))
         at_freq = None
         if self.frequencies and sol.linear is not None:  # (M, F): the board alone
-            at_freq = sol.linear.take(base_rows).response(np.array(self.frequencies))
+            alone = slice(0, len(base_rows) * self.group, self.group)  # base_rows, as views
+            at_freq = sol.linear.take(alone).response(np.array(self.frequencies))
         for i, k in enumerate(rows):
             kind, _, what = self.plan[k]
             if kind == "small_signal":

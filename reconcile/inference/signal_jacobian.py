@@ -52,7 +52,7 @@ def fill_signal_rows(model: MeasurementModel, x: np.ndarray, solution: BatchSolu
             cols.append((field, 0 if fp.kind == "temperature" else fp.column))
             owners.append(j)
     owners = np.array(owners, dtype=np.intp)
-    alone = np.arange(m) * model.group
+    alone = slice(0, m * model.group, model.group)  # row 0 of each group, as views
     freq = np.column_stack([solution.params.frequency[alone]]
                            + [np.full(m, f) for f in model.frequencies])
     sens = small_signal_sensitivity(
