@@ -119,20 +119,28 @@ def _two_port_derivatives(linear: LinearModel, v: np.ndarray, freq: np.ndarray, 
     omega = 2.0 * np.pi * freq
     contraction = np.zeros((len(freq), 4, len(cols)), dtype=complex)
     n_r = len(c.resistor_refs)
+    # The branches' own columns, one kind at a time (each column's terms are the same
+    # element-wise operations as one column at a time, so the sums are the same).
+    groups: dict[str, tuple[list[int], list[int]]] = {}
     for k, col in enumerate(cols):
-        if col is None:
-            continue
-        name, j = col
+        if col is not None and col[0] in ("resistor_ohms", "capacitor_farads",
+                                          "capacitor_leak_siemens"):
+            ks, js = groups.setdefault(col[0], ([], []))
+            ks.append(k)
+            js.append(col[1])
+    for name, (ks, js) in groups.items():
         if name == "resistor_ohms":
-            a, b = c.resistor_nodes[j]
-            weight = -1.0 / p.resistor_ohms[s, j] ** 2
-        elif name in ("capacitor_farads", "capacitor_leak_siemens"):
-            a, b = c.branch_nodes[n_r + j]
-            weight = 1j * omega if name == "capacitor_farads" else np.ones(len(freq))
+            nodes = c.resistor_nodes[js]
+            weight = -1.0 / p.resistor_ohms[s][:, js] ** 2
         else:
-            continue
-        du, dx = u[:, a] - u[:, b], x[:, a] - x[:, b]
-        contraction[:, :, k] += (weight * scale[:, k])[:, None] * du[:, _PAIRS_A] * dx[:, _PAIRS_B]
+            nodes = c.branch_nodes[[n_r + j for j in js]]
+            weight = ((1j * omega)[:, None] * np.ones(len(js)) if name == "capacitor_farads"
+                      else np.ones((len(freq), len(js))))
+        a, b = nodes[:, 0], nodes[:, 1]
+        du, dx = u[:, a] - u[:, b], x[:, a] - x[:, b]  # (rows, K, 2)
+        contraction[:, :, ks] += ((weight * scale[:, ks])[:, None, :]
+                                  * du[:, :, _PAIRS_A].transpose(0, 2, 1)
+                                  * dx[:, :, _PAIRS_B].transpose(0, 2, 1))
     if len(c.transistor_refs):
         _add_transistors(linear, v, omega, s, cols, node_dv, scale, x, u, contraction)
     return -contraction, z
@@ -162,21 +170,26 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
         cap = (1j * omega * kappa[:, t])[:, None] * lever[:, 2]
         lever[:, 0] += cap
         lever[:, 1] += cap
-        by_vbe = np.einsum("rk,rkq->rq", slopes["vbe"][:, t], lever)
-        by_vbc = np.einsum("rk,rkq->rq", slopes["vbc"][:, t], lever)
-        dvbe = pol * (node_dv[:, nb] - node_dv[:, ne])
-        dvbc = pol * (node_dv[:, nb] - node_dv[:, nc])
-        contraction += by_vbe[:, :, None] * dvbe[:, None, :] + by_vbc[:, :, None] * dvbc[:, None, :]
+        # Every contraction of this transistor's lever in one einsum (the same sums as
+        # one at a time): by VBE, by VBC, then its own parameters' columns.
+        own, slope_rows = [], [slopes["vbe"][:, t], slopes["vbc"][:, t]]
         for k, col in enumerate(cols):
             if col is None or col[0] not in _DEVICE_FIELDS or col[1] != t:
                 continue
             field, chain = direct[col[0]]
-            d_g = slopes[field][:, t] * np.broadcast_to(chain, vbe.shape)[:, t, None]
-            contraction[:, :, k] += np.einsum("rk,rkq->rq", d_g, lever) * scale[:, k, None]
+            own.append(k)
+            slope_rows.append(slopes[field][:, t] * np.broadcast_to(chain, vbe.shape)[:, t, None])
         for k in temperature:
-            d_g = (slopes["is_t"][:, t] * terms.dis_dT[:, t, None]
-                   + slopes["n_vt"][:, t] * terms.dnvt_dT[:, t, None])
-            contraction[:, :, k] += np.einsum("rk,rkq->rq", d_g, lever) * scale[:, k, None]
+            own.append(k)
+            slope_rows.append(slopes["is_t"][:, t] * terms.dis_dT[:, t, None]
+                              + slopes["n_vt"][:, t] * terms.dnvt_dT[:, t, None])
+        by = np.einsum("rjk,rkq->rjq", np.stack(slope_rows, axis=1), lever)
+        by_vbe, by_vbc = by[:, 0], by[:, 1]
+        dvbe = pol * (node_dv[:, nb] - node_dv[:, ne])
+        dvbc = pol * (node_dv[:, nb] - node_dv[:, nc])
+        contraction += by_vbe[:, :, None] * dvbe[:, None, :] + by_vbc[:, :, None] * dvbc[:, None, :]
+        if own:
+            contraction[:, :, own] += by[:, 2:].transpose(0, 2, 1) * scale[:, None, own]
 
 
 def _magnitude(w: np.ndarray, dw: np.ndarray) -> np.ndarray:
