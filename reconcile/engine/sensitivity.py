@@ -237,25 +237,48 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
     if len(q):
         vbe, vbc = junction_voltages(circuit, v)
         partials = _device_partials(circuit, params, vbe, vbc)
-    for k, (name, j) in enumerate(cols):
-        if name in ("resistor_ohms", "capacitor_leak_siemens"):
-            b = j if name == "resistor_ohms" else n_r + j
-            a_node, b_node = branch[b]
+    groups = _column_groups(cols)
+    for name in ("resistor_ohms", "capacitor_leak_siemens"):  # each column its branch
+        if name in groups:
+            ks, js = groups[name]
+            b = js if name == "resistor_ohms" else n_r + js
+            a_node, b_node = branch[b, 0], branch[b, 1]
             dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
-            out[:, k] = dg * (v[:, a_node] - v[:, b_node]) * (lam[:, a_node] - lam[:, b_node])
-        elif name == "supply_volts":
-            if js is None and len(q):
-                js = _conductances(circuit, params, v)
-            out[:, k] = _column_contraction(circuit, g, js, lam, int(circuit.supply_nodes[j]))
-        elif name == "temperature" or name in DEVICE_FIELDS:
-            dic, dib = partials[name]
-            for t in (range(len(q)) if name == "temperature" else (j,)):
-                nc, nb, ne = q[t]
-                out[:, k] += pol[t] * (dic[:, t] * (lam[:, nc] - lam[:, ne])
-                                       + dib[:, t] * (lam[:, nb] - lam[:, ne]))
-        else:
-            raise KeyError(f"no DC sensitivity for parameter field {name!r} (one of {FIELDS})")
+            out[:, ks] = dg * (v[:, a_node] - v[:, b_node]) * (lam[:, a_node] - lam[:, b_node])
+    if "supply_volts" in groups:
+        js_ = _conductances(circuit, params, v) if len(q) else None
+        for k, j in zip(*groups["supply_volts"], strict=True):
+            out[:, k] = _column_contraction(circuit, g, js_, lam, int(circuit.supply_nodes[j]))
+    if len(q) and (set(groups) & {"temperature", *DEVICE_FIELDS}):
+        # λ across each transistor's collector and base, from its emitter
+        l_ce = lam[:, q[:, 0]] - lam[:, q[:, 2]]
+        l_be = lam[:, q[:, 1]] - lam[:, q[:, 2]]
+        for name in DEVICE_FIELDS:  # each column its own transistor j
+            if name in groups:
+                ks, js = groups[name]
+                dic, dib = partials[name]
+                out[:, ks] += pol[js] * (dic[:, js] * l_ce[:, js] + dib[:, js] * l_be[:, js])
+        if "temperature" in groups:  # every transistor, one after another
+            dic, dib = partials["temperature"]
+            terms = pol * (dic * l_ce + dib * l_be)
+            for k in groups["temperature"][0]:
+                for t in range(len(q)):
+                    out[:, k] += terms[:, t]
     return out
+
+
+def _column_groups(cols) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """The parameter columns by field: field -> (column positions, part indices), each
+    in the columns' order; an unknown field is refused."""
+    groups: dict[str, tuple[list[int], list[int]]] = {}
+    for k, (name, j) in enumerate(cols):
+        if name not in FIELDS:
+            raise KeyError(f"no DC sensitivity for parameter field {name!r} (one of {FIELDS})")
+        ks, js = groups.setdefault(name, ([], []))
+        ks.append(k)
+        js.append(j)
+    return {name: (np.array(ks, dtype=np.intp), np.array(js, dtype=np.intp))
+            for name, (ks, js) in groups.items()}
 
 
 def _conductances(circuit: Circuit, params: Parameters, v: np.ndarray) -> devices.JunctionState:
@@ -338,25 +361,32 @@ def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: 
     pol = circuit.polarity
     vbe, vbc = junction_voltages(circuit, v)
     partials = _device_partials(circuit, params, vbe, vbc) if len(q) else {}
-    for k, (name, j) in enumerate(cols):
-        if name in ("resistor_ohms", "capacitor_leak_siemens"):
-            b = j if name == "resistor_ohms" else n_r + j
-            a_node, b_node = branch[b]
+    groups = _column_groups(cols)
+    for name in ("resistor_ohms", "capacitor_leak_siemens"):  # each column its branch
+        if name in groups:
+            ks, js = groups[name]
+            b = js if name == "resistor_ohms" else n_r + js
+            a_node, b_node = branch[b, 0], branch[b, 1]
             dv_b = v[:, a_node] - v[:, b_node]
             dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
-            dfdp[:, a_node, k] += dg * dv_b
-            dfdp[:, b_node, k] -= dg * dv_b
-        elif name == "supply_volts":
-            dv_fixed[:, circuit.supply_nodes[j], k] = 1.0
-        elif name == "temperature":
-            dic, dib = partials["temperature"]
+            dfdp[:, a_node, ks] += dg * dv_b
+            dfdp[:, b_node, ks] -= dg * dv_b
+    if "supply_volts" in groups:
+        ks, js = groups["supply_volts"]
+        dv_fixed[:, circuit.supply_nodes[js], ks] = 1.0
+    for name in DEVICE_FIELDS:  # each column its own transistor j
+        if name in groups:
+            ks, js = groups[name]
+            dic, dib = partials[name]
+            d_ic, d_ib = pol[js] * dic[:, js], pol[js] * dib[:, js]
+            dfdp[:, q[js, 0], ks] += d_ic
+            dfdp[:, q[js, 1], ks] += d_ib
+            dfdp[:, q[js, 2], ks] -= d_ic + d_ib
+    if "temperature" in groups:
+        dic, dib = partials["temperature"]
+        for k in groups["temperature"][0]:
             for t in range(len(q)):
                 _add_terminals(dfdp[:, :, k], q[t], pol[t] * dic[:, t], pol[t] * dib[:, t])
-        elif name in DEVICE_FIELDS:
-            dic, dib = partials[name]
-            _add_terminals(dfdp[:, :, k], q[j], pol[j] * dic[:, j], pol[j] * dib[:, j])
-        else:
-            raise KeyError(f"no DC sensitivity for parameter field {name!r} (one of {FIELDS})")
     return dfdp, dv_fixed
 
 
@@ -425,9 +455,11 @@ def _current_derivatives(circuit: Circuit, params: Parameters, v: np.ndarray, co
     if not len(circuit.resistor_refs):
         return d_sup, np.zeros((n, 0, p))
     d_res = (dv[:, rn[:, 0], :] - dv[:, rn[:, 1], :]) / params.resistor_ohms[:, :, None]
-    for k, (name, j) in enumerate(cols):
-        if name == "resistor_ohms":
-            d_res[:, j, k] -= (v[:, rn[j, 0]] - v[:, rn[j, 1]]) / params.resistor_ohms[:, j] ** 2
+    ks = np.array([k for k, (name, _) in enumerate(cols) if name == "resistor_ohms"],
+                  dtype=np.intp)
+    if len(ks):  # each column its own resistor j
+        js = np.array([cols[k][1] for k in ks], dtype=np.intp)
+        d_res[:, js, ks] -= (v[:, rn[js, 0]] - v[:, rn[js, 1]]) / params.resistor_ohms[:, js] ** 2
     return d_sup, d_res
 
 
