@@ -72,18 +72,21 @@ class _Scatter:
 
     def add_to(self, out: np.ndarray, src: np.ndarray) -> None:
         """Add the mapped ``src`` (M, n_src) into ``out`` (M, n_out) in place."""
-        _add_pairs(out, [src], [(t, 0, s, g) for t, s, g in self.pairs])
+        _add_pairs(out, (src,), self.split(1))
 
     def add_columns(self, out: np.ndarray, sources: tuple[np.ndarray, ...]) -> None:
         """As :meth:`add_to` for ``src`` the K arrays ``sources`` (M, n) interleaved,
         source column s being ``sources[s % K][:, s // K]`` (what stacking them on a last
         axis and flattening it would give, without making that array)."""
-        width = len(sources)
+        _add_pairs(out, sources, self.split(len(sources)))
+
+    def split(self, width: int) -> list[tuple[int, int, int, float]]:
+        """The pairs as (t, s % width, s // width, sign), made once per width."""
         plan = self._by_width.get(width)
         if plan is None:
             plan = [(t, s % width, s // width, g) for t, s, g in self.pairs]
             self._by_width[width] = plan
-        _add_pairs(out, sources, plan)
+        return plan
 
 
 def _add_pairs(out: np.ndarray, sources, plan) -> None:
@@ -244,13 +247,13 @@ class _Batch:
         # rhs_fixed[p] = -Σ G[p, x]·V[x] over fixed x: one source value g_b·V[x] per
         # (branch b, fixed node x) pair of the stamp, and only those (signs are ±1).
         self.rhs_fixed = np.zeros((n, n_f))
-        for t, src, sign in self._branch_fx.pairs:
-            b, x = divmod(src, n_x)
-            gv = g[:, b] * self.v_fixed[:, x]
+        r_t, g_t, v_t = self.rhs_fixed.T, g.T, self.v_fixed.T  # columns as rows (views)
+        for t, x, b, sign in self._branch_fx.split(n_x):  # source b·n_x + x
+            gv = g_t[b] * v_t[x]
             if sign == 1.0:
-                self.rhs_fixed[:, t] += gv
+                np.add(r_t[t], gv, out=r_t[t])
             else:
-                self.rhs_fixed[:, t] -= gv
+                np.subtract(r_t[t], gv, out=r_t[t])
         t = params.temperature[:, None]
         self.n_vt = params.n * devices.thermal_voltage(t)
         self.is_t = devices.saturation_current(params.IS, t, params.xti, params.bandgap)
@@ -268,9 +271,8 @@ class _Batch:
                                                           n_f)
         # Fixed voltage at each transistor terminal (0 where the terminal is free).
         self.vq_fixed = np.zeros((n, n_t, 3))
-        for tr in range(n_t):
-            for k in range(3):
-                x = self.q_fixed[tr, k]
+        for tr, row in enumerate(self.q_fixed.tolist()):
+            for k, x in enumerate(row):
                 if x >= 0:
                     self.vq_fixed[:, tr, k] = self.v_fixed[:, x]
 
@@ -352,12 +354,10 @@ class _Batch:
         """(N, n_fixed) current leaving each fixed node through the branches."""
         br = self.circuit.branch_nodes
         out = np.zeros((v.shape[0], len(self.fixed)))
-        for t, b, sign in self._branch_out_fixed.pairs:  # only branches at a fixed node
-            i_b = self.g_branch[:, b] * (v[:, br[b, 0]] - v[:, br[b, 1]])
-            if sign == 1.0:
-                out[:, t] += i_b
-            else:
-                out[:, t] -= i_b
+        # every branch's current (the same products as one branch at a time), then added
+        # for the branches at a fixed node only
+        i_branch = self.g_branch * (v[:, br[:, 0]] - v[:, br[:, 1]])
+        self._branch_out_fixed.add_to(out, i_branch)
         return out
 
     # ----------------------------------------------------------------- newton

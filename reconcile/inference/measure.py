@@ -148,6 +148,10 @@ class MeasurementModel:
             self.space, [ob.reading for ob in observations],
             np.array([ob.uncertainty for ob in observations], dtype=float),
         )
+        #: parameters whose external value a prediction reads directly
+        self._direct_columns = sorted(
+            {what for kind, _, what in self.plan if kind == "parameter"}
+            | {int(c) for c in self.calibration_index if c >= 0})
 
     # ------------------------------------------------------------------ set-up
     def _plan_one(self, ob: Observation) -> tuple[str, int, object]:
@@ -269,7 +273,7 @@ class MeasurementModel:
         if solution is None and m > self.rows_per_call():
             return np.concatenate([self.predict(x[sl]) for sl in chunks(m, self.rows_per_call())])
         sol = solution if solution is not None else self.solve(x)
-        ext = self.space.external(x)
+        ext = self._external_columns(x)
         out = np.empty((m, len(self.observations)))
         base_rows = np.arange(m) * self.group
         if self._signal_plan:
@@ -296,6 +300,15 @@ class MeasurementModel:
             out[:, scaled] *= ext[:, self.calibration_index[scaled]]
         bad = ~sol.converged.reshape(m, self.group).all(axis=1)
         out[bad] = np.nan
+        return out
+
+    def _external_columns(self, x: np.ndarray) -> np.ndarray:
+        """External values (M, P) of the parameters a prediction reads directly (parts
+        read out of circuit, calibration factors), each as ``space.external`` gives
+        it; the other columns are left unset."""
+        out = np.empty(x.shape)
+        for j in self._direct_columns:
+            out[:, j] = self.space.parameters[j].to_external(x[:, j])
         return out
 
     def _small_signal_values(self, sol: BatchSolution, base_rows: np.ndarray,
