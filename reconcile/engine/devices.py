@@ -145,18 +145,21 @@ def junction_point(vbe, vbc, is_t, beta, beta_r, va, n_vt):
     return ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc
 
 
-def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt) -> dict[str, np.ndarray]:
+def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt,
+                       wanted: tuple[str, ...] | None = None) -> dict[str, np.ndarray]:
     """Derivatives of the four conductances of :func:`junction_point` (npn frame).
 
     Returns arrays (..., 4), the last axis being (dic_dvbe, dic_dvbc, dib_dvbe,
     dib_dvbc) differentiated by ``vbe``, ``vbc`` (the second derivatives of the terminal
     currents), and at fixed junction voltages by ``is_t``, ``beta``, ``inv_va`` (1/VA)
-    and ``n_vt``. Worked out by hand from the equations above, the exponential's linear
+    and ``n_vt`` (only those named in ``wanted``, when given). Worked out by hand from
+    the equations above, the exponential's linear
     continuation included (its slope does not move above :data:`EXP_LIMIT`); the small-
     signal sensitivities (:mod:`reconcile.engine.small_signal_sensitivity`) use them, and
     tests/test_measurement_jacobian.py holds the rows they make to mpmath differences of
     a small-signal network built from the equations themselves.
     """
+    want = set(SLOPE_VARIABLES if wanted is None else wanted)
     x_f, x_r = vbe / n_vt, vbc / n_vt
     ef, def_ = _exp_continued(x_f)
     er, der = _exp_continued(x_r)
@@ -168,23 +171,35 @@ def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt) -> dict[str, np.n
     k_f = np.where(below_f, g_f / n_vt, 0.0)  # dg_f/dvbe
     k_r = np.where(below_r, g_r / n_vt, 0.0)
     zero = np.zeros_like(g_f)
-    # d g / d n_vt and d i / d n_vt at fixed junction voltages
-    gn_f = -(np.where(below_f, x_f, 0.0) + 1.0) * g_f / n_vt
-    gn_r = -(np.where(below_r, x_r, 0.0) + 1.0) * g_r / n_vt
-    in_f, in_r = -g_f * x_f, -g_r * x_r
-    conductances = np.stack([g_f * q_early, -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r,
-                             g_f / beta, g_r / beta_r], axis=-1)
-    return {
-        "vbe": np.stack([k_f * q_early, -g_f * inv_va, k_f / beta, zero], axis=-1),
-        "vbc": np.stack([-g_f * inv_va, -k_r * q_early + 2.0 * g_r * inv_va - k_r / beta_r,
-                         zero, k_r / beta_r], axis=-1),
-        "is_t": conductances / np.asarray(is_t)[..., None],
-        "beta": np.stack([zero, zero, -g_f / beta**2, zero], axis=-1),
-        "inv_va": np.stack([-g_f * vbc, g_r * vbc - (i_f - i_r), zero, zero], axis=-1),
-        "n_vt": np.stack([gn_f * q_early,
-                          -gn_r * q_early - (in_f - in_r) * inv_va - gn_r / beta_r,
-                          gn_f / beta, gn_r / beta_r], axis=-1),
-    }
+    out = {}
+    if "vbe" in want:
+        out["vbe"] = np.stack([k_f * q_early, -g_f * inv_va, k_f / beta, zero], axis=-1)
+    if "vbc" in want:
+        out["vbc"] = np.stack([-g_f * inv_va,
+                               -k_r * q_early + 2.0 * g_r * inv_va - k_r / beta_r,
+                               zero, k_r / beta_r], axis=-1)
+    if "is_t" in want:
+        conductances = np.stack([g_f * q_early,
+                                 -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r,
+                                 g_f / beta, g_r / beta_r], axis=-1)
+        out["is_t"] = conductances / np.asarray(is_t)[..., None]
+    if "beta" in want:
+        out["beta"] = np.stack([zero, zero, -g_f / beta**2, zero], axis=-1)
+    if "inv_va" in want:
+        out["inv_va"] = np.stack([-g_f * vbc, g_r * vbc - (i_f - i_r), zero, zero], axis=-1)
+    if "n_vt" in want:
+        # d g / d n_vt and d i / d n_vt at fixed junction voltages
+        gn_f = -(np.where(below_f, x_f, 0.0) + 1.0) * g_f / n_vt
+        gn_r = -(np.where(below_r, x_r, 0.0) + 1.0) * g_r / n_vt
+        in_f, in_r = -g_f * x_f, -g_r * x_r
+        out["n_vt"] = np.stack([gn_f * q_early,
+                                -gn_r * q_early - (in_f - in_r) * inv_va - gn_r / beta_r,
+                                gn_f / beta, gn_r / beta_r], axis=-1)
+    return out
+
+
+SLOPE_VARIABLES = ("vbe", "vbc", "is_t", "beta", "inv_va", "n_vt")
+"""What :func:`conductance_slopes` can differentiate the conductances by."""
 
 
 def critical_voltage(is_t: np.ndarray, n_vt: np.ndarray) -> np.ndarray:

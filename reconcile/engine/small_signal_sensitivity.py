@@ -153,13 +153,19 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
     p = linear.params.take(s)
     terms = device_terms(p)
     vbe, vbc = junction_voltages(c, v)
-    slopes = devices.conductance_slopes(vbe, vbc, terms.is_t, p.beta, p.beta_r, p.VA, terms.n_vt)
+    temperature = [k for k, col in enumerate(cols) if col is not None and col[0] == "temperature"]
+    by_field = {"IS": "is_t", "beta": "beta", "VA": "inv_va", "n": "n_vt"}
+    wanted = {"vbe", "vbc"} | {by_field[col[0]] for col in cols
+                               if col is not None and col[0] in _DEVICE_FIELDS}
+    if temperature:
+        wanted |= {"is_t", "n_vt"}
+    slopes = devices.conductance_slopes(vbe, vbc, terms.is_t, p.beta, p.beta_r, p.VA, terms.n_vt,
+                                        tuple(sorted(wanted)))
     with np.errstate(divide="ignore"):
         kappa = np.where(linear.c_pi()[s] > 0.0, 1.0 / (2.0 * np.pi * p.ft), 0.0)
     inv_va = 1.0 / p.VA
     direct = {"IS": ("is_t", terms.dis_dIS), "beta": ("beta", 1.0),
               "VA": ("inv_va", -inv_va**2), "n": ("n_vt", terms.vt)}
-    temperature = [k for k, col in enumerate(cols) if col is not None and col[0] == "temperature"]
     for t, (nc, nb, ne) in enumerate(c.transistor_nodes.tolist()):
         pol = c.polarity[t]
         uce, ube = u[:, nc] - u[:, ne], u[:, nb] - u[:, ne]
@@ -193,9 +199,8 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
 
 
 def _magnitude(w: np.ndarray, dw: np.ndarray) -> np.ndarray:
-    """d|w| from dw (rows, C): Re(w̄·dw)/|w|."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.real(np.conj(w)[:, None] * dw) / np.abs(w)[:, None]
+    """d|w| from dw (rows, C): Re(w̄·dw)/|w| (the caller ignores division by zero)."""
+    return np.real(np.conj(w)[:, None] * dw) / np.abs(w)[:, None]
 
 
 def _close(params, s: np.ndarray, z: np.ndarray, dz: np.ndarray) -> dict[str, np.ndarray]:
@@ -222,9 +227,9 @@ def _close(params, s: np.ndarray, z: np.ndarray, dz: np.ndarray) -> dict[str, np
         driven = v_in + rs
         source_gain = v_out / driven
         d_source = d_out / driven - v_out * d_in / driven**2
-    return {
-        "gain": _magnitude(gain[:, 0], d_gain),
-        "source_gain": _magnitude(source_gain[:, 0], d_source),
-        "input_resistance": _magnitude(v_in[:, 0], d_in),
-        "output_resistance": _magnitude(z_out[:, 0], d_zout),
-    }
+        return {
+            "gain": _magnitude(gain[:, 0], d_gain),
+            "source_gain": _magnitude(source_gain[:, 0], d_source),
+            "input_resistance": _magnitude(v_in[:, 0], d_in),
+            "output_resistance": _magnitude(z_out[:, 0], d_zout),
+        }
