@@ -170,9 +170,11 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
         pol = c.polarity[t]
         uce, ube = u[:, nc] - u[:, ne], u[:, nb] - u[:, ne]
         xbe, xbc = x[:, nb] - x[:, ne], x[:, nb] - x[:, nc]
-        a, b = _PAIRS_A, _PAIRS_B
-        lever = np.stack([uce[:, a] * xbe[:, b], uce[:, a] * xbc[:, b],
-                          ube[:, a] * xbe[:, b], ube[:, a] * xbc[:, b]], axis=1)  # (rows, 4, 4)
+        # lever[:, k, q] = u[a_q]·x[b_q] for the four (u, x) of the partials k, the pairs
+        # q = a + 2·b in the order of _PAIRS_A, _PAIRS_B: one outer product for all
+        us = np.stack([uce, uce, ube, ube], axis=1)  # (rows, 4, 2)
+        xs = np.stack([xbe, xbc, xbe, xbc], axis=1)
+        lever = (us[:, :, None, :] * xs[:, :, :, None]).reshape(len(omega), 4, 4)
         cap = (1j * omega * kappa[:, t])[:, None] * lever[:, 2]
         lever[:, 0] += cap
         lever[:, 1] += cap
