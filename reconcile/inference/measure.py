@@ -203,7 +203,7 @@ class MeasurementModel:
         a fault hypothesis holding a resistor) before the meters are attached, so the
         voltmeter and the ammeter's burden are added to the board as changed."""
         x = np.atleast_2d(x)
-        p = self.space.to_parameters(x, self.base).repeat(self.group)
+        p = self.space.to_parameters(x, self.base, repeat=self.group)
         if board_change is not None:
             p = board_change(p)
         meters = {}  # new arrays of the fields the meters change, set in one copy of p

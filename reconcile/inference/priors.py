@@ -152,24 +152,31 @@ class ParameterSpace:
             out[:, j] = p.to_external(x[:, j])
         return out
 
-    def to_parameters(self, x: np.ndarray, base: Parameters | None = None) -> Parameters:
+    def to_parameters(self, x: np.ndarray, base: Parameters | None = None, *,
+                      repeat: int = 1) -> Parameters:
         """Engine parameters for M internal vectors (M, P); other values from ``base``
-        (one sample, default the board's nominal)."""
+        (one sample, default the board's nominal). With ``repeat``, each vector's
+        parameters ``repeat`` times, consecutively (as ``Parameters.repeat`` of the
+        result would give, without making the M rows first)."""
         x = np.atleast_2d(x)
         m = x.shape[0]
         if base is None:
             base = nominal_parameters(self.circuit, 1)
         # repeat makes new arrays, written below in place; a base of M samples is copied
-        p = base.repeat(m) if base.n_samples == 1 else base.repeat(1)
+        if base.n_samples == 1:
+            p = base.repeat(m * repeat)
+        else:
+            p = base.repeat(repeat)
         out = np.empty(m)
         for j, fp in enumerate(self.parameters):
             if fp.kind == "calibration":
                 continue  # an instrument's factor, not the board's (inference/calibration.py)
             fp.to_external_into(x[:, j], out)
+            values = out if repeat == 1 else np.repeat(out, repeat)
             if fp.kind == "temperature":
-                p.temperature[:] = out
+                p.temperature[:] = values
             else:
-                getattr(p, PARAMETERS_FIELD[fp.kind])[:, fp.column] = out
+                getattr(p, PARAMETERS_FIELD[fp.kind])[:, fp.column] = values
         return p
 
 
