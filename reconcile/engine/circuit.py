@@ -65,7 +65,7 @@ class Circuit:
         out = np.concatenate(
             [self.resistor_nodes, self.capacitor_nodes, self.probe_nodes], axis=0
         ).astype(np.intp)
-        out.flags.writeable = False
+        out.setflags(write=False)
         return out
 
     @cached_property
@@ -74,7 +74,7 @@ class Circuit:
         circuit, read-only)."""
         pos = np.full(self.n_nodes + 1, -1, dtype=np.intp)
         pos[self.free] = np.arange(len(self.free))
-        pos.flags.writeable = False
+        pos.setflags(write=False)
         return pos
 
 
