@@ -148,6 +148,11 @@ class MeasurementModel:
             self.space, [ob.reading for ob in observations],
             np.array([ob.uncertainty for ob in observations], dtype=float),
         )
+        #: the voltage readings: their indices, board rows in the group and nodes
+        voltages = [(k, row, *what) for k, (kind, row, what) in enumerate(self.plan)
+                    if kind == "voltage"]
+        self._voltage_plan = tuple(np.array([v[i] for v in voltages], dtype=np.intp)
+                                   for i in range(4))
         #: parameters whose external value a prediction reads directly
         self._direct_columns = sorted(
             {what for kind, _, what in self.plan if kind == "parameter"}
@@ -279,14 +284,14 @@ class MeasurementModel:
         if self._signal_plan:
             out[:, self._signal_plan] = self._small_signal_values(sol, base_rows,
                                                                   self._signal_plan)
+        if len(self._voltage_plan[0]):
+            # every voltage at once: V(a) − V(b) of its board (gnd's column is 0 V)
+            ks, row_of, a, b = self._voltage_plan
+            rows = base_rows[:, None] + row_of[None, :]
+            out[:, ks] = sol.state.v[rows, a] - sol.state.v[rows, b]
         for k, (kind, row, what) in enumerate(self.plan):
             rows = base_rows + row
-            if kind == "voltage":
-                a, b = what
-                va = sol.node_v[rows, a] if a < self.circuit.n_nodes else 0.0
-                vb = sol.node_v[rows, b] if b < self.circuit.n_nodes else 0.0
-                out[:, k] = va - vb
-            elif kind == "supply_current":
+            if kind == "supply_current":
                 out[:, k] = sol.supply_current[rows, what]
             elif kind == "resistor_current":
                 out[:, k] = sol.resistor_current[rows, what]
