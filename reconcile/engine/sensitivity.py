@@ -108,11 +108,13 @@ def device_terms(params: Parameters) -> DeviceTerms:
                        dnvt_dT=params.n * devices.K_OVER_Q)
 
 
-def _device_partials(circuit: Circuit, params: Parameters, vbe: np.ndarray, vbc: np.ndarray):
+def _device_partials(circuit: Circuit, params: Parameters, vbe: np.ndarray, vbc: np.ndarray,
+                     terms: DeviceTerms | None = None):
     """Partial derivatives (npn frame) of ic and ib, at fixed junction voltages, with
     respect to IS (25 C), beta, VA, n and the temperature: dict name -> (dic, dib),
-    each (N, nT)."""
-    terms = device_terms(params)
+    each (N, nT); ``terms``: :func:`device_terms` of ``params``, when the caller has it."""
+    if terms is None:
+        terms = device_terms(params)
     vt, n_vt, is_t = terms.vt, terms.n_vt, terms.is_t
     beta, beta_r, va = params.beta, params.beta_r, params.VA
     ef, def_ = devices._exp_continued(vbe / n_vt)
@@ -233,10 +235,11 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
     branch = circuit.branch_nodes
     n_r = len(circuit.resistor_refs)
     q, pol = circuit.transistor_nodes, circuit.polarity
-    partials = js = None
-    if len(q):
+    partials = terms = None
+    if len(q):  # the devices at the solution, once for every column
         vbe, vbc = junction_voltages(circuit, v)
-        partials = _device_partials(circuit, params, vbe, vbc)
+        terms = device_terms(params)
+        partials = _device_partials(circuit, params, vbe, vbc, terms)
     groups = _column_groups(cols)
     for name in ("resistor_ohms", "capacitor_leak_siemens"):  # each column its branch
         if name in groups:
@@ -246,7 +249,8 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
             dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
             out[:, ks] = dg * (v[:, a_node] - v[:, b_node]) * (lam[:, a_node] - lam[:, b_node])
     if "supply_volts" in groups:
-        js_ = _conductances(circuit, params, v) if len(q) else None
+        js_ = (devices.junction_currents(vbe, vbc, terms.is_t, params.beta, params.beta_r,
+                                         params.VA, terms.n_vt) if len(q) else None)
         for k, j in zip(*groups["supply_volts"], strict=True):
             out[:, k] = _column_contraction(circuit, g, js_, lam, int(circuit.supply_nodes[j]))
     if len(q) and (set(groups) & {"temperature", *DEVICE_FIELDS}):
@@ -281,13 +285,6 @@ def _column_groups(cols) -> dict[str, tuple[np.ndarray, np.ndarray]]:
             for name, (ks, js) in groups.items()}
 
 
-def _conductances(circuit: Circuit, params: Parameters, v: np.ndarray) -> devices.JunctionState:
-    terms = device_terms(params)
-    vbe, vbc = junction_voltages(circuit, v)
-    return devices.junction_currents(vbe, vbc, terms.is_t, params.beta, params.beta_r,
-                                     params.VA, terms.n_vt)
-
-
 def _column_contraction(circuit: Circuit, g: np.ndarray, js, lam: np.ndarray,
                         node: int) -> np.ndarray:
     """λᵀ·∂F/∂v(node) (N,): the branches and transistors that reach ``node``."""
@@ -319,8 +316,11 @@ def _chunk(circuit: Circuit, params: Parameters, state: DCState, cols,
     g = np.concatenate(
         [1.0 / params.resistor_ohms, params.capacitor_leak_siemens, params.probe_siemens], axis=1
     )
-    dfdp, dv_fixed = _parameter_partials(circuit, params, v, g, cols)
-    j_rows = _node_rows(circuit, params, v, g)
+    # the junction voltages and device terms at the solution, once for both
+    point = ((*junction_voltages(circuit, v), device_terms(params))
+             if len(circuit.transistor_refs) else None)
+    dfdp, dv_fixed = _parameter_partials(circuit, params, v, g, cols, point)
+    j_rows = _node_rows(circuit, params, v, g, point)
     dv = _node_derivatives(circuit, params, state, dfdp, dv_fixed, j_rows, j_free)
     d_sup, d_res = _current_derivatives(circuit, params, v, cols, dfdp, j_rows, dv)
     bad = ~np.asarray(state.converged, dtype=bool)
@@ -349,9 +349,10 @@ def junction_voltages(circuit: Circuit, v: np.ndarray) -> tuple[np.ndarray, np.n
 
 
 def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarray,
-                        cols) -> tuple[np.ndarray, np.ndarray]:
+                        cols, point=None) -> tuple[np.ndarray, np.ndarray]:
     """∂F/∂p over all nodes (N, size, P), and dv/dp of the fixed nodes (supplies: 1 at
-    their own node)."""
+    their own node); ``point`` is (vbe, vbc, :func:`device_terms`) at ``v`` when the
+    caller has them."""
     n, size, p = params.n_samples, circuit.n_nodes + 1, len(cols)
     branch = circuit.branch_nodes
     n_r = len(circuit.resistor_refs)
@@ -359,8 +360,11 @@ def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: 
     dv_fixed = np.zeros((n, size, p))
     q = circuit.transistor_nodes
     pol = circuit.polarity
-    vbe, vbc = junction_voltages(circuit, v)
-    partials = _device_partials(circuit, params, vbe, vbc) if len(q) else {}
+    partials = {}
+    if len(q):
+        vbe, vbc, terms = point if point is not None else (
+            *junction_voltages(circuit, v), device_terms(params))
+        partials = _device_partials(circuit, params, vbe, vbc, terms)
     groups = _column_groups(cols)
     for name in ("resistor_ohms", "capacitor_leak_siemens"):  # each column its branch
         if name in groups:
@@ -390,9 +394,11 @@ def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: 
     return dfdp, dv_fixed
 
 
-def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarray) -> np.ndarray:
+def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarray,
+               point=None) -> np.ndarray:
     """∂F/∂v for the rows of every node (N, size, size): the branches, then the
-    transistors' conductances. Its free block is the engine's own Newton matrix."""
+    transistors' conductances. Its free block is the engine's own Newton matrix.
+    ``point`` as for :func:`_parameter_partials`."""
     n, size = params.n_samples, circuit.n_nodes + 1
     branch = circuit.branch_nodes
     q = circuit.transistor_nodes
@@ -403,11 +409,10 @@ def _node_rows(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.ndarra
         for rows, cols, sign in ((a, a, 1.0), (b, b, 1.0), (a, b, -1.0), (b, a, -1.0)):
             np.add.at(flat.T, rows * size + cols, sign * g.T)
     if len(q):
-        vbe, vbc = junction_voltages(circuit, v)
-        t_ = params.temperature[:, None]
-        n_vt = params.n * devices.thermal_voltage(t_)
-        is_t = devices.saturation_current(params.IS, t_, params.xti, params.bandgap)
-        js = devices.junction_currents(vbe, vbc, is_t, params.beta, params.beta_r, params.VA, n_vt)
+        vbe, vbc, terms = point if point is not None else (
+            *junction_voltages(circuit, v), device_terms(params))
+        js = devices.junction_currents(vbe, vbc, terms.is_t, params.beta, params.beta_r,
+                                       params.VA, terms.n_vt)
         for t in range(len(q)):
             row_c = (-js.dic_dvbc[:, t], js.dic_dvbe[:, t] + js.dic_dvbc[:, t], -js.dic_dvbe[:, t])
             row_b = (-js.dib_dvbc[:, t], js.dib_dvbe[:, t] + js.dib_dvbc[:, t], -js.dib_dvbe[:, t])
