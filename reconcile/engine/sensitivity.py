@@ -41,6 +41,7 @@ Rows are processed in chunks under the memory budget (:mod:`reconcile.engine.bud
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -274,6 +275,12 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
 def _column_groups(cols) -> dict[str, tuple[np.ndarray, np.ndarray]]:
     """The parameter columns by field: field -> (column positions, part indices), each
     in the columns' order; an unknown field is refused."""
+    return _groups_of(tuple((str(name), int(j)) for name, j in cols))
+
+
+@functools.lru_cache(maxsize=64)
+def _groups_of(cols: tuple[tuple[str, int], ...]) -> dict[str, tuple[np.ndarray, np.ndarray]]:
+    """:func:`_column_groups` of one tuple of columns, made once (the arrays read-only)."""
     groups: dict[str, tuple[list[int], list[int]]] = {}
     for k, (name, j) in enumerate(cols):
         if name not in FIELDS:
@@ -281,8 +288,13 @@ def _column_groups(cols) -> dict[str, tuple[np.ndarray, np.ndarray]]:
         ks, js = groups.setdefault(name, ([], []))
         ks.append(k)
         js.append(j)
-    return {name: (np.array(ks, dtype=np.intp), np.array(js, dtype=np.intp))
-            for name, (ks, js) in groups.items()}
+    out = {}
+    for name, (ks, js) in groups.items():
+        pair = (np.array(ks, dtype=np.intp), np.array(js, dtype=np.intp))
+        for arr in pair:
+            arr.setflags(write=False)
+        out[name] = pair
+    return out
 
 
 def _column_contraction(circuit: Circuit, g: np.ndarray, js, lam: np.ndarray,
