@@ -205,7 +205,7 @@ class Parameters:
 
     def repeat(self, n: int) -> Parameters:
         """Each sample repeated ``n`` times, consecutively (sample i -> rows i*n..i*n+n-1)."""
-        return self._with_arrays({name: np.repeat(getattr(self, name), n, axis=0)
+        return self._with_arrays({name: getattr(self, name).repeat(n, axis=0)
                                   for name in _PARAMETER_ARRAYS})
 
     def with_arrays(self, **arrays: np.ndarray) -> Parameters:

@@ -172,7 +172,7 @@ class ParameterSpace:
             if fp.kind == "calibration":
                 continue  # an instrument's factor, not the board's (inference/calibration.py)
             fp.to_external_into(x[:, j], out)
-            values = out if repeat == 1 else np.repeat(out, repeat)
+            values = out if repeat == 1 or m == 1 else out.repeat(repeat)  # (1,) broadcasts
             if fp.kind == "temperature":
                 p.temperature[:] = values
             else:
