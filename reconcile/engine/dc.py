@@ -265,6 +265,7 @@ class _Batch:
         # fixed block or -1.
         q = circuit.transistor_nodes
         n_t = q.shape[0]
+        self._q_columns = (q[:, 0], q[:, 1], q[:, 2])  # collectors, bases, emitters
         self.q_free = pos_free[q] if n_t else np.zeros((0, 3), dtype=np.intp)
         self.q_fixed = pos_fixed[q] if n_t else np.zeros((0, 3), dtype=np.intp)
         self._device_jac, self._device_cur = _stamps_once(_device_stamps, self.q_free, slot_of,
@@ -279,9 +280,9 @@ class _Batch:
     # ------------------------------------------------------------------ pieces
     def junctions(self, v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """npn-frame vbe, vbc (M, nT) from full node voltages (M, size)."""
-        q = self.circuit.transistor_nodes
+        q_c, q_b, q_e = self._q_columns
         s = self.circuit.polarity
-        vc, vb, ve = v[:, q[:, 0]], v[:, q[:, 1]], v[:, q[:, 2]]
+        vc, vb, ve = v[:, q_c], v[:, q_b], v[:, q_e]
         return s * (vb - ve), s * (vb - vc)
 
     def device_state(self, idx: np.ndarray, vbe: np.ndarray, vbc: np.ndarray):
@@ -311,7 +312,9 @@ class _Batch:
             a[:, self.diag_store] += gmin
         if len(self.circuit.transistor_refs):
             st = self.device_state(idx, vbe, vbc) if state is None else state
-            vq = self.vq_fixed[idx] * (s[:, :, None] if per_sample else s)
+            vq = self.vq_fixed[idx]
+            if per_sample or s != 1.0:
+                vq = vq * (s[:, :, None] if per_sample else s)
             self._stamp_devices(a, rhs, st, vbe, vbc, vq)
         return a, rhs
 
@@ -345,8 +348,9 @@ class _Batch:
         ib0 = pol * (st.ib - st.dib_dvbe * vbe - st.dib_dvbc * vbc)
         vc, vb, ve = vq[:, :, 0], vq[:, :, 1], vq[:, :, 2]
         # row_c·vq, row_b·vq with the rows of _DEVICE_PATTERN (fixed terminals only).
-        fc = st.dic_dvbe * (vb - ve) + st.dic_dvbc * (vb - vc)
-        fb = st.dib_dvbe * (vb - ve) + st.dib_dvbc * (vb - vc)
+        v_be, v_bc = vb - ve, vb - vc
+        fc = st.dic_dvbe * v_be + st.dic_dvbc * v_bc
+        fb = st.dib_dvbe * v_be + st.dib_dvbc * v_bc
         cc, cb = ic0 + fc, ib0 + fb
         self._device_cur.add_columns(rhs, (cc, cb, -(cc + cb)))
 
