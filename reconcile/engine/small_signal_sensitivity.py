@@ -163,9 +163,19 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
                                         tuple(sorted(wanted)))
     with np.errstate(divide="ignore"):
         kappa = np.where(linear.c_pi()[s] > 0.0, 1.0 / (2.0 * np.pi * p.ft), 0.0)
-    inv_va = 1.0 / p.VA
-    direct = {"IS": ("is_t", terms.dis_dIS), "beta": ("beta", 1.0),
-              "VA": ("inv_va", -inv_va**2), "n": ("n_vt", terms.vt)}
+    # each device column's variable and chain factor d(variable)/d(parameter), (rows, nT)
+    # (beta is its own variable: no factor)
+    direct = {}
+    for field in {col[0] for col in cols if col is not None and col[0] in _DEVICE_FIELDS}:
+        if field == "IS":
+            chain = terms.dis_dIS
+        elif field == "VA":  # the variable is 1/VA
+            chain = -(1.0 / p.VA) ** 2
+        elif field == "n":
+            chain = terms.vt
+        else:
+            chain = None
+        direct[field] = (by_field[field], chain)
     for t, (nc, nb, ne) in enumerate(c.transistor_nodes.tolist()):
         pol = c.polarity[t]
         uce, ube = u[:, nc] - u[:, ne], u[:, nb] - u[:, ne]
@@ -186,7 +196,8 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
                 continue
             field, chain = direct[col[0]]
             own.append(k)
-            slope_rows.append(slopes[field][:, t] * np.broadcast_to(chain, vbe.shape)[:, t, None])
+            slope_rows.append(slopes[field][:, t] if chain is None
+                              else slopes[field][:, t] * chain[:, t, None])
         for k in temperature:
             own.append(k)
             slope_rows.append(slopes["is_t"][:, t] * terms.dis_dT[:, t, None]
