@@ -164,7 +164,7 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
     with np.errstate(divide="ignore"):
         kappa = np.where(linear.c_pi()[s] > 0.0, 1.0 / (2.0 * np.pi * p.ft), 0.0)
     # each device column's variable and chain factor d(variable)/d(parameter), (rows, nT)
-    # (beta is its own variable: no factor)
+    # (beta is its own variable: no factor; VT is one per row, broadcast)
     direct = {}
     for field in {col[0] for col in cols if col is not None and col[0] in _DEVICE_FIELDS}:
         if field == "IS":
@@ -175,7 +175,8 @@ def _add_transistors(linear: LinearModel, v, omega, s, cols, node_dv, scale, x, 
             chain = terms.vt
         else:
             chain = None
-        direct[field] = (by_field[field], chain)
+        direct[field] = (by_field[field],
+                         None if chain is None else np.broadcast_to(chain, vbe.shape))
     for t, (nc, nb, ne) in enumerate(c.transistor_nodes.tolist()):
         pol = c.polarity[t]
         uce, ube = u[:, nc] - u[:, ne], u[:, nb] - u[:, ne]
