@@ -135,13 +135,14 @@ def junction_point(vbe, vbc, is_t, beta, beta_r, va, n_vt):
     g_r = is_t * der / n_vt
     inv_va = 1.0 / va  # 0 where va is inf
     q_early = 1.0 - vbc * inv_va
-    i_ct = (i_f - i_r) * q_early
-    ic = i_ct - i_r / beta_r
-    ib = i_f / beta + i_r / beta_r
-    dic_dvbe = g_f * q_early
-    dic_dvbc = -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r
+    transport = i_f - i_r
+    i_rb = i_r / beta_r  # the reverse base current, in both terminal currents
+    ic = transport * q_early - i_rb
+    ib = i_f / beta + i_rb
     dib_dvbe = g_f / beta
     dib_dvbc = g_r / beta_r
+    dic_dvbe = g_f * q_early
+    dic_dvbc = -g_r * q_early - transport * inv_va - dib_dvbc
     return ic, ib, dic_dvbe, dic_dvbc, dib_dvbe, dib_dvbc
 
 
