@@ -81,7 +81,7 @@ def small_signal_sensitivity(linear: LinearModel, v: np.ndarray, frequency: np.n
     step = rows_per_chunk(_bytes_per_row(linear, n_cols), share=0.5)
     for sl in chunks(n * n_f, step):
         idx = np.arange(sl.start, sl.stop)
-        s = idx // n_f
+        s = sl if n_f == 1 else idx // n_f  # one frequency: the samples themselves (views)
         dz, z = _two_port_derivatives(linear, v[s], flat_f[idx], s, cols, node_dv[s], scale[s])
         for name, values in _close(linear.params, s, z, dz).items():
             out[name][sl] = values
