@@ -141,6 +141,7 @@ class MeasurementModel:
                                          if ob.quantity in SMALL_SIGNAL
                                          and ob.frequency is not None}))
         self.plan = [self._plan_one(ob) for ob in observations]
+        self._measured = np.array([ob.measured for ob in observations])
         #: readings with small-signal predictions (indices into the observations)
         self._signal_plan = [k for k, (kind, _, _) in enumerate(self.plan)
                              if kind in ("small_signal", "small_signal_at")]
@@ -187,7 +188,7 @@ class MeasurementModel:
 
     @property
     def measured(self) -> np.ndarray:
-        return np.array([ob.measured for ob in self.observations])
+        return self._measured.copy()
 
     @property
     def uncertainty(self) -> np.ndarray:

@@ -38,6 +38,7 @@ Why these choices:
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -127,19 +128,26 @@ class ParameterSpace:
 
     @property
     def prior_mean(self) -> np.ndarray:
-        return np.array([p.prior_mean for p in self.parameters])
+        return self._columns[0].copy()
 
     @property
     def prior_sd(self) -> np.ndarray:
-        return np.array([p.prior_sd for p in self.parameters])
+        return self._columns[1].copy()
 
     @property
     def lower(self) -> np.ndarray:
-        return np.array([p.lower for p in self.parameters])
+        return self._columns[2].copy()
 
     @property
     def upper(self) -> np.ndarray:
-        return np.array([p.upper for p in self.parameters])
+        return self._columns[3].copy()
+
+    @functools.cached_property
+    def _columns(self) -> tuple[np.ndarray, ...]:
+        """Prior mean, prior sd, lower and upper bound of every parameter (made once:
+        the parameters are frozen; the properties above hand out copies)."""
+        return tuple(np.array([getattr(p, name) for p in self.parameters])
+                     for name in ("prior_mean", "prior_sd", "lower", "upper"))
 
     def index(self, key: str) -> int:
         return self.keys.index(key)
