@@ -233,8 +233,6 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
     (N, size, P) is never built (what :func:`_parameter_partials` and
     :func:`_node_rows` hold, read here one entry at a time)."""
     out = np.zeros((len(v), len(cols)))
-    branch = circuit.branch_nodes
-    n_r = len(circuit.resistor_refs)
     q, pol = circuit.transistor_nodes, circuit.polarity
     partials = terms = None
     if len(q):  # the devices at the solution, once for every column
@@ -242,13 +240,8 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
         terms = device_terms(params)
         partials = _device_partials(circuit, params, vbe, vbc, terms)
     groups = _column_groups(cols)
-    for name in ("resistor_ohms", "capacitor_leak_siemens"):  # each column its branch
-        if name in groups:
-            ks, js = groups[name]
-            b = js if name == "resistor_ohms" else n_r + js
-            a_node, b_node = branch[b, 0], branch[b, 1]
-            dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
-            out[:, ks] = dg * (v[:, a_node] - v[:, b_node]) * (lam[:, a_node] - lam[:, b_node])
+    for ks, a_node, b_node, dg in _branch_columns(circuit, groups, g):
+        out[:, ks] = dg * (v[:, a_node] - v[:, b_node]) * (lam[:, a_node] - lam[:, b_node])
     if "supply_volts" in groups:
         js_ = (devices.junction_currents(vbe, vbc, terms.is_t, params.beta, params.beta_r,
                                          params.VA, terms.n_vt) if len(q) else None)
@@ -270,6 +263,20 @@ def _adjoint_terms(circuit: Circuit, params: Parameters, v: np.ndarray, g: np.nd
                 for t in range(len(q)):
                     out[:, k] += terms[:, t]
     return out
+
+
+def _branch_columns(circuit: Circuit, groups, g: np.ndarray):
+    """For the resistor and capacitor-leak columns (each column its own branch), by
+    field: the columns' positions, their branches' two nodes and d(conductance)/dp
+    (−g² per ohm of a resistor, 1 for a leak)."""
+    n_r = len(circuit.resistor_refs)
+    branch = circuit.branch_nodes
+    for name in ("resistor_ohms", "capacitor_leak_siemens"):
+        if name in groups:
+            ks, js = groups[name]
+            b = js if name == "resistor_ohms" else n_r + js
+            yield ks, branch[b, 0], branch[b, 1], (-g[:, b] ** 2 if name == "resistor_ohms"
+                                                   else 1.0)
 
 
 def _column_groups(cols) -> dict[str, tuple[np.ndarray, np.ndarray]]:
@@ -366,8 +373,6 @@ def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: 
     their own node); ``point`` is (vbe, vbc, :func:`device_terms`) at ``v`` when the
     caller has them."""
     n, size, p = params.n_samples, circuit.n_nodes + 1, len(cols)
-    branch = circuit.branch_nodes
-    n_r = len(circuit.resistor_refs)
     dfdp = np.zeros((n, size, p))
     dv_fixed = np.zeros((n, size, p))
     q = circuit.transistor_nodes
@@ -378,15 +383,10 @@ def _parameter_partials(circuit: Circuit, params: Parameters, v: np.ndarray, g: 
             *junction_voltages(circuit, v), device_terms(params))
         partials = _device_partials(circuit, params, vbe, vbc, terms)
     groups = _column_groups(cols)
-    for name in ("resistor_ohms", "capacitor_leak_siemens"):  # each column its branch
-        if name in groups:
-            ks, js = groups[name]
-            b = js if name == "resistor_ohms" else n_r + js
-            a_node, b_node = branch[b, 0], branch[b, 1]
-            dv_b = v[:, a_node] - v[:, b_node]
-            dg = -g[:, b] ** 2 if name == "resistor_ohms" else 1.0
-            dfdp[:, a_node, ks] += dg * dv_b
-            dfdp[:, b_node, ks] -= dg * dv_b
+    for ks, a_node, b_node, dg in _branch_columns(circuit, groups, g):
+        dv_b = v[:, a_node] - v[:, b_node]
+        dfdp[:, a_node, ks] += dg * dv_b
+        dfdp[:, b_node, ks] -= dg * dv_b
     if "supply_volts" in groups:
         ks, js = groups["supply_volts"]
         dv_fixed[:, circuit.supply_nodes[js], ks] = 1.0
