@@ -449,6 +449,7 @@ def _check_small_signal(seed: int) -> None:
     frequencies = (float(10 ** rng.uniform(2.0, 6.7)),)
     ours = small_signal_sensitivity(sol.linear, sol.state.v, np.array([frequencies]), columns,
                                     node_dv)
+    assert set(ours) == set(SIGNAL_QUANTITIES)  # each one computed, nothing left unfilled
     ref = small_signal_reference_columns(circuit, params, sol.state.v[0], columns, frequencies)
     values = sol.linear.response(np.array(frequencies))
     row = 0
@@ -513,3 +514,4 @@ def test_jacobian_at_is_the_kcl_jacobian():
             ref = float((fp[row] - fm[row]) / (2 * h))
             ref += 1e-12 if (ii == jj and row in floating) else 0.0
             assert abs(jac[ii, jj] - ref) <= 1e-9 * max(abs(ref), np.max(np.abs(jac[:, jj])))
+

@@ -44,13 +44,19 @@ from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.engine.kernel import solve_small
 from reconcile.engine.sparse import factorisation_for
 from reconcile.engine.sensitivity import device_terms, junction_voltages
-from reconcile.engine.small_signal import LinearModel, SmallSignal
+from reconcile.engine.small_signal import LinearModel
 
 #: (a, b) of z_ab in the order z_ii, z_oi, z_io, z_oo: a picks u (0 input, 1 output),
 #: b picks x
 _PAIRS_A = np.array([0, 1, 0, 1])
 _PAIRS_B = np.array([0, 0, 1, 1])
 _DEVICE_FIELDS = ("IS", "beta", "VA", "n")
+
+
+DIFFERENTIATED = ("gain", "source_gain", "input_resistance", "output_resistance")
+"""The small-signal quantities given here with their derivatives: the magnitudes the
+two-port closes to (the registry's other small-signal entry, the gain's phase, is shown
+but never a reading, so nothing needs its derivative)."""
 
 
 def _bytes_per_row(linear: LinearModel, n_cols: int) -> int:
@@ -63,7 +69,7 @@ def _bytes_per_row(linear: LinearModel, n_cols: int) -> int:
 def small_signal_sensitivity(linear: LinearModel, v: np.ndarray, frequency: np.ndarray,
                              cols, node_dv: np.ndarray, scale: np.ndarray | None = None
                              ) -> dict[str, np.ndarray]:
-    """d(quantity)/dx (N, F, C) for each of :attr:`SmallSignal.QUANTITIES`.
+    """d(quantity)/dx (N, F, C) for each of :data:`DIFFERENTIATED`.
 
     ``linear``: the boards' linear model (N samples) at their solved node voltages ``v``
     (N, n_nodes + 1); ``frequency`` (N, F) Hz, one row per sample; ``cols`` the
@@ -76,7 +82,7 @@ def small_signal_sensitivity(linear: LinearModel, v: np.ndarray, frequency: np.n
     n, n_f = frequency.shape
     n_cols = len(cols)
     scale = np.ones((n, n_cols)) if scale is None else scale
-    out = {name: np.empty((n * n_f, n_cols)) for name in SmallSignal.QUANTITIES}
+    out = {name: np.empty((n * n_f, n_cols)) for name in DIFFERENTIATED}
     flat_f = frequency.ravel()
     step = rows_per_chunk(_bytes_per_row(linear, n_cols), share=0.5)
     for sl in chunks(n * n_f, step):
