@@ -194,10 +194,19 @@ class Diagnosis:
 WORK_LIMIT = 2e9
 """Largest :func:`diagnosis_work` ``diagnose`` takes on by default. Measured on this
 project's 2-core machines (invented cascades of common-emitter stages, one per
-transistor): 2 stages 1.4e6 (3.8 s), 4 stages 2.4e7 (16 s), 8 stages 5.5e8 (3.4 min),
-about 3.7e-7 s per unit at that size; the limit is therefore about 12 minutes of single
-faults. A 30-stage board (1.0e11) would take hours: it is refused with exit code 2."""
-SECONDS_PER_WORK = 3.7e-7
+transistor; 2026-12-04, CPU seconds, the machine shared): 2 stages 1.4e6 (0.8 s),
+4 stages 2.4e7 (2.4 s), 8 stages 5.5e8 (9–11 s, peak 280 MiB), 16 stages 1.5e10 (87 s,
+peak 1.3 GiB). The time grows about as work^0.65 at the large end
+(:func:`estimated_seconds`). The limit admits 8 stages and refuses 12 (3.7e9) and more:
+not for the time any more, but because a 16-stage diagnosis holds more than the memory
+budget. A 30-stage board (3.1e11) is refused with exit code 2."""
+
+
+def estimated_seconds(work: float) -> float:
+    """CPU seconds of the single-fault fits of ``work`` on a 2-core machine of this
+    project's kind, from the two large cascades of :data:`WORK_LIMIT` (8 and 16 stages):
+    a power law through them, work^0.65 (an estimate for the refusal's message)."""
+    return 10.0 * (work / 5.5e8) ** 0.65
 
 
 def diagnosis_work(board: Board, faults: list, observations: list[Observation],
@@ -218,11 +227,14 @@ def check_work(board: Board, faults: list, observations: list[Observation], spac
         return
     work = diagnosis_work(board, faults, observations, space)
     if work > limit:
-        minutes = work * SECONDS_PER_WORK / 60.0
+        seconds = estimated_seconds(work)
+        took = f"{seconds / 60.0:,.0f} minutes" if seconds >= 120.0 else f"{seconds:.0f} s"
         raise InputError(
             f"this board is too large to diagnose here: {len(faults)} fault hypotheses over "
-            f"{space.size} fitted parameters would take about {minutes:,.0f} minutes "
-            f"(work {work:.2g}, limit {limit:.2g}); diagnose one stage at a time (a board "
+            f"{space.size} fitted parameters are beyond the default limit (work {work:.2g}, "
+            f"limit {limit:.2g}: about {took} of CPU, and from about this size the fits "
+            "hold more than the memory budget); "
+            "diagnose one stage at a time (a board "
             "file of that stage with its readings), or call reconcile.diagnosis.diagnose "
             "with a larger work_limit", path=board.source_path)
 
