@@ -311,15 +311,13 @@ def _unit(n: int, at: int):
     return e
 
 
-def reference_columns(circuit, params, v0, columns):
-    """Central differences (node voltages, supply currents, resistor currents) per column."""
-    mpb = MpBoard(circuit, params)
-    floating = {int(i) for i in circuit.dc_floating}
-    v_base, _, inverse = mpb.solve(mpb.vals, v0)
+def central_columns(mpb, columns, n_out: int, outputs) -> np.ndarray:
+    """Central differences (n_out, P) of ``outputs(vals)`` (a list of n_out mpmath
+    numbers) at ``mpb``'s values, a relative step of 1e-12 in each column's value (an
+    absolute 1e-18 where it is 0; a column at infinity, VA without Early effect, is 0)."""
     cols = []
     for name, j in columns:
         base = mpb.vals[name][j]
-        n_out = circuit.n_nodes + len(circuit.supply_nodes) + len(circuit.resistor_refs)
         if base == mp.inf:  # VA = inf: no Early effect, nothing depends on it
             cols.append([0.0] * n_out)
             continue
@@ -328,16 +326,29 @@ def reference_columns(circuit, params, v0, columns):
         for sign in (1, -1):
             vals = {k: list(x) for k, x in mpb.vals.items()}
             vals[name][j] = base + sign * h
-            v, f, _ = mpb.solve(vals, v_base, inverse)
-            node_v = [v[i] if i not in floating else mp.mpf(0) for i in range(circuit.n_nodes)]
-            sup = [f[int(node)] for node in circuit.supply_nodes]
-            res = []
-            for r in range(len(circuit.resistor_refs)):
-                a, b = (int(x) for x in circuit.resistor_nodes[r])
-                res.append((v[a] - v[b]) / vals["resistor_ohms"][r])
-            outs.append(node_v + sup + res)
+            outs.append(outputs(name, vals))
         cols.append([float((p - m) / (2 * h)) for p, m in zip(outs[0], outs[1], strict=True)])
-    return np.array(cols).T  # (outputs, P)
+    return np.array(cols).T
+
+
+def reference_columns(circuit, params, v0, columns):
+    """Central differences (node voltages, supply currents, resistor currents) per column."""
+    mpb = MpBoard(circuit, params)
+    floating = {int(i) for i in circuit.dc_floating}
+    v_base, _, inverse = mpb.solve(mpb.vals, v0)
+
+    def outputs(_name, vals):
+        v, f, _ = mpb.solve(vals, v_base, inverse)
+        node_v = [v[i] if i not in floating else mp.mpf(0) for i in range(circuit.n_nodes)]
+        sup = [f[int(node)] for node in circuit.supply_nodes]
+        res = []
+        for r in range(len(circuit.resistor_refs)):
+            a, b = (int(x) for x in circuit.resistor_nodes[r])
+            res.append((v[a] - v[b]) / vals["resistor_ohms"][r])
+        return node_v + sup + res
+
+    n_out = circuit.n_nodes + len(circuit.supply_nodes) + len(circuit.resistor_refs)
+    return central_columns(mpb, columns, n_out, outputs)  # (outputs, P)
 
 
 def _check_board(seed: int) -> None:
@@ -407,28 +418,15 @@ def small_signal_reference_columns(circuit, params, v0, columns, frequencies):
     signal = MpSignal(circuit, mpb, params)
     v_base, _, inverse = mpb.solve(mpb.vals, v0)
 
-    def outputs(vals, v):
+    def outputs(name, vals):
+        v = v_base if name == "capacitor_farads" else mpb.solve(vals, v_base, inverse)[0]
         out = []
         for f in frequencies:
             found = signal.quantities(vals, v, f, whole=False)
             out += [found[q] for q in SIGNAL_QUANTITIES]
         return out
 
-    cols = []
-    for name, j in columns:
-        base = mpb.vals[name][j]
-        if base == mp.inf:  # VA = inf: nothing depends on it
-            cols.append([0.0] * (len(frequencies) * len(SIGNAL_QUANTITIES)))
-            continue
-        h = abs(base) * mp.mpf("1e-12") if base != 0 else mp.mpf("1e-18")
-        outs = []
-        for sign in (1, -1):
-            vals = {k: list(x) for k, x in mpb.vals.items()}
-            vals[name][j] = base + sign * h
-            v = v_base if name == "capacitor_farads" else mpb.solve(vals, v_base, inverse)[0]
-            outs.append(outputs(vals, v))
-        cols.append([float((p - m) / (2 * h)) for p, m in zip(outs[0], outs[1], strict=True)])
-    return np.array(cols).T
+    return central_columns(mpb, columns, len(frequencies) * len(SIGNAL_QUANTITIES), outputs)
 
 
 def _check_small_signal(seed: int) -> None:

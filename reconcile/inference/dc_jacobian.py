@@ -66,11 +66,13 @@ def external_slopes(model: MeasurementModel, x: np.ndarray) -> np.ndarray:
     return slope
 
 
-def _engine_columns(model: MeasurementModel) -> tuple[list[tuple[str, int]], np.ndarray]:
-    """Engine columns of the space's DC parameters and their indices in the space."""
+def engine_columns(model: MeasurementModel, fields: dict[str, str] = DC_FIELD
+                   ) -> tuple[list[tuple[str, int]], np.ndarray]:
+    """Engine columns ``(field, column)`` of the space's parameters whose kind ``fields``
+    names (by default the DC ones), and their indices in the space."""
     cols, owners = [], []
     for j, fp in enumerate(model.space.parameters):
-        field = DC_FIELD.get(fp.kind)
+        field = fields.get(fp.kind)
         if field is not None:
             cols.append((field, 0 if fp.kind == "temperature" else fp.column))
             owners.append(j)
@@ -136,7 +138,7 @@ def dc_jacobian(model: MeasurementModel, x: np.ndarray, solution: BatchSolution,
     m, p = x.shape
     slope = external_slopes(model, x)
     jac = np.zeros((m, len(model.observations), p))
-    cols, owners = _engine_columns(model)
+    cols, owners = engine_columns(model)
     cols = tuple(cols)
     plan = model.plan
     base = [k for k, (kind, row, _) in enumerate(plan) if kind in DC_KINDS and row == 0]

@@ -22,7 +22,8 @@ import numpy as np
 
 from reconcile.engine import BatchSolution
 from reconcile.engine.small_signal_sensitivity import small_signal_sensitivity
-from reconcile.inference.dc_jacobian import DC_FIELD, MeasurementModel, external_slopes
+from reconcile.inference.dc_jacobian import (DC_FIELD, MeasurementModel, engine_columns,
+                                             external_slopes)
 
 #: plan kinds of the small-signal readings
 SIGNAL_KINDS = frozenset({"small_signal", "small_signal_at"})
@@ -45,13 +46,7 @@ def fill_signal_rows(model: MeasurementModel, x: np.ndarray, solution: BatchSolu
     if not rows:
         return
     m = x.shape[0]
-    cols, owners = [], []
-    for j, fp in enumerate(model.space.parameters):
-        field = SIGNAL_FIELD.get(fp.kind)
-        if field is not None:
-            cols.append((field, 0 if fp.kind == "temperature" else fp.column))
-            owners.append(j)
-    owners = np.array(owners, dtype=np.intp)
+    cols, owners = engine_columns(model, SIGNAL_FIELD)
     alone = slice(0, m * model.group, model.group)  # row 0 of each group, as views
     freq = np.column_stack([solution.params.frequency[alone]]
                            + [np.full(m, f) for f in model.frequencies])
