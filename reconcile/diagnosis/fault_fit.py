@@ -61,6 +61,7 @@ import numpy as np
 from reconcile.engine import devices
 from reconcile.model.board import Board
 from reconcile.engine import BatchSolution, DCState, solve_batch
+from reconcile.engine.dc import solve_dc
 from reconcile.engine.budget import chunks
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
@@ -287,8 +288,23 @@ class _Group:
         params = self.model.parameters(x, lambda p: self._with_faults(p, rows_owner))
         rows = np.arange(len(x)) * g if small_signal else False
         with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
-            return solve_batch(self.model.circuit, params, self._initial(owner, x),
-                               small_signal=rows)
+            initial = self._initial(owner, x)
+            if initial is None and g > 1 and len(x) > 1:
+                initial = self._from_boards_alone(params, len(x))
+            return solve_batch(self.model.circuit, params, initial, small_signal=rows)
+
+    def _from_boards_alone(self, params, m: int) -> DCState:
+        """Starts for M groups with no operating point of their own yet (the scan of
+        the starting points): each group's board alone solved first, and every board of
+        the group started from it, so a probe board refines the point its board alone
+        has reached instead of walking there from another group's (the engine's own
+        seed for a cold batch is its first sample, which for a scan across decades of
+        a part lies far from most)."""
+        g = self.model.group
+        alone = solve_dc(self.model.circuit, params.take(slice(0, m * g, g)))
+        return DCState(v=np.repeat(alone.v, g, axis=0), vj=np.repeat(alone.vj, g, axis=0),
+                       converged=np.repeat(alone.converged, g),
+                       iterations=np.zeros(m * g, dtype=np.int64))
 
     def evaluate(
         self, x: np.ndarray, owner: np.ndarray, *, record: bool = False, small_signal: bool = True
