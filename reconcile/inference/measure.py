@@ -135,6 +135,10 @@ class MeasurementModel:
         self.group = 1 + len(self.probes) + len(self.ammeters)
         self.base = nominal_parameters(self.circuit, 1)
         self._state: DCState | None = None
+        #: where the kept state was solved (one vector), and dV/dx of the board alone
+        #: at the last Jacobian: the next warm start is moved to first order by it
+        self._state_x: np.ndarray | None = None
+        self._state_dv: np.ndarray | None = None
         self._last: tuple[bytes, BatchSolution] | None = None
         #: distinct frequencies small-signal readings were taken at (other than [signal])
         self.frequencies = tuple(sorted({ob.frequency for ob in observations
@@ -246,7 +250,7 @@ class MeasurementModel:
         params = self.parameters(x)
         initial = None
         if warm and self._state is not None:
-            initial = self._state
+            initial = self._moved_state(x)
             if initial.v.shape[0] != params.n_samples:
                 reps = params.n_samples // initial.v.shape[0]
                 if reps * initial.v.shape[0] == params.n_samples:
@@ -269,7 +273,24 @@ class MeasurementModel:
                 converged=sol.state.converged[: self.group].copy(),
                 iterations=sol.state.iterations[: self.group].copy(),
             )
+            self._state_x = x[0].copy()
         return sol
+
+    def _moved_state(self, x: np.ndarray) -> DCState:
+        """The kept state as the warm start for one vector x, its node voltages moved to
+        first order, V + dV/dx·(x − x_solved), by the last Jacobian's dV/dx of the board
+        alone (the probe boards by the same amount: a meter moves them by parts per
+        thousand); the junction voltages stay those solved, so Newton's junction
+        limiting measures its first step from a point it has solved. Several vectors,
+        or no Jacobian yet: the state as it is."""
+        state = self._state
+        if x.shape[0] != 1 or self._state_dv is None or self._state_x is None:
+            return state
+        shift = self._state_dv @ (x[0] - self._state_x)
+        if not np.isfinite(shift).all():
+            return state
+        return DCState(v=state.v + shift[None, :], vj=state.vj, converged=state.converged,
+                       iterations=state.iterations)
 
     def predict(self, x: np.ndarray, *, solution: BatchSolution | None = None) -> np.ndarray:
         """Predicted observations (M, R) for internal vectors x (M, P); NaN where the
@@ -346,7 +367,9 @@ class MeasurementModel:
         x = np.asarray(x, dtype=float).ravel()
         sol = self.solve(x[None, :])
         f0 = self.predict(x[None, :], solution=sol)[0]
-        jac = self.raw_jacobian(x[None, :], sol)[0][0]
+        raw, dv = self.raw_jacobian(x[None, :], sol)
+        jac = raw[0]
+        self._state_dv = dv[0] if np.isfinite(dv[0]).all() else None
         apply_calibration(self, x, f0, jac)
         bad = ~np.isfinite(f0)
         jac[bad] = np.nan
