@@ -191,17 +191,17 @@ class Diagnosis:
 
 
 # ---------------------------------------------------------------------- entry
-WORK_LIMIT = 2e9
+WORK_LIMIT = 2e10
 """Largest :func:`diagnosis_work` ``diagnose`` takes on by default. Measured on this
 project's 2-core machines (invented cascades of common-emitter stages, one per
 transistor; 2026-12-04, CPU seconds, the machine shared): 2 stages 1.4e6 (0.8 s),
 4 stages 2.4e7 (2.4 s), 8 stages 5.5e8 (9–11 s, peak 290 MiB), 12 stages 3.7e9 (33 s,
-peak 529 MiB), 16 stages 1.5e10 (87 s, peak 1.3 GiB). The time grows about as
-work^0.65 at the large end (:func:`estimated_seconds`). The limit admits 8 stages and
-refuses 12 (3.7e9) and more: not for the time any more, but for the memory, which from
-12 stages on passes the default budget (the hypotheses' Jacobians and normal matrices
-are held for all of a topology's starts at once). A 30-stage board (3.1e11) is refused
-with exit code 2."""
+peak 363 MiB), 16 stages 1.5e10 (88 s, peak 603 MiB: the default budget and the
+interpreter's own). The time grows about as work^0.65 at the large end
+(:func:`estimated_seconds`). The limit admits 16 stages and refuses larger boards, for
+the memory as much as the time: every start's Jacobian and operating points are held
+while its topology's hypotheses are fitted, and beyond 16 stages they pass the budget.
+A 30-stage board (3.1e11) is refused with exit code 2."""
 
 
 def estimated_seconds(work: float) -> float:

@@ -594,13 +594,12 @@ def fit_faults(
             sub = missing[sl]
             _, sol = group.evaluate(x[sub], sub, small_signal=True)
             for j, k in enumerate(sub):
-                sols[int(k)] = (sol, j)
+                sols[int(k)] = _alone(group, sol, j)
         for m, i in enumerate(members):
             k = picked[m]
             status = "no-operating-point" if not finite[k] else str(found.status[k])
-            sol, j = sols[k]
             out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
-                             int(iterations[k]), sol, j)
+                             int(iterations[k]), sols[k])
     done = [o for o in out if o is not None]
     if retry and len(seeds) > 1:
         done = _retry_stuck(done, [seed_of[i] for i in range(len(done))], observations,
@@ -644,7 +643,7 @@ def _end_points(group: _Group, x: np.ndarray, start_owner: np.ndarray, pruned: n
     n = len(start_owner)
     pred = np.full((n, len(group.measured)), np.nan)
     cost = np.full(n, np.inf)
-    sols: dict[int, tuple[BatchSolution, int]] = {}
+    sols: dict[int, _Alone] = {}
 
     def run(rows: np.ndarray) -> None:
         if not len(rows):
@@ -652,7 +651,7 @@ def _end_points(group: _Group, x: np.ndarray, start_owner: np.ndarray, pruned: n
         p, sol = group.evaluate(x[rows], rows, small_signal=True)
         pred[rows], cost[rows] = p, group.cost(x[rows], p, rows)
         if sol is not None:
-            sols.update({int(k): (sol, j) for j, k in enumerate(rows)})
+            sols.update({int(k): _alone(group, sol, j) for j, k in enumerate(rows)})
 
     run(np.flatnonzero(~pruned))
     finite = np.all(np.isfinite(pred), axis=1)
@@ -661,17 +660,20 @@ def _end_points(group: _Group, x: np.ndarray, start_owner: np.ndarray, pruned: n
     return pred, cost, np.all(np.isfinite(pred), axis=1), sols
 
 
-def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
-            j: int) -> FaultFit:
-    """Hypothesis row ``k`` as a :class:`FaultFit`; ``sol`` is the engine solution in
-    which it is the ``j``-th parameter vector."""
-    free = group.free[k]
-    jw = jac[:, free]  # weighted readings and prior rows
-    a = jw.T @ jw
-    try:
-        cov = np.linalg.inv(a)
-    except np.linalg.LinAlgError:
-        cov = np.linalg.pinv(a)
+@dataclass(frozen=True)
+class _Alone:
+    """What a result keeps of its engine solution: the board alone's small-signal
+    values, its transistors' regions and its node voltages (so the solutions of a
+    diagnosis's many rows, probe boards and Newton matrices included, are let go as
+    soon as they are read)."""
+
+    small_signal: dict[str, float]
+    regions: dict[str, str]
+    node_volts: dict[str, float]
+
+
+def _alone(group: _Group, sol: BatchSolution, j: int) -> _Alone:
+    """The board alone of the ``j``-th parameter vector of ``sol``, as a result keeps it."""
     row = j * group.model.group  # the board alone, no probe attached
     circuit = group.model.circuit
     ss = {}
@@ -687,6 +689,20 @@ def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
         for i, name in enumerate(circuit.node_names)
         if i not in floating
     }
+    return _Alone(ss, regions, volts)
+
+
+def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations,
+            alone: _Alone) -> FaultFit:
+    """Hypothesis row ``k`` as a :class:`FaultFit`; ``alone`` is what its engine
+    solution says of the board alone."""
+    free = group.free[k]
+    jw = jac[:, free]  # weighted readings and prior rows
+    a = jw.T @ jw
+    try:
+        cov = np.linalg.inv(a)
+    except np.linalg.LinAlgError:
+        cov = np.linalg.pinv(a)
     return FaultFit(
         fault=group.faults[k],
         space=group.space,
@@ -701,9 +717,9 @@ def _result(group: _Group, k: int, x, pred, jac, cost, status, iterations, sol,
         converged=status == CONVERGED,
         iterations=iterations,
         status=status,
-        small_signal=ss,
-        regions=regions,
-        node_volts=volts,
+        small_signal=alone.small_signal,
+        regions=alone.regions,
+        node_volts=alone.node_volts,
     )
 
 

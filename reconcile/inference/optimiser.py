@@ -47,6 +47,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from reconcile.engine.budget import chunks, rows_per_chunk
+
 __all__ = [
     "CONVERGED",
     "ITERATION_LIMIT",
@@ -179,16 +181,17 @@ def _step(st: _Rows, idx, a, grad, moving):
     return np.where(moving, -_solve(damped, np.where(moving, grad, 0.0)), 0.0)
 
 
-def _refresh(st: _Rows, rows: np.ndarray) -> None:
-    """The caller's Jacobian of ``rows`` at their current points."""
-    if len(rows):
-        st.jac[rows] = np.where(st.free[rows][:, None, :],
-                                st.jacobian(st.x[rows], rows, st.aux[rows]), 0.0)
+def _normal_bytes(p: int, n_residuals: int) -> int:
+    """Peak working memory of one row's normal equations in :func:`_steps`: about six
+    P × P arrays (JᵀJ, its symmetrised and restricted copies, the damped matrix and the
+    solver's copy) and the residual-by-parameter transpose's product, 8 bytes each."""
+    return 8 * (6 * p * p + 2 * n_residuals * p + 16 * p)
 
 
-def _iterate(st: _Rows, idx: np.ndarray) -> None:
-    """One iteration of the active rows ``idx``: convergence test, step, damping, and the
-    Jacobians for the next one (see the module docstring)."""
+def _steps(st: _Rows, idx: np.ndarray):
+    """For rows ``idx``: which meet the convergence test, and for the others the trial
+    points and the decrease the linear model predicts (their decrement and Gauss–Newton
+    floor recorded on the way)."""
     jac, r = st.jac[idx], st.r[idx]
     jac_t = jac.transpose(0, 2, 1)
     a = jac_t @ jac  # JᵀJ by BLAS, a few times faster than the equivalent einsum
@@ -202,14 +205,40 @@ def _iterate(st: _Rows, idx: np.ndarray) -> None:
     g_f = np.where(free, grad, 0.0)
     st.floor[idx] = st.cost[idx] - np.einsum("mi,mi->m", g_f, _solve(_restricted(a, free), g_f))
     done = decrement <= DECREMENT_TOL
-    st.stop(idx[done], CONVERGED)
     keep = ~done
-    idx, a, grad, moving = idx[keep], a[keep], grad[keep], moving[keep]
+    sub, a, grad, moving = idx[keep], a[keep], grad[keep], moving[keep]
+    trial = np.clip(st.x[sub] + _step(st, sub, a, grad, moving), st.lower, st.upper)
+    step = trial - st.x[sub]
+    predicted = -(2.0 * np.einsum("mi,mi->m", grad, step) + np.einsum("mi,mij,mj->m", step, a, step))
+    return done, trial, predicted
+
+
+def _refresh(st: _Rows, rows: np.ndarray) -> None:
+    """The caller's Jacobian of ``rows`` at their current points."""
+    if len(rows):
+        st.jac[rows] = np.where(st.free[rows][:, None, :],
+                                st.jacobian(st.x[rows], rows, st.aux[rows]), 0.0)
+
+
+def _iterate(st: _Rows, idx: np.ndarray) -> None:
+    """One iteration of the active rows ``idx``: convergence test, step, damping, and the
+    Jacobians for the next one (see the module docstring). The normal matrices and the
+    steps are worked out in chunks of rows within the memory budget (each row's own;
+    :func:`_normal_bytes`), the trial points' residuals in one call."""
+    p = st.x.shape[1]
+    trials, predicted, kept = [], [], []
+    for sl in chunks(len(idx), rows_per_chunk(_normal_bytes(p, st.r.shape[1]), share=0.25)):
+        sub = idx[sl]
+        done, trial, pred = _steps(st, sub)
+        st.stop(sub[done], CONVERGED)
+        trials.append(trial)
+        predicted.append(pred)
+        kept.append(sub[~done])
+    idx = np.concatenate(kept)
     if not len(idx):
         return
-    trial = np.clip(st.x[idx] + _step(st, idx, a, grad, moving), st.lower, st.upper)
-    step = trial - st.x[idx]
-    predicted = -(2.0 * np.einsum("mi,mi->m", grad, step) + np.einsum("mi,mij,mj->m", step, a, step))
+    trial = np.concatenate(trials)
+    predicted = np.concatenate(predicted)
     r_t, aux_t = st.residuals(trial, idx)
     c_t = _cost(r_t)
     st.iterations[idx] += 1
