@@ -139,3 +139,34 @@ def test_human_diagnose_output_runs(tmp_path) -> None:
                       str(SAMPLES / "line_receiver_built.csv"), cwd=tmp_path, timeout=300)
     assert run.returncode == 0, run.stderr
     assert "most likely" in run.stdout
+
+
+@pytest.mark.slow
+def test_hypotheses_are_fitted_in_batches_that_fit_the_budget_self_consistency() -> None:
+    # A topology's hypotheses are fitted in batches whose rows' held state fits a
+    # quarter of the budget; under the smallest budget a 4-stage cascade's diagnosis
+    # runs in several batches and ranks its hypotheses as one batch does
+    # (self-consistency: the fits are row by row; only a bounded fit's χ², an upper
+    # bound, may differ).
+    from reconcile.diagnosis import fault_fit
+    from reconcile.inference.simulate import full_plan
+
+    board = board_from_text(stages_board_toml(4))
+    truth = board.with_resistor_ohms("RE2_1", 10 * board.resistors["RE2_1"].ohms)
+    plan = [key for key in full_plan(board) if key[0] != "gain"]
+    readings = simulate_readings(truth, plan, rng=np.random.default_rng(4))
+    whole = diagnose(board, readings)
+    faults = [h.fit.fault for h in whole.hypotheses if "+" not in h.label]
+    space = whole.hypotheses[0].fit.space
+    observations = observations_from(readings, board)
+    drawn = [i for i, f in enumerate(faults) if f.board is faults[0].board]
+    assert len(fault_fit._batches(drawn, faults, observations, space)) == 1
+    with budget(parse_budget("16M")):
+        batches = fault_fit._batches(drawn, faults, observations, space)
+        small = diagnose(board, readings)
+    assert len(batches) > 1 and sorted(sum(batches, [])) == drawn
+    assert small.top.label == whole.top.label == "RE2_1 wrong-value"
+    ours = {h.label: h.fit for h in small.hypotheses}
+    for h in whole.hypotheses:
+        if h.fit.status != "bounded" and ours[h.label].status != "bounded":
+            assert ours[h.label].chi_square == pytest.approx(h.fit.chi_square, rel=1e-9)

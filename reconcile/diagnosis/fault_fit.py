@@ -62,7 +62,7 @@ from reconcile.engine import devices
 from reconcile.model.board import Board
 from reconcile.engine import BatchSolution, DCState, solve_batch
 from reconcile.engine.dc import solve_dc
-from reconcile.engine.budget import chunks
+from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
 from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
@@ -569,14 +569,17 @@ def fit_faults(
         order.setdefault(id(f.board), []).append(i)
     out: list[FaultFit | None] = [None] * len(faults)
     seed_of: dict[int, int] = {}  # the seed each hypothesis started from
-    for members in order.values():
+    batches = [(n, batch) for n, same in enumerate(order.values())
+               for batch in _batches(same, faults, observations, space)]
+    best = {n: reference_chi2 for n, _ in batches}  # per topology: the lowest objective
+    for topology, members in batches:
         base = _Group(faults[members[0]].board, [faults[i] for i in members], observations, space)
         mine = [own_seeds[i] for i in members] if own_seeds else None
         x0, start_owner, chosen = _seed_starts(
             base, [np.asarray(s, dtype=float) for s in seeds], mine)
         seed_of.update(zip(members, chosen, strict=True))
         group = base.expanded(start_owner)
-        found, pruned = _minimise(group, x0, max_iterations, start_owner, reference_chi2)
+        found, pruned = _minimise(group, x0, max_iterations, start_owner, best[topology])
         x, jac, iterations = found.x, found.jacobian, found.iterations
         pred, cost, finite, sols = _end_points(group, x, start_owner, pruned)
         # Of a hypothesis's starts keep the best usable end point (a pruned start only
@@ -600,11 +603,37 @@ def fit_faults(
             status = "no-operating-point" if not finite[k] else str(found.status[k])
             out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
                              int(iterations[k]), sols[k])
+        best[topology] = min(best[topology], float(np.min(cost[picked])))
     done = [o for o in out if o is not None]
     if retry and len(seeds) > 1:
         done = _retry_stuck(done, [seed_of[i] for i in range(len(done))], observations,
                             space, seeds, max_iterations, reference_chi2)
     return done
+
+
+def _batches(members: list[int], faults: list[Fault], observations, space) -> list[list[int]]:
+    """Hypotheses of one topology in batches whose rows' held state fits a quarter of the
+    memory budget: every start of a hypothesis is a row, and a row holds its Jacobian
+    (readings × parameters, in the optimiser and as the group's last), dV/dx of its
+    board alone and the operating points of its boards (8 bytes each). On the boards
+    this tool is for, one batch; on a 16-stage cascade three. A later batch may stop its
+    hypotheses against the best objective an earlier batch of the topology reached
+    (:data:`BOUND_MARGIN`), as they would have been stopped fitted together."""
+    model = MeasurementModel(faults[members[0]].board, observations, space)
+    size = model.circuit.n_nodes + 1
+    n_r, n_p = len(model.observations), model.space.size
+    per_row = 8 * (2 * n_r * n_p + size * n_p + model.group * size + 4 * n_p)
+    room = rows_per_chunk(per_row, share=0.25)
+    out: list[list[int]] = [[]]
+    rows = 0
+    for i in members:
+        starts = 1 + len(DECADE_STARTS) * len(faults[i].widened)
+        if out[-1] and rows + starts > room:
+            out.append([])
+            rows = 0
+        out[-1].append(i)
+        rows += starts
+    return out
 
 
 STUCK = ("iteration-limit", "stalled")
