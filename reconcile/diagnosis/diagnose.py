@@ -194,14 +194,13 @@ class Diagnosis:
 WORK_LIMIT = 2e10
 """Largest :func:`diagnosis_work` ``diagnose`` takes on by default. Measured on this
 project's 2-core machines (invented cascades of common-emitter stages, one per
-transistor; 2026-12-04, CPU seconds, the machine shared): 2 stages 1.4e6 (0.8 s),
-4 stages 2.4e7 (2.4 s), 8 stages 5.5e8 (9–11 s, peak 290 MiB), 12 stages 3.7e9 (33 s,
-peak 363 MiB), 16 stages 1.5e10 (88 s, peak 603 MiB: the default budget and the
-interpreter's own). The time grows about as work^0.65 at the large end
-(:func:`estimated_seconds`). The limit admits 16 stages and refuses larger boards, for
-the memory as much as the time: every start's Jacobian and operating points are held
-while its topology's hypotheses are fitted, and beyond 16 stages they pass the budget.
-A 30-stage board (3.1e11) is refused with exit code 2."""
+transistor; 2026-12-04, CPU seconds): 2 stages 1.4e6 (0.8 s), 4 stages 2.4e7 (2.4 s),
+8 stages 5.5e8 (9–11 s, peak 246 MiB), 12 stages 3.7e9 (33 s, peak 363 MiB), 16 stages
+1.5e10 (79 s, peak 527 MiB), 30 stages 3.1e11 (707 s, peak 895 MiB, the right leader).
+The time grows about as work^0.65 at the large end (:func:`estimated_seconds`). The
+limit admits 16 stages and refuses larger boards, a 30-stage one with exit code 2: it
+would take some 12 minutes and hold more than the default budget (each of its 609
+hypotheses keeps its covariance, 275 × 275, for the scoring: 370 MB)."""
 
 
 def estimated_seconds(work: float) -> float:
