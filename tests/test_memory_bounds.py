@@ -160,9 +160,10 @@ def test_hypotheses_are_fitted_in_batches_that_fit_the_budget_self_consistency()
     space = whole.hypotheses[0].fit.space
     observations = observations_from(readings, board)
     drawn = [i for i, f in enumerate(faults) if f.board is faults[0].board]
-    assert len(fault_fit._batches(drawn, faults, observations, space)) == 1
+    model = MeasurementModel(faults[0].board, observations, space)
+    assert len(fault_fit._batches(drawn, faults, model)) == 1
     with budget(parse_budget("16M")):
-        batches = fault_fit._batches(drawn, faults, observations, space)
+        batches = fault_fit._batches(drawn, faults, model)
         small = diagnose(board, readings)
     assert len(batches) > 1 and sorted(sum(batches, [])) == drawn
     assert small.top.label == whole.top.label == "RE2_1 wrong-value"

@@ -184,9 +184,12 @@ class _Group:
         faults: list[Fault],
         observations: list[Observation],
         space: ParameterSpace,
+        model: MeasurementModel | None = None,
     ) -> None:
         self.faults = faults
-        self.model = MeasurementModel(board, observations, space)
+        #: the board's measurement model; batches of one topology share it (the fits
+        #: read no state of its own: they solve and differentiate through it)
+        self.model = MeasurementModel(board, observations, space) if model is None else model
         self.space = self.model.space
         keys = self.space.keys
         h, p = len(faults), self.space.size
@@ -569,11 +572,15 @@ def fit_faults(
         order.setdefault(id(f.board), []).append(i)
     out: list[FaultFit | None] = [None] * len(faults)
     seed_of: dict[int, int] = {}  # the seed each hypothesis started from
-    batches = [(n, batch) for n, same in enumerate(order.values())
-               for batch in _batches(same, faults, observations, space)]
-    best = {n: reference_chi2 for n, _ in batches}  # per topology: the lowest objective
-    for topology, members in batches:
-        base = _Group(faults[members[0]].board, [faults[i] for i in members], observations, space)
+    batches = []
+    for same in order.values():
+        model = MeasurementModel(faults[same[0]].board, observations, space)
+        batches += [(model, batch) for batch in _batches(same, faults, model)]
+    best = {id(model): reference_chi2 for model, _ in batches}  # per topology: the lowest
+    for model, members in batches:
+        topology = id(model)
+        base = _Group(faults[members[0]].board, [faults[i] for i in members], observations,
+                      space, model)
         mine = [own_seeds[i] for i in members] if own_seeds else None
         x0, start_owner, chosen = _seed_starts(
             base, [np.asarray(s, dtype=float) for s in seeds], mine)
@@ -611,15 +618,16 @@ def fit_faults(
     return done
 
 
-def _batches(members: list[int], faults: list[Fault], observations, space) -> list[list[int]]:
+def _batches(members: list[int], faults: list[Fault], model: MeasurementModel
+             ) -> list[list[int]]:
     """Hypotheses of one topology in batches whose rows' held state fits a quarter of the
     memory budget: every start of a hypothesis is a row, and a row holds its Jacobian
     (readings × parameters, in the optimiser and as the group's last), dV/dx of its
     board alone and the operating points of its boards (8 bytes each). On the boards
     this tool is for, one batch; on a 16-stage cascade three. A later batch may stop its
     hypotheses against the best objective an earlier batch of the topology reached
-    (:data:`BOUND_MARGIN`), as they would have been stopped fitted together."""
-    model = MeasurementModel(faults[members[0]].board, observations, space)
+    (:data:`BOUND_MARGIN`), as they would have been stopped fitted together. ``model``
+    is the topology's measurement model."""
     size = model.circuit.n_nodes + 1
     n_r, n_p = len(model.observations), model.space.size
     per_row = 8 * (2 * n_r * n_p + size * n_p + model.group * size + 4 * n_p)
