@@ -65,7 +65,8 @@ from reconcile.engine.dc import solve_dc
 from reconcile.engine.budget import chunks, rows_per_chunk
 from reconcile.diagnosis.faults import Fault
 from reconcile.inference.fitting import NAN_PENALTY
-from reconcile.inference.measure import SMALL_SIGNAL, MeasurementModel, Observation
+from reconcile.inference.measure import (SMALL_SIGNAL, MeasurementModel, Observation,
+                                        moved_to_first_order)
 from reconcile.inference.dc_jacobian import apply_calibration
 from reconcile.inference.signal_jacobian import signal_rows
 from reconcile.inference.optimiser import CONVERGED, minimise
@@ -238,11 +239,10 @@ class _Group:
     # ---------------------------------------------------------------- engine
     def _initial(self, owner: np.ndarray, x: np.ndarray) -> DCState | None:
         """Warm starts of rows ``owner`` at internal x (M, P): each row's last solved
-        operating point, moved to first order by dV/dx of its last Jacobian,
-        V + dV/dx·(x − x_solved) (every board of the group by its board alone's
-        derivatives: a voltmeter or an ammeter's burden moves them by parts per
-        million). The junction voltages stay those solved, so Newton's junction
-        limiting measures its first step from a point it has solved."""
+        operating point, moved to first order by dV/dx of its last Jacobian
+        (:func:`reconcile.inference.measure.moved_to_first_order`; a row of an owner
+        not yet solved takes another's point unmoved), the junction voltages as
+        solved."""
         if not self.has_state.any():
             return None
         g = self.model.group
@@ -250,10 +250,8 @@ class _Group:
         src = np.where(self.has_state[owner], owner, fill)
         v = self.state_v[src]
         if self.state_dv is not None:
-            moved = self.has_state[owner]
-            shift = np.einsum("mnp,mp->mn", self.state_dv[src], x - self.state_x[src])
-            shift[~moved | ~np.isfinite(shift).all(axis=1)] = 0.0
-            v = v + shift[:, None, :]
+            dx = np.where(self.has_state[owner][:, None], x - self.state_x[src], 0.0)
+            v = moved_to_first_order(v, self.state_dv[src], dx)
         v = v.reshape(len(owner) * g, -1)
         vj = self.state_vj[src].reshape(len(owner) * g, *self.state_vj.shape[2:])
         n = len(owner) * g

@@ -101,6 +101,19 @@ def ambient_from(readings: list[Reading]) -> tuple[float | None, float | None]:
     return float(np.sum(w * values) / np.sum(w)), float(1.0 / np.sqrt(np.sum(w)))
 
 
+def moved_to_first_order(v: np.ndarray, dv: np.ndarray, dx: np.ndarray) -> np.ndarray:
+    """Warm starts moved to first order: the node voltages v (M, G, n_nodes + 1) of M
+    groups of boards, solved at x, as they stand at x + dx (M, P) by dV/dx (M,
+    n_nodes + 1, P) of each group's board alone, V + dV/dx·dx, every board of a group
+    by the same amount (a meter moves an operating point by parts per thousand). A
+    group whose shift is not finite keeps its voltages. The junction voltages are the
+    caller's to keep as solved, so Newton's junction limiting measures its first step
+    from a point it has solved."""
+    shift = np.einsum("mnp,mp->mn", dv, dx)
+    shift[~np.isfinite(shift).all(axis=1)] = 0.0
+    return v + shift[:, None, :]
+
+
 class MeasurementModel:
     """Predicts a list of observations for many parameter vectors in one engine call."""
 
@@ -286,10 +299,9 @@ class MeasurementModel:
         state = self._state
         if x.shape[0] != 1 or self._state_dv is None or self._state_x is None:
             return state
-        shift = self._state_dv @ (x[0] - self._state_x)
-        if not np.isfinite(shift).all():
-            return state
-        return DCState(v=state.v + shift[None, :], vj=state.vj, converged=state.converged,
+        v = moved_to_first_order(state.v[None], self._state_dv[None],
+                                 (x[0] - self._state_x)[None])[0]
+        return DCState(v=v, vj=state.vj, converged=state.converged,
                        iterations=state.iterations)
 
     def predict(self, x: np.ndarray, *, solution: BatchSolution | None = None) -> np.ndarray:
