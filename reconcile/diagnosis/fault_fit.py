@@ -570,45 +570,42 @@ def fit_faults(
         order.setdefault(id(f.board), []).append(i)
     out: list[FaultFit | None] = [None] * len(faults)
     seed_of: dict[int, int] = {}  # the seed each hypothesis started from
-    batches = []
     for same in order.values():
         model = MeasurementModel(faults[same[0]].board, observations, space)
-        batches += [(model, batch) for batch in _batches(same, faults, model)]
-    best = {id(model): reference_chi2 for model, _ in batches}  # per topology: the lowest
-    for model, members in batches:
-        topology = id(model)
-        base = _Group(faults[members[0]].board, [faults[i] for i in members], observations,
-                      space, model)
-        mine = [own_seeds[i] for i in members] if own_seeds else None
-        x0, start_owner, chosen = _seed_starts(
-            base, [np.asarray(s, dtype=float) for s in seeds], mine)
-        seed_of.update(zip(members, chosen, strict=True))
-        group = base.expanded(start_owner)
-        found, pruned = _minimise(group, x0, max_iterations, start_owner, best[topology])
-        x, jac, iterations = found.x, found.jacobian, found.iterations
-        pred, cost, finite, sols = _end_points(group, x, start_owner, pruned)
-        # Of a hypothesis's starts keep the best usable end point (a pruned start only
-        # when it is all there is).
-        usable = np.where(finite & ~pruned, cost, np.inf)
-        picked = []
-        for m in range(len(members)):
-            rows = np.nonzero(start_owner == m)[0]
-            pick = usable[rows] if np.isfinite(usable[rows]).any() else cost[rows]
-            picked.append(int(rows[int(np.argmin(pick))]))
-        # The engine solution of each picked row: from the calls above when they fitted
-        # in one, else the picked rows solved again in budget chunks.
-        missing = np.array([k for k in picked if k not in sols], dtype=np.intp)
-        for sl in chunks(len(missing), group.model.rows_per_call()):
-            sub = missing[sl]
-            _, sol = group.evaluate(x[sub], sub, small_signal=True)
-            for j, k in enumerate(sub):
-                sols[int(k)] = _alone(group, sol, j)
-        for m, i in enumerate(members):
-            k = picked[m]
-            status = "no-operating-point" if not finite[k] else str(found.status[k])
-            out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
-                             int(iterations[k]), sols[k])
-        best[topology] = min(best[topology], float(np.min(cost[picked])))
+        best = reference_chi2  # the lowest objective this topology's batches reached
+        for members in _batches(same, faults, model):
+            base = _Group(faults[members[0]].board, [faults[i] for i in members], observations,
+                          space, model)
+            mine = [own_seeds[i] for i in members] if own_seeds else None
+            x0, start_owner, chosen = _seed_starts(
+                base, [np.asarray(s, dtype=float) for s in seeds], mine)
+            seed_of.update(zip(members, chosen, strict=True))
+            group = base.expanded(start_owner)
+            found, pruned = _minimise(group, x0, max_iterations, start_owner, best)
+            x, jac, iterations = found.x, found.jacobian, found.iterations
+            pred, cost, finite, sols = _end_points(group, x, start_owner, pruned)
+            # Of a hypothesis's starts keep the best usable end point (a pruned start only
+            # when it is all there is).
+            usable = np.where(finite & ~pruned, cost, np.inf)
+            picked = []
+            for m in range(len(members)):
+                rows = np.nonzero(start_owner == m)[0]
+                pick = usable[rows] if np.isfinite(usable[rows]).any() else cost[rows]
+                picked.append(int(rows[int(np.argmin(pick))]))
+            # The engine solution of each picked row: from the calls above when they fitted
+            # in one, else the picked rows solved again in budget chunks.
+            missing = np.array([k for k in picked if k not in sols], dtype=np.intp)
+            for sl in chunks(len(missing), group.model.rows_per_call()):
+                sub = missing[sl]
+                _, sol = group.evaluate(x[sub], sub, small_signal=True)
+                for j, k in enumerate(sub):
+                    sols[int(k)] = _alone(group, sol, j)
+            for m, i in enumerate(members):
+                k = picked[m]
+                status = "no-operating-point" if not finite[k] else str(found.status[k])
+                out[i] = _result(group, k, x[k], pred[k], jac[k], cost[k], status,
+                                 int(iterations[k]), sols[k])
+            best = min(best, float(np.min(cost[picked])))
     done = [o for o in out if o is not None]
     if retry and len(seeds) > 1:
         done = _retry_stuck(done, [seed_of[i] for i in range(len(done))], observations,
