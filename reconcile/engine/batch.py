@@ -191,10 +191,9 @@ def _evenly_spaced(rows: np.ndarray) -> np.ndarray | slice:
         return rows
     if len(rows) == 1:
         return slice(int(rows[0]), int(rows[0]) + 1)
-    if len(rows) > 1:
-        step = int(rows[1] - rows[0])
-        if step > 0 and np.array_equal(np.diff(rows), np.full(len(rows) - 1, step)):
-            return slice(int(rows[0]), int(rows[-1]) + 1, step)
+    step = int(rows[1] - rows[0])
+    if step > 0 and np.array_equal(np.diff(rows), np.full(len(rows) - 1, step)):
+        return slice(int(rows[0]), int(rows[-1]) + 1, step)
     return rows
 
 

@@ -179,10 +179,8 @@ def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt,
         out["vbc"] = np.stack([-g_f * inv_va,
                                -k_r * q_early + 2.0 * g_r * inv_va - k_r / beta_r,
                                zero, k_r / beta_r], axis=-1)
-    if "is_t" in want:
-        conductances = np.stack([g_f * q_early,
-                                 -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r,
-                                 g_f / beta, g_r / beta_r], axis=-1)
+    if "is_t" in want:  # every conductance is proportional to IS(T)
+        conductances = _conductance_form(g_f, g_r, i_f, i_r, q_early, inv_va, beta, beta_r)
         out["is_t"] = conductances / np.asarray(is_t)[..., None]
     if "beta" in want:
         out["beta"] = np.stack([zero, zero, -g_f / beta**2, zero], axis=-1)
@@ -193,10 +191,17 @@ def conductance_slopes(vbe, vbc, is_t, beta, beta_r, va, n_vt,
         gn_f = -(np.where(below_f, x_f, 0.0) + 1.0) * g_f / n_vt
         gn_r = -(np.where(below_r, x_r, 0.0) + 1.0) * g_r / n_vt
         in_f, in_r = -g_f * x_f, -g_r * x_r
-        out["n_vt"] = np.stack([gn_f * q_early,
-                                -gn_r * q_early - (in_f - in_r) * inv_va - gn_r / beta_r,
-                                gn_f / beta, gn_r / beta_r], axis=-1)
+        out["n_vt"] = _conductance_form(gn_f, gn_r, in_f, in_r, q_early, inv_va, beta, beta_r)
     return out
+
+
+def _conductance_form(g_f, g_r, i_f, i_r, q_early, inv_va, beta, beta_r) -> np.ndarray:
+    """(..., 4) the conductances of :func:`junction_point` (dic_dvbe, dic_dvbc,
+    dib_dvbe, dib_dvbc) as the linear form they are in the junction conductances g and
+    currents i: applied to (g, i) it gives them, to their derivatives by a parameter
+    that leaves q_early, VA and beta alone (IS(T), n·VT) their derivatives."""
+    return np.stack([g_f * q_early, -g_r * q_early - (i_f - i_r) * inv_va - g_r / beta_r,
+                     g_f / beta, g_r / beta_r], axis=-1)
 
 
 SLOPE_VARIABLES = ("vbe", "vbc", "is_t", "beta", "inv_va", "n_vt")
